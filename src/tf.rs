@@ -1,0 +1,1 @@
+//! Multi-resolution excess power: the Q-transform tiling.
