@@ -1,1 +1,4 @@
+// Integration tests, one module per topic.
 
+// Coupling: tail probabilities against SciPy fixtures.
+mod coupling_stats;
