@@ -2,3 +2,7 @@
 
 // Coupling: tail probabilities against SciPy fixtures.
 mod coupling_stats;
+
+// Coupling: constructed cases (hand-worked grid, planted witness, null
+// distribution, safety).
+mod coupling_cases;
