@@ -84,13 +84,13 @@ fn grid_by_hand_with_common_time_and_overlaps() {
     assert!((r.use_percentage - 50.0).abs() < 1e-12);
 }
 
-const T0: f64 = 1_000_000_000.0;
-const SPAN_S: f64 = 20_000.0;
+pub(crate) const T0: f64 = 1_000_000_000.0;
+pub(crate) const SPAN_S: f64 = 20_000.0;
 
 /// Target triggers uniform in time; a witness copying 70% of them 2 ms
 /// earlier (t_target − t_aux = +2 ms) plus random extras; distractors with
 /// more triggers and no relation. Family 1 = witnessed, family 2 = not.
-fn planted(seed: u64) -> (TargetSet, Vec<AuxChannel>) {
+pub(crate) fn planted(seed: u64) -> (TargetSet, Vec<AuxChannel>) {
     let mut rng = Xoshiro256Plus::seed_from_u64(seed);
     let analysed = SegmentList::single(T0, T0 + SPAN_S);
     let mut targets = Vec::new();
