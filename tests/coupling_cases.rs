@@ -24,11 +24,11 @@ fn aux_at(times_snr: &[(f64, f64)]) -> Vec<AuxTrigger> {
         .collect()
 }
 
-fn get<'a>(
-    rows: &'a [glitchbook::coupling::WitnessStat],
+fn get(
+    rows: &[glitchbook::coupling::WitnessStat],
     rho: f64,
     w: f64,
-) -> &'a glitchbook::coupling::WitnessStat {
+) -> &glitchbook::coupling::WitnessStat {
     rows.iter()
         .find(|r| r.snr_threshold == rho && r.window_s == w)
         .unwrap()
@@ -73,7 +73,7 @@ fn grid_by_hand_with_common_time_and_overlaps() {
     let mu = 4.0 * 4.2 / 90.0;
     assert!((r.expected - mu).abs() < 1e-12);
     // P(N ≥ 3 | μ) = 1 − e^{−μ}(1 + μ + μ²/2) (Poisson cdf, textbook formula).
-    let p = 1.0 - (-mu as f64).exp() * (1.0 + mu + mu * mu / 2.0);
+    let p = 1.0 - (-mu).exp() * (1.0 + mu + mu * mu / 2.0);
     assert!((r.significance - (-p.log10())).abs() < 1e-9);
     // ρ = 8, w = 0.25: aux 20, 20.5, 21 → [19.75,21.25] = 1.5 s, plus
     // [99.55,100) = 0.45 s → 1.95 s; coincident targets 20.3 (0.2 from 20.5)

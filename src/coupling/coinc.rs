@@ -69,11 +69,36 @@ pub(crate) fn merged_windows(times: &[f64], w: f64) -> Vec<Segment> {
 }
 
 /// Vetoed time (∪ windows) ∩ `analysed` \[s\], overlaps counted once.
+/// `times` must be sorted; one linear sweep over windows and segments.
 pub(crate) fn vetoed_seconds(times: &[f64], w: f64, analysed: &SegmentList) -> f64 {
-    merged_windows(times, w)
-        .iter()
-        .map(|s| analysed.overlap_with(s.start, s.end))
-        .sum()
+    let segs = analysed.segments();
+    let mut total = 0.0;
+    let mut j = 0;
+    let mut clip = |start: f64, end: f64, j: &mut usize| {
+        while *j < segs.len() && segs[*j].end <= start {
+            *j += 1;
+        }
+        let mut k = *j;
+        while k < segs.len() && segs[k].start < end {
+            total += segs[k].end.min(end) - segs[k].start.max(start);
+            k += 1;
+        }
+    };
+    let mut cur: Option<(f64, f64)> = None;
+    for &t in times {
+        match cur {
+            Some((s, e)) if t - w <= e => cur = Some((s, t + w)),
+            Some((s, e)) => {
+                clip(s, e, &mut j);
+                cur = Some((t - w, t + w));
+            }
+            None => cur = Some((t - w, t + w)),
+        }
+    }
+    if let Some((s, e)) = cur {
+        clip(s, e, &mut j);
+    }
+    total
 }
 
 /// Veto segments: (∪ windows around `times`) ∩ `analysed`.
@@ -103,7 +128,8 @@ pub(crate) fn times_in(times: &[f64], common: &SegmentList) -> Vec<f64> {
 ///
 /// `sets` are (family id or `None` for all target triggers, sorted target
 /// times); `analysed` is the target analysed time. Returns one
-/// [`WitnessStat`] per (set, threshold, window), or nothing when the common
+/// [`WitnessStat`] per (set, threshold, window) — ordered by threshold (as
+/// given), then window (ascending), then set — or nothing when the common
 /// analysed time is empty.
 pub fn channel_grid(
     sets: &[(Option<i64>, Vec<f64>)],
@@ -122,20 +148,31 @@ pub fn channel_grid(
         .map(|(f, t)| (*f, times_in(t, &common)))
         .collect();
     let mut out = Vec::with_capacity(sets.len() * snr_thresholds.len() * windows_s.len());
+    // Windows in ascending order, so one pass over the distances counts
+    // every window at once (cumulative bucket counts).
+    let mut order: Vec<usize> = (0..windows_s.len()).collect();
+    order.sort_by(|&i, &j| windows_s[i].total_cmp(&windows_s[j]));
+    let sorted_w: Vec<f64> = order.iter().map(|&i| windows_s[i]).collect();
     for &rho in snr_thresholds {
         let a = aux_times_above(aux, rho, &common);
-        // Per set: target → nearest aux, aux → nearest target distances.
-        let dists: Vec<(Vec<f64>, Vec<f64>)> = sets_in
+        // Per set: coincident targets and used aux triggers per window.
+        let counts: Vec<(Vec<u64>, Vec<u64>)> = sets_in
             .iter()
-            .map(|(_, t)| (nearest_distances(t, &a), nearest_distances(&a, t)))
+            .map(|(_, t)| {
+                (
+                    counts_within(&nearest_distances(t, &a), &sorted_w),
+                    counts_within(&nearest_distances(&a, t), &sorted_w),
+                )
+            })
             .collect();
-        for &w in windows_s {
+        for (k, &w_index) in order.iter().enumerate() {
+            let w = windows_s[w_index];
             let vetoed_s = vetoed_seconds(&a, w, &common);
             let deadtime = vetoed_s / analysed_s;
-            for ((family, t), (d_t, d_a)) in sets_in.iter().zip(&dists) {
+            for ((family, t), (c_t, c_a)) in sets_in.iter().zip(&counts) {
                 let n_target = t.len() as u64;
-                let n_coinc = d_t.iter().filter(|&&d| d <= w).count() as u64;
-                let n_aux_used = d_a.iter().filter(|&&d| d <= w).count() as u64;
+                let n_coinc = c_t[k];
+                let n_aux_used = c_a[k];
                 let expected = n_target as f64 * deadtime;
                 let efficiency = ratio(n_coinc as f64, n_target as f64);
                 out.push(WitnessStat {
@@ -161,6 +198,23 @@ pub fn channel_grid(
         }
     }
     out
+}
+
+/// For ascending windows `w_k`, how many distances are `≤ w_k`, for every
+/// k in one pass.
+pub(crate) fn counts_within(dists: &[f64], sorted_w: &[f64]) -> Vec<u64> {
+    let mut bucket = vec![0u64; sorted_w.len() + 1];
+    for &d in dists {
+        bucket[sorted_w.partition_point(|&w| w < d)] += 1;
+    }
+    let mut acc = 0;
+    bucket[..sorted_w.len()]
+        .iter()
+        .map(|&b| {
+            acc += b;
+            acc
+        })
+        .collect()
 }
 
 /// `a / b`, or 0 when `b` is 0 (no trials: nothing measured).
@@ -191,6 +245,10 @@ mod tests {
         let part = SegmentList::single(1.5, 19.5);
         assert!((vetoed_seconds(&a, 1.0, &part) - 3.5).abs() < 1e-12);
         assert!((veto_segments(&a, 1.0, &part).total() - 3.5).abs() < 1e-12);
+        assert_eq!(
+            counts_within(&[0.0, 0.3, 0.3, 2.0, 9.0], &[0.25, 0.3, 1.0]),
+            vec![1, 3, 3]
+        );
         let off = nearest_offsets(&[4.9, 21.0], &a);
         assert_eq!(off[0].unwrap().0, 1);
         assert!((off[1].unwrap().1 - 1.0).abs() < 1e-12);
