@@ -192,18 +192,26 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
             .collect(),
     };
     let rows = witness_table(&targets, &sets, &aux, &params.grid);
+    // Best row per (set, channel) in one pass, then sorted per set.
+    let mut best_of: std::collections::HashMap<(Option<i64>, i64), &WitnessStat> =
+        std::collections::HashMap::new();
+    for r in &rows {
+        best_of
+            .entry((r.family_id, r.aux_channel_id))
+            .and_modify(|b| {
+                if better(r, b).is_gt() {
+                    *b = r;
+                }
+            })
+            .or_insert(r);
+    }
     let mut best: Vec<WitnessStat> = Vec::new();
     for set in &sets {
-        let mut per_channel: Vec<WitnessStat> = Vec::new();
-        for ch in &aux {
-            if let Some(b) = rows
-                .iter()
-                .filter(|r| r.family_id == *set && r.aux_channel_id == ch.id)
-                .max_by(|a, b| better(a, b))
-            {
-                per_channel.push(b.clone());
-            }
-        }
+        let mut per_channel: Vec<WitnessStat> = best_of
+            .iter()
+            .filter(|((f, _), _)| f == set)
+            .map(|(_, r)| (*r).clone())
+            .collect();
         per_channel.sort_by(|a, b| better(b, a));
         best.extend(per_channel);
     }

@@ -255,3 +255,74 @@ pub fn best_per_set<'a>(rows: &'a [WitnessStat], families: &[Option<i64>]) -> Ve
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn grid_check_names_the_field() {
+        assert!(Grid::default().check().is_ok());
+        let g = Grid {
+            windows_s: vec![0.1, 0.0],
+            ..Grid::default()
+        };
+        assert!(g.check().unwrap_err().to_string().starts_with("windows_s"));
+        let g = Grid {
+            snr_thresholds: vec![f64::NAN],
+            ..Grid::default()
+        };
+        assert!(g
+            .check()
+            .unwrap_err()
+            .to_string()
+            .starts_with("snr_thresholds"));
+        let p = veto::VetoParams {
+            safety_p: 0.0,
+            ..veto::VetoParams::default()
+        };
+        assert!(p.check().unwrap_err().to_string().starts_with("safety_p"));
+        let e = "yaml".parse::<output::Format>().unwrap_err().to_string();
+        assert!(e.contains("--format"), "{e}");
+    }
+
+    // Touching windows merge (counted once), nested analysed segments clip:
+    // aux at 1 and 3 with w = 1 → [0,2] ∪ [2,4] = [0,4]; analysed [0.5,1.5)
+    // ∪ [1.8,10) → 1.0 + 2.2 = 3.2 s (worked by hand).
+    #[test]
+    fn touching_windows_and_split_analysed_time() {
+        let analysed = SegmentList::from_segments(vec![
+            crate::segments::Segment::new(0.5, 1.5),
+            crate::segments::Segment::new(1.8, 10.0),
+        ]);
+        let v = coinc::veto_segments(&[1.0, 3.0], 1.0, &analysed);
+        assert!((v.total() - 3.2).abs() < 1e-12);
+        assert_eq!(v.segments().len(), 2);
+        let grid = coinc::channel_grid(
+            &[(None, vec![])],
+            &AuxChannel::new(
+                1,
+                "a",
+                vec![
+                    AuxTrigger {
+                        t_peak: 1.0,
+                        snr: 9.0,
+                        f_peak: 1.0,
+                    },
+                    AuxTrigger {
+                        t_peak: 3.0,
+                        snr: 9.0,
+                        f_peak: 1.0,
+                    },
+                ],
+                SegmentList::single(0.0, 10.0),
+            ),
+            &analysed,
+            &[8.0],
+            &[1.0],
+        );
+        assert!((grid[0].vetoed_s - 3.2).abs() < 1e-12);
+        // No targets: efficiency 0, significance 0 (n = 0), not NaN.
+        assert_eq!((grid[0].efficiency, grid[0].significance), (0.0, 0.0));
+    }
+}
