@@ -237,3 +237,31 @@ fn empty_catalogue_is_a_clear_error() {
         .to_string();
     assert!(err.contains("no target channel"), "{err}");
 }
+
+#[test]
+fn aux_without_common_time_is_warned_and_skipped() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut conn = open(&dir.path().join("c.db")).unwrap();
+    add_channel(
+        &conn,
+        "X1:TGT",
+        "target",
+        &[(0.0, 100.0)],
+        &[(50.0, 10.0, 100.0)],
+    );
+    add_channel(
+        &conn,
+        "X1:LATE-AUX",
+        "aux",
+        &[(200.0, 300.0)],
+        &[(250.0, 20.0, 10.0)],
+    );
+    let rep = run_witnesses(&mut conn, &WitnessParams::default()).unwrap();
+    assert!(rep.rows.is_empty());
+    assert_eq!(rep.warnings.len(), 1);
+    assert!(
+        rep.warnings[0].contains("X1:LATE-AUX"),
+        "{:?}",
+        rep.warnings
+    );
+}

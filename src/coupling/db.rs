@@ -101,6 +101,9 @@ pub fn load_targets(conn: &Connection, min_snr: Option<f64>) -> Result<TargetSet
     for id in &ids {
         analysed = analysed.union(&channel_analysed(conn, *id)?);
     }
+    if analysed.is_empty() {
+        bail!("target channel has no analysed segments in the catalogue: nothing to compare");
+    }
     let sql = if table_exists(conn, "family_members")? {
         "SELECT t.t_peak_ns, t.snr, t.f_peak_hz, fm.family_id FROM triggers t \
          JOIN channels c ON t.channel_id = c.id \
@@ -157,6 +160,24 @@ pub fn load_aux(conn: &Connection) -> Result<Vec<AuxChannel>> {
     Ok(out)
 }
 
+/// Warnings for missing coverage: no aux channel, or aux channels with no
+/// analysed time in common with the target (they give no rows).
+pub fn coverage_warnings(targets: &TargetSet, aux: &[AuxChannel]) -> Vec<String> {
+    let mut warnings = Vec::new();
+    if aux.is_empty() {
+        warnings.push("catalogue has no aux channel: nothing to compare with".to_string());
+    }
+    for ch in aux {
+        if targets.analysed.intersection(&ch.analysed).total() <= 0.0 {
+            warnings.push(format!(
+                "aux channel {}: no analysed time in common with the target; skipped",
+                ch.name
+            ));
+        }
+    }
+    warnings
+}
+
 fn insert_run(tx: &rusqlite::Transaction, kind: &str, params_json: &str) -> Result<i64> {
     tx.execute(
         "INSERT INTO witness_runs (kind, created_utc, params_json, tool_version) \
@@ -176,10 +197,7 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     params.grid.check()?;
     let targets = load_targets(conn, params.target_min_snr)?;
     let aux = load_aux(conn)?;
-    let mut warnings = Vec::new();
-    if aux.is_empty() {
-        warnings.push("catalogue has no aux channel: nothing to compare with".to_string());
-    }
+    let mut warnings = coverage_warnings(&targets, &aux);
     let sets: Vec<Option<i64>> = match params.family {
         Some(f) => {
             if !targets.family_ids().contains(&f) {
@@ -312,6 +330,9 @@ pub fn run_vetoes(
     let targets = load_targets(conn, params.target_min_snr)?;
     let aux = load_aux(conn)?;
     let mut report = veto_report(&targets, &aux, params, injections);
+    let mut warnings = coverage_warnings(&targets, &aux);
+    warnings.append(&mut report.warnings);
+    report.warnings = warnings;
     let tx = conn.transaction()?;
     let run_id = insert_run(&tx, "vetoes", &serde_json::to_string(params)?)?;
     {

@@ -7,6 +7,22 @@
 //! Definitions of every figure are in [`coinc`]; tail probabilities in
 //! [`stats`]; the round-based selection (Smith et al. 2011, Class. Quantum
 //! Grav. 28, 235005) in [`veto`]. Times are GPS seconds, frequencies Hz.
+//!
+//! # CLI wiring (for the `witnesses` and `vetoes` commands)
+//! - `witnesses [--family ID] [--format table|json|csv]` →
+//!   [`run_witnesses`]`(&mut conn, &WitnessParams { family, .. })`, then
+//!   [`output::write_witnesses`]`(&report, format, full, &mut stdout)`
+//!   (`full = false` lists the best threshold/window per channel; `true`
+//!   the whole grid). Print `report.warnings` to stderr.
+//! - `vetoes [--injections CSV] [--out DIR] [--min-significance X]
+//!   [--safety-p P] [--format ...]` → read injection times, then
+//!   [`run_vetoes`]`(&mut conn, &VetoParams { min_significance, safety_p, .. },
+//!   injections.as_deref())`, [`output::write_vetoes`], and with `--out`
+//!   [`output::write_veto_segments`]`(&report, dir)`.
+//!
+//! A note on trials: the best of many (channel, threshold, window)
+//! combinations is chosen, so a significance of 2–3 for an unrelated channel
+//! is ordinary; the stop value 5 of the veto rounds allows for that.
 
 pub mod coinc;
 pub mod db;
@@ -20,9 +36,10 @@ use anyhow::{bail, Result};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-pub use db::{run_vetoes, run_witnesses};
+pub use db::{run_vetoes, run_witnesses, WitnessParams, WitnessReport};
 pub use lag::LagSummary;
-pub use veto::{VetoReport, VetoRound};
+pub use output::{write_veto_segments, write_vetoes, write_witnesses, Format};
+pub use veto::{VetoParams, VetoReport, VetoRound};
 
 /// Caution carried by every veto output (table footer, JSON `caution`
 /// field, segment-file metadata).
