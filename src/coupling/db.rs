@@ -197,7 +197,7 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     params.grid.check()?;
     let targets = load_targets(conn, params.target_min_snr)?;
     let aux = load_aux(conn)?;
-    let mut warnings = coverage_warnings(&targets, &aux);
+    let warnings = coverage_warnings(&targets, &aux);
     let sets: Vec<Option<i64>> = match params.family {
         Some(f) => {
             if !targets.family_ids().contains(&f) {
