@@ -7,6 +7,7 @@
 
 pub mod catalogue;
 pub mod condition;
+pub mod coupling;
 pub mod io;
 pub mod scan;
 pub mod segments;

@@ -1,3 +1,15 @@
 //! Integration tests: one target, one module per area (see each module's header).
 
+// Scan: conditioning, Q tiling and triggers against SciPy, Chatterji et al.
+// (2004) and analytic matched-filter SNRs.
 mod scan_reference;
+
+// Coupling: tail probabilities against SciPy fixtures.
+mod coupling_stats;
+
+// Coupling: constructed cases (hand-worked grid, planted witness, null
+// distribution, safety).
+mod coupling_cases;
+
+// Coupling: catalogue round trip, writers and segment files.
+mod coupling_catalogue;
