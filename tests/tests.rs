@@ -1,1 +1,2 @@
-
+mod rates_blocks;
+mod rates_limits;
