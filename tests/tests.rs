@@ -1,2 +1,3 @@
 mod rates_blocks;
+pub mod rates_catalogue;
 mod rates_limits;
