@@ -299,11 +299,8 @@ fn csv_and_json_round_trip() {
     let json: serde_json::Value = serde_json::from_str(&render(&r, Format::Json).unwrap()).unwrap();
     assert_eq!(json["series"].as_array().unwrap().len(), 4);
     assert_eq!(json["series"][2]["family_id"], 2);
-    assert!(
-        json["series"][2]["change_times_gps"]
-            .as_array()
-            .unwrap()
-            .len()
-            >= 1
-    );
+    assert!(!json["series"][2]["change_times_gps"]
+        .as_array()
+        .unwrap()
+        .is_empty());
 }

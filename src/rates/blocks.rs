@@ -202,7 +202,8 @@ pub fn cells_blocks(
         let threshold = a_max - ncp_prior;
         let mut k = 0;
         candidates.retain(|_| {
-            let keep = !(a_r[k] < threshold);
+            // keep unless strictly behind (NaN compares false and is kept)
+            let keep = a_r[k].partial_cmp(&threshold) != Some(std::cmp::Ordering::Less);
             k += 1;
             keep
         });

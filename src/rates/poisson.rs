@@ -52,7 +52,7 @@ pub fn gamma_quantile(a: f64, p: f64) -> f64 {
         // leaves the bracket.
         let pdf = ((a - 1.0) * x.ln() - x - ln_ga).exp();
         let mut next = x - f / pdf;
-        if !(next > lo && next < hi) || !next.is_finite() {
+        if !(next > lo && next < hi && next.is_finite()) {
             next = 0.5 * (lo + hi);
         }
         if (next - x).abs() <= 1e-15 * x.abs().max(1e-300) || hi - lo <= 1e-15 * hi {
