@@ -54,6 +54,10 @@ fn build(dir: &Path) -> PathBuf {
     };
     let data = gather(&c, &p).unwrap();
     assert!(data.has_coupling);
+    // For looking at the pages by hand: GLITCHBOOK_KEEP_REPORT=DIR.
+    if let Ok(keep) = std::env::var("GLITCHBOOK_KEEP_REPORT") {
+        write_report(&data, Path::new(&keep), &thumbs).unwrap();
+    }
     let out = dir.join("site");
     write_report(&data, &out, &thumbs).unwrap()
 }

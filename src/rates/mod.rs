@@ -30,7 +30,7 @@ use serde::Serialize;
 use std::collections::BTreeMap;
 
 /// Parameters of a rates query. Defaults: one-hour bins, whole catalogue,
-/// no SNR cut, CL 0.9, p0 0.05, low-live flag below half a bin, at most 4000
+/// no SNR cut, CL 0.9, p0 0.05, low-live flag below half a bin, at most 2000
 /// cells per Bayesian-blocks fit.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RateParams {
@@ -69,7 +69,7 @@ impl Default for RateParams {
             cl: 0.9,
             p0: 0.05,
             min_live_fraction: 0.5,
-            max_cells: 4000,
+            max_cells: 2000,
         }
     }
 }
@@ -202,6 +202,10 @@ const HOUR_S: f64 = 3600.0;
 /// (t_peak \[GPS s\], family id), sorted by time. Family id is `None` when
 /// unassigned or when the catalogue has no family tables.
 ///
+/// For a catalogue on disk the span is read in parallel time slices, one
+/// read-only connection per worker (SQLite row stepping dominates the cost
+/// on large catalogues; measured in benches/rates.rs).
+///
 /// # Errors
 /// On SQLite errors.
 pub fn load_events(
@@ -212,25 +216,78 @@ pub fn load_events(
     min_snr: f64,
     with_families: bool,
 ) -> Result<Vec<(f64, Option<i64>)>> {
-    let sql = if with_families {
-        "SELECT t.t_peak_ns, m.family_id FROM triggers t \
-         LEFT JOIN family_members m ON m.trigger_id = t.id \
-         WHERE t.channel_id = ?1 AND t.t_peak_ns >= ?2 AND t.t_peak_ns < ?3 AND t.snr >= ?4 \
-         ORDER BY t.t_peak_ns"
-    } else {
-        "SELECT t.t_peak_ns, NULL FROM triggers t \
-         WHERE t.channel_id = ?1 AND t.t_peak_ns >= ?2 AND t.t_peak_ns < ?3 AND t.snr >= ?4 \
-         ORDER BY t.t_peak_ns"
+    let (ns0, ns1) = (to_ns(since_gps), to_ns(until_gps));
+    let workers = rayon::current_num_threads().clamp(1, 8) as i64;
+    let path = conn.path().filter(|p| !p.is_empty()).map(str::to_string);
+    let mut rows: Vec<(i64, Option<i64>)> = match path {
+        Some(path) if workers > 1 && ns1 > ns0 => {
+            let step = (ns1 - ns0) / workers + 1;
+            let parts = (0..workers)
+                .into_par_iter()
+                .map(|k| {
+                    let a = ns0 + k * step;
+                    let b = (a + step).min(ns1);
+                    if a >= b {
+                        return Ok(Vec::new());
+                    }
+                    let c = Connection::open_with_flags(
+                        &path,
+                        rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY
+                            | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
+                    )
+                    .with_context(|| format!("opening {path} for reading"))?;
+                    c.busy_timeout(std::time::Duration::from_secs(60))?;
+                    load_chunk(&c, channel_id, a, b, min_snr, with_families)
+                })
+                .collect::<Result<Vec<_>>>()?;
+            parts.concat()
+        }
+        _ => load_chunk(conn, channel_id, ns0, ns1, min_snr, with_families)?,
     };
-    let mut stmt = conn.prepare(sql)?;
-    let rows = stmt
-        .query_map(
-            params![channel_id, to_ns(since_gps), to_ns(until_gps), min_snr],
-            |r| Ok((from_ns(r.get(0)?), r.get::<_, Option<i64>>(1)?)),
-        )?
+    rows.sort_by_key(|r| r.0);
+    Ok(rows.into_iter().map(|(ns, f)| (from_ns(ns), f)).collect())
+}
+
+/// One time slice `[ns0, ns1)`: two plain scans merged on trigger id (faster
+/// than a join through the time index).
+fn load_chunk(
+    conn: &Connection,
+    channel_id: i64,
+    ns0: i64,
+    ns1: i64,
+    min_snr: f64,
+    with_families: bool,
+) -> Result<Vec<(i64, Option<i64>)>> {
+    let mut stmt = conn.prepare(
+        "SELECT id, t_peak_ns FROM triggers \
+         WHERE channel_id = ?1 AND t_peak_ns >= ?2 AND t_peak_ns < ?3 AND snr >= ?4",
+    )?;
+    let mut trig = stmt
+        .query_map(params![channel_id, ns0, ns1, min_snr], |r| {
+            Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?))
+        })?
         .collect::<rusqlite::Result<Vec<_>>>()
         .context("reading triggers")?;
-    Ok(rows)
+    trig.sort_unstable_by_key(|x| x.0);
+    let mut fam: Vec<Option<i64>> = vec![None; trig.len()];
+    if with_families && !trig.is_empty() {
+        let mut stmt = conn.prepare(
+            "SELECT trigger_id, family_id FROM family_members \
+             WHERE family_id IS NOT NULL AND trigger_id >= ?1 AND trigger_id <= ?2 ORDER BY trigger_id",
+        )?;
+        let mut rows = stmt.query(params![trig[0].0, trig[trig.len() - 1].0])?;
+        let mut k = 0;
+        while let Some(r) = rows.next().context("reading family_members")? {
+            let (id, f): (i64, i64) = (r.get(0)?, r.get(1)?);
+            while k < trig.len() && trig[k].0 < id {
+                k += 1;
+            }
+            if k < trig.len() && trig[k].0 == id {
+                fam[k] = Some(f);
+            }
+        }
+    }
+    Ok(trig.iter().zip(fam).map(|(&(_, ns), f)| (ns, f)).collect())
 }
 
 /// Families known to the catalogue: id → label (all statuses).
