@@ -304,3 +304,33 @@ fn csv_and_json_round_trip() {
         .unwrap()
         .is_empty());
 }
+
+/// Live time is the union over scans: a re-scan that overlaps the first one
+/// adds only its new time, and any interval can be asked for.
+#[test]
+fn live_time_is_union_over_scans() {
+    use glitchbook::rates::live::{live_seconds, live_time};
+    let dir = tempfile::tempdir().unwrap();
+    let c = conn(&demo_catalogue(dir.path(), false));
+    let before = live_time(&c, 1).unwrap().total();
+    c.execute(
+        "INSERT INTO scans(id, channel_id, kind, run_key, source_path, input_checksum, params_json, tool_version, created_utc, span_start_ns, span_end_ns, n_triggers)
+         VALUES (9, 1, 'import', 'k9', 'x.csv', 'y', '{}', 'test', '2026-01-01T00:00:00Z', 0, 1, 0)",
+        [],
+    )
+    .unwrap();
+    // [20000, 31000): overlaps live [.., 30000) and fills 1000 s of the gap.
+    c.execute(
+        "INSERT INTO analysed_segments VALUES (9, ?1, ?2)",
+        params![to_ns(T0 + 20_000.0), to_ns(T0 + 31_000.0)],
+    )
+    .unwrap();
+    let after = live_time(&c, 1).unwrap().total();
+    assert!(
+        (after - before - 1000.0).abs() < 1e-6,
+        "{before} -> {after}"
+    );
+    let gap_part = live_seconds(&c, 1, T0 + GAP.0, T0 + GAP.1).unwrap();
+    assert!((gap_part - 1000.0).abs() < 1e-6);
+    assert_eq!(live_seconds(&c, 2, T0 + GAP.0, T0 + GAP.1).unwrap(), 0.0);
+}

@@ -252,3 +252,73 @@ pub fn bin_cells(t_sorted: &[f64], origin: f64, cell_s: f64) -> (Vec<f64>, Vec<f
     }
     (ut, x)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::segments::Segment;
+    use rand::{Rng, SeedableRng};
+
+    /// Astropy's O(N²) recursion without pruning (the oracle for the PELT
+    /// pruning), with exposure given as `block_length`.
+    fn naive(x: &[f64], block_length: &[f64], ncp_prior: f64) -> Vec<usize> {
+        let n = x.len();
+        let (mut best, mut last) = (vec![0.0; n], vec![0usize; n]);
+        for r in 0..n {
+            let (mut a_max, mut i_max) = (f64::NEG_INFINITY, 0);
+            for i in 0..=r {
+                let n_k: f64 = x[i..=r].iter().sum();
+                let t_k = block_length[i] - block_length[r + 1];
+                let mut a = n_k * (n_k / t_k).ln() - ncp_prior;
+                if i > 0 {
+                    a += best[i - 1];
+                }
+                if i == 0 || a > a_max {
+                    a_max = a;
+                    i_max = i;
+                }
+            }
+            best[r] = a_max;
+            last[r] = i_max;
+        }
+        let mut cps = vec![n];
+        let mut ind = n;
+        while ind > 0 {
+            ind = last[ind - 1];
+            cps.push(ind);
+        }
+        cps.reverse();
+        cps
+    }
+
+    #[test]
+    fn pruning_matches_unpruned_recursion_with_gaps() {
+        let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(3);
+        for case in 0..40 {
+            // piecewise rates with a dead gap
+            let mut t: Vec<f64> = Vec::new();
+            let n1 = rng.gen_range(5..80);
+            let n2 = rng.gen_range(5..80);
+            t.extend((0..n1).map(|_| rng.gen::<f64>() * 400.0));
+            t.extend(
+                (0..n2).map(|_| 600.0 + rng.gen::<f64>() * (50.0 + 300.0 * (case % 3) as f64)),
+            );
+            let live = SegmentList::from_segments(vec![
+                Segment::new(0.0, 400.0),
+                Segment::new(600.0, 2000.0),
+            ]);
+            let (ut, x) = cells(&t);
+            let fit = cells_blocks(&ut, &x, 0.05, Some((0.0, 2000.0)), Some(&live)).unwrap();
+            let mut edges = vec![0.0];
+            edges.extend(ut.windows(2).map(|w| 0.5 * (w[0] + w[1])));
+            edges.push(2000.0);
+            let bl: Vec<f64> = edges
+                .iter()
+                .map(|&e| live.overlap_with(e, 2000.0))
+                .collect();
+            let cps = naive(&x, &bl, ncp_prior_p0(0.05, ut.len()));
+            let want: Vec<f64> = cps.iter().map(|&c| edges[c]).collect();
+            assert_eq!(fit.edges, want, "case {case}");
+        }
+    }
+}

@@ -94,3 +94,16 @@ pub fn table_exists(conn: &Connection, table: &str) -> Result<bool> {
     )?;
     Ok(n > 0)
 }
+
+/// Live time of channel `channel_id` inside `[start, end)` \[s\].
+///
+/// # Errors
+/// On SQLite errors.
+pub fn live_seconds(
+    conn: &Connection,
+    channel_id: i64,
+    start_gps: f64,
+    end_gps: f64,
+) -> Result<f64> {
+    Ok(live_time(conn, channel_id)?.overlap_with(start_gps, end_gps))
+}
