@@ -30,7 +30,7 @@ body{font-family:Georgia,'DejaVu Serif',serif;margin:0;background:#f7f5f0;color:
 header{background:#23314a;color:#f7f5f0;padding:18px 28px}
 header h1{margin:0;font-size:26px;letter-spacing:1px}
 main{padding:10px 28px 40px}
-section{background:#fff;border:1px solid #d8d3c8;border-radius:6px;margin:18px 0;padding:6px 18px 14px}
+section{background:#fff;border:1px solid #d8d3c8;border-radius:6px;margin:18px 0;padding:6px 18px 14px;overflow-x:auto}
 h2{color:#23314a;border-bottom:2px solid #e3a857;padding-bottom:4px}
 table{border-collapse:collapse;font-size:13px;margin:8px 0}
 th,td{border:1px solid #d8d3c8;padding:3px 8px;text-align:right}
