@@ -204,7 +204,9 @@ const HOUR_S: f64 = 3600.0;
 ///
 /// For a catalogue on disk the span is read in parallel time slices, one
 /// read-only connection per worker (SQLite row stepping dominates the cost
-/// on large catalogues; measured in benches/rates.rs).
+/// on large catalogues; measured in benches/rates.rs). Those connections see
+/// committed data only: do not call this inside an uncommitted write
+/// transaction on `conn`.
 ///
 /// # Errors
 /// On SQLite errors.
