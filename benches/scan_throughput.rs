@@ -1,1 +1,82 @@
-fn main() {}
+//! Scan throughput on one hour of 4096 Hz data with `--fmin 16 --fmax 1024
+//! --qmin 4 --qmax 64`: single-threaded and with all cores, as "× real
+//! time", against the plan's FFTs alone (same blocks, same row FFTs).
+//!
+//! Run: `cargo bench --bench scan_throughput` (set GLITCHBOOK_BENCH_SECONDS
+//! to change the span, default 3600).
+
+use glitchbook::scan::{resolve_params, scan_source, InMemory, ScanParams};
+use glitchbook::tf::{QPlan, Tiling};
+use rand::SeedableRng;
+use rand_distr::{Distribution, StandardNormal};
+use std::time::Instant;
+
+fn main() {
+    let secs: f64 = std::env::var("GLITCHBOOK_BENCH_SECONDS")
+        .ok()
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(3600.0);
+    let fs = 4096.0;
+    let n = (fs * secs) as usize;
+    let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(1);
+    let data: Vec<f64> = (0..n)
+        .map(|_| {
+            let z: f64 = StandardNormal.sample(&mut rng);
+            1e-21 * z
+        })
+        .collect();
+    let src = InMemory { data, rate_hz: fs, start_gps: 1_400_000_000.0 };
+    let params = ScanParams {
+        fmin: Some(16.0),
+        fmax: Some(1024.0),
+        qmin: 4.0,
+        qmax: 64.0,
+        ..ScanParams::default()
+    };
+    let rp = resolve_params(&params, fs, None, None).unwrap();
+    println!(
+        "scan throughput: {secs} s of {fs} Hz, fmin 16, fmax 1024, Q 4-64, block {} s, pad {} s",
+        rp.block_s, rp.pad_s
+    );
+
+    // FFT-only baseline: the plan's row inverse FFTs for as many blocks as
+    // the scan processes, single-threaded.
+    let block_n = (rp.block_s * fs) as usize;
+    let step = block_n - 2 * (rp.pad_s * fs) as usize;
+    let n_blocks = (n - block_n).div_ceil(step) + 1;
+    let tiling = Tiling { fmin: 16.0, fmax: 1024.0, qmin: 4.0, qmax: 64.0, mismatch: 0.2 };
+    let plan = QPlan::new(fs, block_n, &tiling, (8.0, 14.4), &mut rustfft::FftPlanner::new()).unwrap();
+    let mut ws = plan.workspace();
+    let t = Instant::now();
+    for _ in 0..n_blocks {
+        plan.ffts_only(&mut ws);
+    }
+    let fft_s = t.elapsed().as_secs_f64();
+    println!(
+        "  FFT-only baseline (1 thread): {n_blocks} blocks x {} tiles: {fft_s:.2} s = {:.0}x real time",
+        plan.tiles_per_block(),
+        secs / fft_s
+    );
+
+    let run = |threads: usize| -> (f64, usize) {
+        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+        pool.install(|| {
+            let t = Instant::now();
+            let (_, _, trig, _) = scan_source(&src, &params, (None, None), None, &|_| {}).unwrap();
+            (t.elapsed().as_secs_f64(), trig.len())
+        })
+    };
+    let (t1, n1) = run(1);
+    println!(
+        "  scan, 1 thread: {t1:.2} s = {:.0}x real time ({n1} triggers); total / FFT-only = {:.2}",
+        secs / t1,
+        t1 / fft_s
+    );
+    let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let (tn, _) = run(cores);
+    println!(
+        "  scan, {cores} threads: {tn:.2} s = {:.0}x real time; speed-up {:.2}x",
+        secs / tn,
+        t1 / tn
+    );
+}

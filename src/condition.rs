@@ -112,7 +112,7 @@ pub fn welch_median(x: &[f64], fs_hz: f64, nperseg: usize, noverlap: usize) -> R
         .iter_mut()
         .enumerate()
         .map(|(k, vals)| {
-            let one_sided = if k == 0 || (nperseg % 2 == 0 && k == nfreq - 1) {
+            let one_sided = if k == 0 || (nperseg.is_multiple_of(2) && k == nfreq - 1) {
                 1.0
             } else {
                 2.0

@@ -9,6 +9,8 @@ pub mod catalogue;
 pub mod condition;
 pub mod coupling;
 pub mod io;
+pub mod rates;
+pub mod report;
 pub mod scan;
 pub mod segments;
 pub mod tf;

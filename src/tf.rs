@@ -106,6 +106,52 @@ pub struct Row {
     ifft: Arc<dyn Fft<f32>>,
 }
 
+impl Row {
+    /// Plan the row at `f_hz` of quality `q` for blocks of `n` samples at
+    /// `fs_hz`, with tiles `step Q / (2π f)` apart at most. None when the
+    /// window holds no bin or the high-pass removes it all.
+    pub fn new(
+        f_hz: f64,
+        q: f64,
+        fs_hz: f64,
+        n: usize,
+        step: f64,
+        highpass_hz: (f64, f64),
+        planner: &mut FftPlanner<f32>,
+    ) -> Option<Row> {
+        let t_block = n as f64 / fs_hz;
+        let nbins = n / 2 + 1;
+        let half_width_hz = BISQUARE_HALF_WIDTH * f_hz / q;
+        let lo = ((f_hz - half_width_hz) * t_block).ceil().max(1.0) as usize;
+        let hi = (((f_hz + half_width_hz) * t_block).floor() as usize).min(nbins - 1);
+        if hi < lo {
+            return None;
+        }
+        let mut window = Vec::with_capacity(hi - lo + 1);
+        let mut norm = 0.0f64;
+        for k in lo..=hi {
+            let nu = (k as f64 / t_block - f_hz) / half_width_hz;
+            let w = (1.0 - nu * nu).max(0.0).powi(2);
+            let g = highpass_gain(k as f64 / t_block, highpass_hz.0, highpass_hz.1);
+            norm += w * w * g * g;
+            window.push(w as f32);
+        }
+        if norm <= 0.0 {
+            return None;
+        }
+        let dtau = step * q / (2.0 * std::f64::consts::PI * f_hz);
+        let n_t = ((t_block / dtau).ceil() as usize).max(window.len()).next_power_of_two();
+        Some(Row {
+            f_hz,
+            bin_lo: lo,
+            bin_center: (f_hz * t_block).round() as usize,
+            window,
+            n_t,
+            ifft: planner.plan_fft_inverse(n_t),
+        })
+    }
+}
+
 /// One Q plane.
 pub struct Plane {
     /// Quality factor.
@@ -176,48 +222,18 @@ impl QPlan {
         highpass_hz: (f64, f64),
         planner: &mut FftPlanner<f32>,
     ) -> Result<QPlan> {
-        let t_block = n as f64 / fs_hz;
         let step = mismatch_step(tiling.mismatch);
-        let nbins = n / 2 + 1;
         let mut planes = Vec::new();
         let (mut max_n_t, mut max_scratch) = (0, 0);
         for q in q_planes(tiling.qmin, tiling.qmax, tiling.mismatch) {
             let fmax = tiling.fmax.min(plane_fmax_limit(q, fs_hz));
             let mut rows = Vec::new();
             for f in row_freqs(q, tiling.fmin, fmax, tiling.mismatch) {
-                let half_width_hz = BISQUARE_HALF_WIDTH * f / q;
-                let lo = ((f - half_width_hz) * t_block).ceil().max(1.0) as usize;
-                let hi = (((f + half_width_hz) * t_block).floor() as usize).min(nbins - 1);
-                if hi < lo {
-                    continue;
+                if let Some(row) = Row::new(f, q, fs_hz, n, step, highpass_hz, planner) {
+                    max_n_t = max_n_t.max(row.n_t);
+                    max_scratch = max_scratch.max(row.ifft.get_inplace_scratch_len());
+                    rows.push(row);
                 }
-                let mut window = Vec::with_capacity(hi - lo + 1);
-                let mut norm = 0.0f64;
-                for k in lo..=hi {
-                    let nu = (k as f64 / t_block - f) / half_width_hz;
-                    let w = (1.0 - nu * nu).max(0.0).powi(2);
-                    let g = highpass_gain(k as f64 / t_block, highpass_hz.0, highpass_hz.1);
-                    norm += w * w * g * g;
-                    window.push(w as f32);
-                }
-                if norm <= 0.0 {
-                    continue;
-                }
-                let dtau = step * q / (2.0 * std::f64::consts::PI * f);
-                let n_t = ((t_block / dtau).ceil() as usize)
-                    .max(window.len())
-                    .next_power_of_two();
-                let ifft = planner.plan_fft_inverse(n_t);
-                max_n_t = max_n_t.max(n_t);
-                max_scratch = max_scratch.max(ifft.get_inplace_scratch_len());
-                rows.push(Row {
-                    f_hz: f,
-                    bin_lo: lo,
-                    bin_center: (f * t_block).round() as usize,
-                    window,
-                    n_t,
-                    ifft,
-                });
             }
             if !rows.is_empty() {
                 planes.push(Plane { q, rows });

@@ -13,3 +13,10 @@ mod coupling_cases;
 
 // Coupling: catalogue round trip, writers and segment files.
 mod coupling_catalogue;
+
+// Rates: Poisson limits (Gehrels 1986, SciPy), Bayesian blocks (Astropy),
+// catalogue rates; report: HTML content and a headless-browser check.
+mod rates_blocks;
+pub mod rates_catalogue;
+mod rates_limits;
+mod report_html;

@@ -1,0 +1,480 @@
+//! Gathering the report's content from the catalogue.
+
+use crate::catalogue::from_ns;
+use crate::rates::live::{live_time, table_exists};
+use crate::rates::{rates, RateParams, RateReport};
+use anyhow::{Context, Result};
+use rusqlite::{params, Connection};
+use serde::Serialize;
+use std::collections::BTreeMap;
+
+/// What the report covers. Defaults: whole catalogue, one-hour bins, CL 0.9,
+/// p0 0.05, 5 examples per family, 200 novel triggers, 20 000 scatter points.
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportParams {
+    /// How the catalogue is named on the pages (usually its path).
+    pub catalogue: String,
+    /// Span start \[GPS s\] (`None` = start of live time).
+    pub since_gps: Option<f64>,
+    /// Span end \[GPS s\] (`None` = end of live time).
+    pub until_gps: Option<f64>,
+    /// Only triggers with SNR ≥ this.
+    pub min_snr: f64,
+    /// Rate bin width \[s\].
+    pub bin_s: f64,
+    /// Confidence level of rate limits.
+    pub cl: f64,
+    /// Bayesian-blocks false-positive probability.
+    pub p0: f64,
+    /// Example (loudest) triggers listed per family.
+    pub max_examples: usize,
+    /// Novel triggers listed (loudest first).
+    pub max_novel: usize,
+    /// Points in the time-frequency scatter (evenly thinned above this).
+    pub max_tf_points: usize,
+}
+
+impl Default for ReportParams {
+    fn default() -> Self {
+        ReportParams {
+            catalogue: String::new(),
+            since_gps: None,
+            until_gps: None,
+            min_snr: 0.0,
+            bin_s: 3600.0,
+            cl: 0.9,
+            p0: 0.05,
+            max_examples: 5,
+            max_novel: 200,
+            max_tf_points: 20_000,
+        }
+    }
+}
+
+/// A trigger listed in a table.
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct ExampleTrigger {
+    /// `triggers.id`.
+    pub id: i64,
+    /// Peak time \[GPS s\].
+    pub t_gps: f64,
+    /// Peak frequency \[Hz\].
+    pub f_hz: f64,
+    /// SNR.
+    pub snr: f64,
+    /// Q (if known).
+    pub q: Option<f64>,
+}
+
+/// One family.
+#[derive(Debug, Clone, Serialize)]
+pub struct FamilyInfo {
+    /// Family id.
+    pub id: i64,
+    /// Human label (may be absent).
+    pub label: Option<String>,
+    /// Human note.
+    pub note: Option<String>,
+    /// active / merged / retired.
+    pub status: String,
+    /// Loudest members in the span.
+    pub examples: Vec<ExampleTrigger>,
+    /// SNRs of members in the span, ascending.
+    pub snr_sorted: Vec<f64>,
+}
+
+/// One witness statistic row (latest witness run).
+#[derive(Debug, Clone, Serialize)]
+pub struct WitnessRow {
+    /// Family (`None` = all target triggers).
+    pub family_id: Option<i64>,
+    /// Aux channel name.
+    pub aux_channel: String,
+    /// Aux SNR threshold.
+    pub snr_threshold: f64,
+    /// Half window \[s\].
+    pub window_s: f64,
+    /// Target triggers.
+    pub n_target: i64,
+    /// Coincident target triggers.
+    pub n_coinc: i64,
+    /// Expected coincidences by chance.
+    pub expected: f64,
+    /// −log10 Poisson probability.
+    pub significance: f64,
+    /// Fraction of target triggers vetoed.
+    pub efficiency: f64,
+    /// Fraction of analysed time vetoed.
+    pub deadtime: f64,
+    /// Fraction of aux triggers with a coincidence.
+    pub use_percentage: f64,
+}
+
+/// Lag histogram of one (family, aux channel) pair.
+#[derive(Debug, Clone, Serialize)]
+pub struct LagRow {
+    /// Family (`None` = all).
+    pub family_id: Option<i64>,
+    /// Aux channel name.
+    pub aux_channel: String,
+    /// Bin edges \[s\].
+    pub edges_s: Vec<f64>,
+    /// Counts per bin.
+    pub counts: Vec<f64>,
+    /// Frequency relation, as recorded.
+    pub freq_relation: Option<String>,
+}
+
+/// One veto round (latest witness run).
+#[derive(Debug, Clone, Serialize)]
+pub struct VetoRow {
+    /// `all` or `family`.
+    pub mode: String,
+    /// Family (`None` in mode `all`).
+    pub family_id: Option<i64>,
+    /// Round number.
+    pub round: i64,
+    /// Aux channel name.
+    pub aux_channel: String,
+    /// Aux SNR threshold.
+    pub snr_threshold: f64,
+    /// Half window \[s\].
+    pub window_s: f64,
+    /// Efficiency of this round.
+    pub efficiency: f64,
+    /// Deadtime of this round.
+    pub deadtime: f64,
+    /// Use percentage.
+    pub use_percentage: f64,
+    /// Significance.
+    pub significance: f64,
+    /// Cumulative efficiency.
+    pub cum_efficiency: f64,
+    /// Cumulative deadtime.
+    pub cum_deadtime: f64,
+    /// Injections vetoed (if checked).
+    pub n_inj_vetoed: Option<i64>,
+    /// Injections expected vetoed by chance.
+    pub inj_expected: Option<f64>,
+    /// Safety probability.
+    pub safety_p: Option<f64>,
+    /// Judged safe.
+    pub safe: bool,
+    /// Proposed to the team.
+    pub proposed: bool,
+}
+
+/// Everything the report shows.
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportData {
+    /// Parameters used.
+    pub params: ReportParams,
+    /// glitchbook version.
+    pub tool_version: String,
+    /// When the report was made (UTC, ISO 8601).
+    pub generated_utc: String,
+    /// Rates of all target triggers and of each family.
+    pub rates: RateReport,
+    /// (channel name, role, triggers in span, live time \[s\]).
+    pub channels: Vec<(String, String, i64, f64)>,
+    /// Families by id.
+    pub families: Vec<FamilyInfo>,
+    /// Scatter points: (t \[GPS s\], f \[Hz\], family id).
+    pub tf_points: Vec<(f64, f64, Option<i64>)>,
+    /// Novel triggers, loudest first.
+    pub novel: Vec<ExampleTrigger>,
+    /// Novel triggers in the span (before truncation).
+    pub n_novel: u64,
+    /// SNRs of all target triggers in the span, ascending.
+    pub all_snr_sorted: Vec<f64>,
+    /// Witness statistics (empty without coupling tables).
+    pub witnesses: Vec<WitnessRow>,
+    /// Lag histograms.
+    pub lags: Vec<LagRow>,
+    /// Veto rounds.
+    pub vetoes: Vec<VetoRow>,
+    /// Whether the coupling tables exist.
+    pub has_coupling: bool,
+}
+
+/// Current time as ISO 8601 UTC (from the system clock).
+pub fn now_utc() -> String {
+    let secs = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs() as i64)
+        .unwrap_or(0);
+    let (days, rem) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
+    // civil-from-days (Howard Hinnant's algorithm)
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = doy - (153 * mp + 2) / 5 + 1;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 };
+    let y = yoe + era * 400 + i64::from(m <= 2);
+    format!(
+        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
+        rem / 3600,
+        rem / 60 % 60,
+        rem % 60
+    )
+}
+
+/// Gather the report's content.
+///
+/// # Errors
+/// Invalid parameters, a catalogue without target channel or analysed time,
+/// SQLite errors.
+pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
+    let rp = RateParams {
+        bin_s: p.bin_s,
+        since_gps: p.since_gps,
+        until_gps: p.until_gps,
+        min_snr: p.min_snr,
+        cl: p.cl,
+        p0: p.p0,
+        ..RateParams::default()
+    };
+    let rates = rates(conn, &rp)?;
+    let (t0, t1) = (rates.span_start_gps, rates.span_end_gps);
+    let (n0, n1) = (crate::catalogue::to_ns(t0), crate::catalogue::to_ns(t1));
+
+    // Channels: triggers in the span and live time.
+    let mut channels = Vec::new();
+    {
+        let mut stmt = conn.prepare(
+            "SELECT c.id, c.name, c.role, (SELECT count(*) FROM triggers t WHERE t.channel_id = c.id \
+             AND t.t_peak_ns >= ?1 AND t.t_peak_ns < ?2 AND t.snr >= ?3) FROM channels c ORDER BY c.id",
+        )?;
+        let rows = stmt
+            .query_map(params![n0, n1, p.min_snr], |r| {
+                Ok((
+                    r.get::<_, i64>(0)?,
+                    r.get::<_, String>(1)?,
+                    r.get::<_, String>(2)?,
+                    r.get::<_, i64>(3)?,
+                ))
+            })?
+            .collect::<rusqlite::Result<Vec<_>>>()?;
+        for (id, name, role, n) in rows {
+            let live = live_time(conn, id)?.overlap_with(t0, t1);
+            channels.push((name, role, n, live));
+        }
+    }
+
+    // Families and their members.
+    let mut families: Vec<FamilyInfo> = Vec::new();
+    if rates.has_families {
+        let mut stmt = conn.prepare("SELECT id, label, note, status FROM families ORDER BY id")?;
+        families = stmt
+            .query_map([], |r| {
+                Ok(FamilyInfo {
+                    id: r.get(0)?,
+                    label: r.get(1)?,
+                    note: r.get(2)?,
+                    status: r.get(3)?,
+                    examples: Vec::new(),
+                    snr_sorted: Vec::new(),
+                })
+            })?
+            .collect::<rusqlite::Result<Vec<_>>>()?;
+    }
+    let index: BTreeMap<i64, usize> = families
+        .iter()
+        .enumerate()
+        .map(|(i, f)| (f.id, i))
+        .collect();
+    let sql = if rates.has_families {
+        "SELECT t.id, t.t_peak_ns, t.f_peak_hz, t.snr, t.q, m.family_id, coalesce(m.novel, 0) FROM triggers t \
+         LEFT JOIN family_members m ON m.trigger_id = t.id \
+         WHERE t.channel_id = ?1 AND t.t_peak_ns >= ?2 AND t.t_peak_ns < ?3 AND t.snr >= ?4 ORDER BY t.t_peak_ns"
+    } else {
+        "SELECT t.id, t.t_peak_ns, t.f_peak_hz, t.snr, t.q, NULL, 0 FROM triggers t \
+         WHERE t.channel_id = ?1 AND t.t_peak_ns >= ?2 AND t.t_peak_ns < ?3 AND t.snr >= ?4 ORDER BY t.t_peak_ns"
+    };
+    let mut stmt = conn.prepare(sql)?;
+    let rows = stmt
+        .query_map(params![rates.channel.id, n0, n1, p.min_snr], |r| {
+            Ok((
+                ExampleTrigger {
+                    id: r.get(0)?,
+                    t_gps: from_ns(r.get(1)?),
+                    f_hz: r.get(2)?,
+                    snr: r.get(3)?,
+                    q: r.get(4)?,
+                },
+                r.get::<_, Option<i64>>(5)?,
+                r.get::<_, i64>(6)? != 0,
+            ))
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()
+        .context("reading target triggers")?;
+    let stride = rows.len().div_ceil(p.max_tf_points.max(1)).max(1);
+    let tf_points = rows
+        .iter()
+        .step_by(stride)
+        .map(|(e, f, _)| (e.t_gps, e.f_hz, *f))
+        .collect();
+    let mut novel: Vec<ExampleTrigger> = Vec::new();
+    let mut all_snr_sorted: Vec<f64> = Vec::with_capacity(rows.len());
+    for (e, fam, is_novel) in &rows {
+        all_snr_sorted.push(e.snr);
+        if *is_novel {
+            novel.push(*e);
+        }
+        if let Some(i) = fam.and_then(|f| index.get(&f)) {
+            families[*i].snr_sorted.push(e.snr);
+            families[*i].examples.push(*e);
+        }
+    }
+    let loudest_first = |v: &mut Vec<ExampleTrigger>, keep: usize| {
+        v.sort_by(|a, b| b.snr.total_cmp(&a.snr));
+        v.truncate(keep);
+    };
+    let n_novel = novel.len() as u64;
+    loudest_first(&mut novel, p.max_novel);
+    for f in &mut families {
+        loudest_first(&mut f.examples, p.max_examples);
+        f.snr_sorted.sort_by(f64::total_cmp);
+    }
+    all_snr_sorted.sort_by(f64::total_cmp);
+
+    let has_coupling = [
+        "witness_runs",
+        "witness_stats",
+        "witness_lags",
+        "veto_rounds",
+    ]
+    .iter()
+    .map(|t| table_exists(conn, t))
+    .collect::<Result<Vec<_>>>()?
+    .into_iter()
+    .all(|x| x);
+    let (mut witnesses, mut lags, mut vetoes) = (Vec::new(), Vec::new(), Vec::new());
+    if has_coupling {
+        let run: Option<i64> =
+            conn.query_row("SELECT max(id) FROM witness_runs", [], |r| r.get(0))?;
+        if let Some(run) = run {
+            witnesses = read_witnesses(conn, run)?;
+            lags = read_lags(conn, run)?;
+            vetoes = read_vetoes(conn, run)?;
+        }
+    }
+    Ok(ReportData {
+        params: p.clone(),
+        tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        generated_utc: now_utc(),
+        rates,
+        channels,
+        families,
+        tf_points,
+        novel,
+        n_novel,
+        all_snr_sorted,
+        witnesses,
+        lags,
+        vetoes,
+        has_coupling,
+    })
+}
+
+fn read_witnesses(conn: &Connection, run: i64) -> Result<Vec<WitnessRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT w.family_id, coalesce(c.name, 'channel ' || w.aux_channel_id), w.snr_threshold, w.window_s, \
+         w.n_target, w.n_coinc, w.expected, w.significance, w.efficiency, w.deadtime, w.use_percentage \
+         FROM witness_stats w LEFT JOIN channels c ON c.id = w.aux_channel_id WHERE w.run_id = ?1 \
+         ORDER BY w.family_id, w.significance DESC",
+    )?;
+    let rows = stmt
+        .query_map(params![run], |r| {
+            Ok(WitnessRow {
+                family_id: r.get(0)?,
+                aux_channel: r.get(1)?,
+                snr_threshold: r.get(2)?,
+                window_s: r.get(3)?,
+                n_target: r.get(4)?,
+                n_coinc: r.get(5)?,
+                expected: r.get(6)?,
+                significance: r.get(7)?,
+                efficiency: r.get(8)?,
+                deadtime: r.get(9)?,
+                use_percentage: r.get(10)?,
+            })
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()
+        .context("reading witness_stats")?;
+    Ok(rows)
+}
+
+fn read_lags(conn: &Connection, run: i64) -> Result<Vec<LagRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT l.family_id, coalesce(c.name, 'channel ' || l.aux_channel_id), l.lag_hist_json, l.freq_relation \
+         FROM witness_lags l LEFT JOIN channels c ON c.id = l.aux_channel_id WHERE l.run_id = ?1 ORDER BY l.family_id",
+    )?;
+    let raw = stmt
+        .query_map(params![run], |r| {
+            Ok((
+                r.get::<_, Option<i64>>(0)?,
+                r.get::<_, String>(1)?,
+                r.get::<_, Option<String>>(2)?,
+                r.get::<_, Option<String>>(3)?,
+            ))
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()?;
+    let mut out = Vec::new();
+    for (family_id, aux_channel, json, freq_relation) in raw {
+        let Some(json) = json else { continue };
+        #[derive(serde::Deserialize)]
+        struct Hist {
+            edges_s: Vec<f64>,
+            counts: Vec<f64>,
+        }
+        let h: Hist = serde_json::from_str(&json)
+            .with_context(|| format!("witness_lags.lag_hist_json for {aux_channel}: not {{\"edges_s\":[..],\"counts\":[..]}}"))?;
+        out.push(LagRow {
+            family_id,
+            aux_channel,
+            edges_s: h.edges_s,
+            counts: h.counts,
+            freq_relation,
+        });
+    }
+    Ok(out)
+}
+
+fn read_vetoes(conn: &Connection, run: i64) -> Result<Vec<VetoRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT v.mode, v.family_id, v.round, coalesce(c.name, 'channel ' || v.aux_channel_id), v.snr_threshold, \
+         v.window_s, v.efficiency, v.deadtime, v.use_percentage, v.significance, v.cum_efficiency, v.cum_deadtime, \
+         v.n_inj_vetoed, v.inj_expected, v.safety_p, coalesce(v.safe, 0), coalesce(v.proposed, 0) \
+         FROM veto_rounds v LEFT JOIN channels c ON c.id = v.aux_channel_id WHERE v.run_id = ?1 \
+         ORDER BY v.mode, v.family_id, v.round",
+    )?;
+    let rows = stmt
+        .query_map(params![run], |r| {
+            Ok(VetoRow {
+                mode: r.get(0)?,
+                family_id: r.get(1)?,
+                round: r.get(2)?,
+                aux_channel: r.get(3)?,
+                snr_threshold: r.get(4)?,
+                window_s: r.get(5)?,
+                efficiency: r.get(6)?,
+                deadtime: r.get(7)?,
+                use_percentage: r.get(8)?,
+                significance: r.get(9)?,
+                cum_efficiency: r.get(10)?,
+                cum_deadtime: r.get(11)?,
+                n_inj_vetoed: r.get(12)?,
+                inj_expected: r.get(13)?,
+                safety_p: r.get(14)?,
+                safe: r.get::<_, i64>(15)? != 0,
+                proposed: r.get::<_, i64>(16)? != 0,
+            })
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()
+        .context("reading veto_rounds")?;
+    Ok(rows)
+}

@@ -1,0 +1,419 @@
+//! Rendering [`ReportData`] to a static site.
+
+use super::gather::{ExampleTrigger, ReportData, VetoRow, WitnessRow};
+use super::plots::{self, family_colour, TfPoint};
+use super::VETO_CAUTION;
+use crate::rates::RateSeries;
+use anyhow::{Context, Result};
+use std::collections::BTreeMap;
+use std::fmt::Write;
+use std::path::{Path, PathBuf};
+
+/// Escape text for HTML element content and attribute values.
+pub fn html_escape(s: &str) -> String {
+    let mut o = String::with_capacity(s.len());
+    for c in s.chars() {
+        match c {
+            '&' => o.push_str("&amp;"),
+            '<' => o.push_str("&lt;"),
+            '>' => o.push_str("&gt;"),
+            '"' => o.push_str("&quot;"),
+            '\'' => o.push_str("&#39;"),
+            _ => o.push(c),
+        }
+    }
+    o
+}
+
+const CSS: &str = "
+body{font-family:Georgia,'DejaVu Serif',serif;margin:0;background:#f7f5f0;color:#222233}
+header{background:#23314a;color:#f7f5f0;padding:18px 28px}
+header h1{margin:0;font-size:26px;letter-spacing:1px}
+main{padding:10px 28px 40px}
+section{background:#fff;border:1px solid #d8d3c8;border-radius:6px;margin:18px 0;padding:6px 18px 14px;overflow-x:auto}
+h2{color:#23314a;border-bottom:2px solid #e3a857;padding-bottom:4px}
+table{border-collapse:collapse;font-size:13px;margin:8px 0}
+th,td{border:1px solid #d8d3c8;padding:3px 8px;text-align:right}
+th{background:#efe9dc}
+td.t{text-align:left}
+.prov{font-size:12px;color:#555;background:#efe9dc;padding:6px 10px;border-radius:4px;white-space:pre-wrap}
+.caution{border-left:6px solid #c2283d;background:#fbeaea;padding:8px 12px;font-weight:bold}
+.flag{color:#c2283d;font-weight:bold}
+.thumbs img{height:160px;margin:4px;border:1px solid #ccc}
+img.plot{max-width:100%;display:block;margin:6px 0}
+";
+
+fn f3(x: f64) -> String {
+    format!("{x:.3}")
+}
+
+fn family_title(id: i64, label: Option<&str>) -> String {
+    match label {
+        Some(l) => format!("Family {id}: {}", html_escape(l)),
+        None => format!("Family {id} (unnamed)"),
+    }
+}
+
+fn trigger_table(o: &mut String, rows: &[ExampleTrigger]) {
+    o.push_str("<table><tr><th>trigger</th><th>GPS time [s]</th><th>peak f [Hz]</th><th>SNR</th><th>Q</th></tr>\n");
+    for e in rows {
+        let _ = writeln!(
+            o,
+            "<tr><td>{}</td><td>{:.3}</td><td>{:.1}</td><td>{:.2}</td><td>{}</td></tr>",
+            e.id,
+            e.t_gps,
+            e.f_hz,
+            e.snr,
+            e.q.map(|q| format!("{q:.1}")).unwrap_or("-".into())
+        );
+    }
+    o.push_str("</table>\n");
+}
+
+fn witness_table(o: &mut String, rows: &[&WitnessRow]) {
+    o.push_str(
+        "<table><tr><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th><th>target</th><th>coincident</th>\
+         <th>expected</th><th>significance</th><th>efficiency</th><th>deadtime</th><th>use percentage</th></tr>\n",
+    );
+    for w in rows {
+        let _ = writeln!(
+            o,
+            "<tr><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{}</td><td>{}</td><td>{:.2}</td><td>{:.1}</td>\
+             <td>{:.3}</td><td>{:.2e}</td><td>{:.3}</td></tr>",
+            html_escape(&w.aux_channel),
+            w.snr_threshold,
+            w.window_s,
+            w.n_target,
+            w.n_coinc,
+            w.expected,
+            w.significance,
+            w.efficiency,
+            w.deadtime,
+            w.use_percentage
+        );
+    }
+    o.push_str("</table>\n");
+}
+
+fn veto_table(o: &mut String, rows: &[&VetoRow]) {
+    let _ = writeln!(o, "<p class=\"caution\">{}</p>", html_escape(VETO_CAUTION));
+    o.push_str(
+        "<table><tr><th>round</th><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th><th>efficiency</th>\
+         <th>deadtime</th><th>use percentage</th><th>significance</th><th>cumulative efficiency</th>\
+         <th>cumulative deadtime</th><th>injections vetoed</th><th>injections expected</th><th>safety p</th>\
+         <th>safe</th><th>proposed</th></tr>\n",
+    );
+    let opt = |v: Option<f64>, p: usize| v.map(|x| format!("{x:.p$}")).unwrap_or("-".into());
+    for v in rows {
+        let _ = writeln!(
+            o,
+            "<tr><td>{}</td><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{:.3}</td><td>{:.2e}</td><td>{:.3}</td>\
+             <td>{:.1}</td><td>{:.3}</td><td>{:.2e}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            v.round,
+            html_escape(&v.aux_channel),
+            v.snr_threshold,
+            v.window_s,
+            v.efficiency,
+            v.deadtime,
+            v.use_percentage,
+            v.significance,
+            v.cum_efficiency,
+            v.cum_deadtime,
+            v.n_inj_vetoed.map(|n| n.to_string()).unwrap_or("-".into()),
+            opt(v.inj_expected, 2),
+            v.safety_p.map(|x| format!("{x:.2e}")).unwrap_or("-".into()),
+            if v.safe { "yes" } else { "<span class=\"flag\">NO</span>" },
+            if v.proposed { "yes" } else { "no" }
+        );
+    }
+    o.push_str("</table>\n");
+}
+
+fn blocks_table(o: &mut String, s: &RateSeries) {
+    o.push_str("<table><tr><th>block start [GPS s]</th><th>end [GPS s]</th><th>events</th><th>live [h]</th><th>rate [/h]</th><th>lower</th><th>upper</th></tr>\n");
+    for b in &s.blocks {
+        let _ = writeln!(
+            o,
+            "<tr><td>{:.1}</td><td>{:.1}</td><td>{}</td><td>{:.2}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            b.start_gps,
+            b.end_gps,
+            b.count,
+            b.live_s / 3600.0,
+            f3(b.rate_per_hour),
+            f3(b.lower_per_hour),
+            f3(b.upper_per_hour)
+        );
+    }
+    o.push_str("</table>\n");
+}
+
+/// Write `out/index.html` and `out/img/*`. `thumbnails` are (family id, PNG
+/// path) pairs of example spectrograms made by the caller; they are copied
+/// into `out/img/`.
+///
+/// # Errors
+/// If the directory, a plot or a copy cannot be written.
+pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[(i64, PathBuf)]) -> Result<PathBuf> {
+    let img = out.join("img");
+    std::fs::create_dir_all(&img).with_context(|| format!("creating {}", img.display()))?;
+    let r = &d.rates;
+    let (t0, t1) = (r.span_start_gps, r.span_end_gps);
+    let colour_of: BTreeMap<i64, usize> = d
+        .families
+        .iter()
+        .enumerate()
+        .map(|(i, f)| (f.id, i))
+        .collect();
+
+    // Overview plots.
+    let pts: Vec<TfPoint> = d
+        .tf_points
+        .iter()
+        .map(|&(t, f, fam)| TfPoint {
+            t_gps: t,
+            f_hz: f,
+            colour: fam.and_then(|x| colour_of.get(&x).copied()),
+        })
+        .collect();
+    plots::tf_scatter(&img.join("tf.svg"), &pts, t0, t1)?;
+    let mut curves = vec![(
+        "all".to_string(),
+        plotters::style::RGBColor(0x22, 0x22, 0x33),
+        d.all_snr_sorted.clone(),
+    )];
+    for (i, f) in d.families.iter().enumerate() {
+        let name = f
+            .label
+            .clone()
+            .map_or(format!("family {}", f.id), |l| format!("{} {}", f.id, l));
+        curves.push((name, family_colour(i), f.snr_sorted.clone()));
+    }
+    plots::snr_cumulative(&img.join("snr.svg"), &curves)?;
+
+    let mut o = String::new();
+    let _ = write!(
+        o,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>glitchbook report</title>\
+         <style>{CSS}</style></head><body>\n<header><h1>glitchbook report</h1></header>\n<main>\n"
+    );
+    let params_json = serde_json::to_string_pretty(&d.params)?;
+    let _ = writeln!(
+        o,
+        "<div class=\"prov\" id=\"provenance\">Catalogue: {}\nTool: glitchbook {}\nGenerated: {}\nParameters: {}</div>",
+        html_escape(&d.params.catalogue),
+        html_escape(&d.tool_version),
+        html_escape(&d.generated_utc),
+        html_escape(&params_json)
+    );
+
+    // Run summary.
+    let _ = writeln!(o, "<section id=\"summary\"><h2>Run summary</h2>");
+    let _ = writeln!(
+        o,
+        "<p>Span {:.1} – {:.1} GPS s ({:.2} h); live time of {} {:.2} h ({:.1} %).</p>",
+        t0,
+        t1,
+        (t1 - t0) / 3600.0,
+        html_escape(&r.channel.name),
+        r.live_s / 3600.0,
+        100.0 * r.live_s / (t1 - t0)
+    );
+    o.push_str("<table><tr><th>channel</th><th>role</th><th>triggers</th><th>live [h]</th></tr>\n");
+    for (name, role, n, live) in &d.channels {
+        let _ = writeln!(
+            o,
+            "<tr><td class=\"t\">{}</td><td class=\"t\">{}</td><td>{n}</td><td>{:.2}</td></tr>",
+            html_escape(name),
+            html_escape(role),
+            live / 3600.0
+        );
+    }
+    o.push_str("</table>\n");
+    if d.families.is_empty() {
+        o.push_str("<p>No families in this catalogue (not clustered yet).</p>\n");
+    } else {
+        o.push_str("<table><tr><th>family</th><th>label</th><th>status</th><th>events</th><th>mean rate [/h]</th><th>change points</th><th>latest block</th></tr>\n");
+        for f in &d.families {
+            let s = r.series.iter().find(|s| s.family_id == Some(f.id));
+            let _ = writeln!(
+                o,
+                "<tr><td><a href=\"#family-{id}\">{id}</a></td><td class=\"t\">{}</td><td class=\"t\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                f.label.as_deref().map(html_escape).unwrap_or_default(),
+                html_escape(&f.status),
+                s.map_or(0, |s| s.n_events),
+                s.map_or("-".into(), |s| f3(s.mean_rate_per_hour)),
+                s.map_or(0, |s| s.change_times_gps.len()),
+                match s {
+                    Some(s) if s.latest_differs => "<span class=\"flag\">differs from median</span>",
+                    _ => "consistent",
+                },
+                id = f.id
+            );
+        }
+        o.push_str("</table>\n");
+    }
+    o.push_str(
+        "<img class=\"plot\" src=\"img/tf.svg\" alt=\"time-frequency scatter of triggers\">\n",
+    );
+    o.push_str("<img class=\"plot\" src=\"img/snr.svg\" alt=\"cumulative SNR distributions\">\n");
+    if let Some(all) = r.series.iter().find(|s| s.family_id.is_none()) {
+        plots::rate_plot(
+            &img.join("rate_all.svg"),
+            all,
+            t0,
+            t1,
+            "all target triggers",
+            plotters::style::RGBColor(0x22, 0x22, 0x33),
+        )?;
+        o.push_str(
+            "<img class=\"plot\" src=\"img/rate_all.svg\" alt=\"rate of all target triggers\">\n",
+        );
+    }
+    o.push_str("</section>\n");
+
+    // One section per family.
+    for (i, f) in d.families.iter().enumerate() {
+        let _ = writeln!(
+            o,
+            "<section class=\"family\" id=\"family-{}\"><h2>{}</h2>",
+            f.id,
+            family_title(f.id, f.label.as_deref())
+        );
+        if let Some(note) = &f.note {
+            let _ = writeln!(o, "<p class=\"note\">{}</p>", html_escape(note));
+        }
+        if let Some(s) = r.series.iter().find(|s| s.family_id == Some(f.id)) {
+            let _ = writeln!(
+                o,
+                "<p>{} events; mean {} per live hour; median block rate {} /h; {} change point(s){}.</p>",
+                s.n_events,
+                f3(s.mean_rate_per_hour),
+                f3(s.median_rate_per_hour),
+                s.change_times_gps.len(),
+                if s.latest_differs { " — <span class=\"flag\">latest block differs from the median</span>" } else { "" }
+            );
+            let file = format!("rate_f{}.svg", f.id);
+            let title = f.label.clone().map_or(format!("family {}", f.id), |l| {
+                format!("family {} {}", f.id, l)
+            });
+            plots::rate_plot(&img.join(&file), s, t0, t1, &title, family_colour(i))?;
+            let _ = writeln!(
+                o,
+                "<img class=\"plot rate\" src=\"img/{file}\" alt=\"rate of family {}\">",
+                f.id
+            );
+            if !s.change_times_gps.is_empty() {
+                let cps: Vec<String> = s
+                    .change_times_gps
+                    .iter()
+                    .map(|c| format!("{c:.1}"))
+                    .collect();
+                let _ = writeln!(o, "<p>Change times [GPS s]: {}</p>", cps.join(", "));
+            }
+            blocks_table(&mut o, s);
+        }
+        let thumbs: Vec<&PathBuf> = thumbnails
+            .iter()
+            .filter(|(id, _)| *id == f.id)
+            .map(|(_, p)| p)
+            .collect();
+        if !thumbs.is_empty() {
+            o.push_str("<h3>Example spectrograms</h3><div class=\"thumbs\">\n");
+            for (k, p) in thumbs.iter().enumerate() {
+                let name = format!("thumb_f{}_{k}.png", f.id);
+                std::fs::copy(p, img.join(&name))
+                    .with_context(|| format!("copying spectrogram {}", p.display()))?;
+                let _ = writeln!(o, "<img class=\"thumb\" src=\"img/{name}\" alt=\"example spectrogram {k} of family {}\">", f.id);
+            }
+            o.push_str("</div>\n");
+        }
+        if !f.examples.is_empty() {
+            o.push_str("<h3>Loudest members</h3>\n");
+            trigger_table(&mut o, &f.examples);
+        }
+        let w: Vec<&WitnessRow> = d
+            .witnesses
+            .iter()
+            .filter(|w| w.family_id == Some(f.id))
+            .collect();
+        if !w.is_empty() {
+            o.push_str("<h3>Witness channels</h3>\n");
+            witness_table(&mut o, &w);
+        }
+        for (k, l) in d
+            .lags
+            .iter()
+            .filter(|l| l.family_id == Some(f.id))
+            .enumerate()
+        {
+            let file = format!("lag_f{}_{k}.svg", f.id);
+            plots::lag_histogram(
+                &img.join(&file),
+                &l.edges_s,
+                &l.counts,
+                &format!("lag vs {}", l.aux_channel),
+            )?;
+            let _ = writeln!(
+                o,
+                "<figure><img class=\"plot lag\" src=\"img/{file}\" alt=\"lag histogram\"><figcaption>{}{}</figcaption></figure>",
+                html_escape(&l.aux_channel),
+                l.freq_relation.as_deref().map(|x| format!(" — frequency relation: {}", html_escape(x))).unwrap_or_default()
+            );
+        }
+        let v: Vec<&VetoRow> = d
+            .vetoes
+            .iter()
+            .filter(|v| v.mode == "family" && v.family_id == Some(f.id))
+            .collect();
+        if !v.is_empty() {
+            o.push_str("<h3>Proposed vetoes</h3>\n");
+            veto_table(&mut o, &v);
+        }
+        o.push_str("</section>\n");
+    }
+
+    // Vetoes over all target triggers, and all-trigger witnesses.
+    let w_all: Vec<&WitnessRow> = d
+        .witnesses
+        .iter()
+        .filter(|w| w.family_id.is_none())
+        .collect();
+    let v_all: Vec<&VetoRow> = d.vetoes.iter().filter(|v| v.mode == "all").collect();
+    if !w_all.is_empty() || !v_all.is_empty() {
+        o.push_str(
+            "<section id=\"all-vetoes\"><h2>All target triggers: witnesses and vetoes</h2>\n",
+        );
+        if !w_all.is_empty() {
+            witness_table(&mut o, &w_all);
+        }
+        if !v_all.is_empty() {
+            veto_table(&mut o, &v_all);
+        }
+        o.push_str("</section>\n");
+    }
+
+    // Novel triggers.
+    let _ = writeln!(o, "<section id=\"novel\"><h2>Novel triggers</h2>");
+    if d.n_novel == 0 {
+        o.push_str("<p>No trigger was marked novel in this span.</p>\n");
+    } else {
+        let _ = writeln!(
+            o,
+            "<p>{} novel trigger(s); the {} loudest:</p>",
+            d.n_novel,
+            d.novel.len()
+        );
+        trigger_table(&mut o, &d.novel);
+    }
+    o.push_str("</section>\n");
+    let _ = writeln!(
+        o,
+        "<footer class=\"prov\">Made by glitchbook {} from {} on {}.</footer>\n</main></body></html>",
+        html_escape(&d.tool_version),
+        html_escape(&d.params.catalogue),
+        html_escape(&d.generated_utc)
+    );
+    let index = out.join("index.html");
+    std::fs::write(&index, o).with_context(|| format!("writing {}", index.display()))?;
+    Ok(index)
+}

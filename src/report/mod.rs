@@ -1,0 +1,21 @@
+//! The static HTML report: [`ReportData`] is gathered from the catalogue
+//! ([`gather`]) and rendered by [`write_report`] to `DIR/index.html` plus
+//! `DIR/img/*.svg` (and any spectrogram PNGs the caller passes in). The site
+//! is self-contained: no network, no JavaScript.
+//!
+//! All user text (labels, notes, channel names, parameters) is HTML-escaped
+//! ([`html_escape`]). Every page states the catalogue, parameters and tool
+//! version it was made from. Veto proposals always carry [`VETO_CAUTION`]
+//! and their safety figures.
+
+mod gather;
+mod html;
+pub mod plots;
+
+pub use gather::{
+    gather, ExampleTrigger, FamilyInfo, LagRow, ReportData, ReportParams, VetoRow, WitnessRow,
+};
+pub use html::{html_escape, write_report};
+
+/// The caution printed with every veto proposal.
+pub const VETO_CAUTION: &str = "Veto proposals are for the instrument team to validate against their own procedures before any data are discarded.";

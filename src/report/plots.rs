@@ -1,0 +1,294 @@
+//! SVG charts drawn with plotters' SVG backend (text as SVG `<text>`, no
+//! font files needed). Palette, layout and labels are glitchbook's own.
+
+use crate::rates::RateSeries;
+use anyhow::{anyhow, Result};
+use plotters::prelude::*;
+use std::path::Path;
+
+/// glitchbook's palette (family colour = `PALETTE[index % len]`).
+pub const PALETTE: [RGBColor; 8] = [
+    RGBColor(0x1b, 0x6c, 0xa8),
+    RGBColor(0xd9, 0x5f, 0x02),
+    RGBColor(0x2a, 0x9d, 0x5c),
+    RGBColor(0xa3, 0x3b, 0x8f),
+    RGBColor(0x8c, 0x6d, 0x1f),
+    RGBColor(0xc2, 0x28, 0x3d),
+    RGBColor(0x3f, 0x8f, 0xa8),
+    RGBColor(0x5c, 0x5c, 0x5c),
+];
+/// Colour of unassigned / novel points.
+pub const GREY: RGBColor = RGBColor(0xb0, 0xb0, 0xb0);
+const INK: RGBColor = RGBColor(0x22, 0x22, 0x33);
+const CHANGE: RGBColor = RGBColor(0xcc, 0x22, 0x88);
+
+fn err<E: std::fmt::Debug>(e: E) -> anyhow::Error {
+    anyhow!("plot: {e:?}")
+}
+
+/// Colour for the `i`-th family.
+pub fn family_colour(i: usize) -> RGBColor {
+    PALETTE[i % PALETTE.len()]
+}
+
+/// Rate versus time for one subject: bins with their confidence limits
+/// (hollow markers for bins with little live time), Bayesian-block rates as
+/// a step line and change points as vertical lines. x axis: hours since
+/// `t0_gps`.
+///
+/// # Errors
+/// If the SVG cannot be drawn or written.
+pub fn rate_plot(
+    path: &Path,
+    s: &RateSeries,
+    t0_gps: f64,
+    t1_gps: f64,
+    title: &str,
+    colour: RGBColor,
+) -> Result<()> {
+    let root = SVGBackend::new(path, (900, 340)).into_drawing_area();
+    root.fill(&WHITE).map_err(err)?;
+    let h = |t: f64| (t - t0_gps) / 3600.0;
+    let ymax = s
+        .bins
+        .iter()
+        .filter_map(|b| b.upper_per_hour.filter(|_| !b.low_live))
+        .chain(s.blocks.iter().map(|b| b.rate_per_hour))
+        .fold(1.0_f64, f64::max)
+        * 1.1;
+    let mut chart = ChartBuilder::on(&root)
+        .caption(title, ("sans-serif", 18).into_font().color(&INK))
+        .margin(12)
+        .x_label_area_size(40)
+        .y_label_area_size(60)
+        .build_cartesian_2d(0.0..h(t1_gps).max(1e-9), 0.0..ymax)
+        .map_err(err)?;
+    chart
+        .configure_mesh()
+        .x_desc("hours since span start")
+        .y_desc("rate per live hour")
+        .light_line_style(RGBColor(0xee, 0xee, 0xf2))
+        .draw()
+        .map_err(err)?;
+    for &c in &s.change_times_gps {
+        chart
+            .draw_series(std::iter::once(PathElement::new(
+                vec![(h(c), 0.0), (h(c), ymax)],
+                CHANGE.stroke_width(2),
+            )))
+            .map_err(err)?;
+    }
+    // limits as vertical bars, rates as markers
+    chart
+        .draw_series(s.bins.iter().filter_map(|b| {
+            let (lo, up) = (b.lower_per_hour?, b.upper_per_hour?);
+            let x = h(0.5 * (b.start_gps + b.end_gps));
+            Some(PathElement::new(
+                vec![(x, lo), (x, up.min(ymax))],
+                colour.mix(0.5).stroke_width(1),
+            ))
+        }))
+        .map_err(err)?;
+    chart
+        .draw_series(s.bins.iter().filter_map(|b| {
+            let x = h(0.5 * (b.start_gps + b.end_gps));
+            let y = b.rate_per_hour?.min(ymax);
+            let style = if b.low_live {
+                colour.stroke_width(1)
+            } else {
+                colour.filled()
+            };
+            Some(Circle::new((x, y), 3, style))
+        }))
+        .map_err(err)?
+        .label("binned rate with limits")
+        .legend(move |(x, y)| Circle::new((x, y), 3, colour.filled()));
+    let mut step = Vec::new();
+    for b in &s.blocks {
+        step.push((h(b.start_gps), b.rate_per_hour.min(ymax)));
+        step.push((h(b.end_gps), b.rate_per_hour.min(ymax)));
+    }
+    chart
+        .draw_series(std::iter::once(PathElement::new(step, INK.stroke_width(2))))
+        .map_err(err)?
+        .label("Bayesian-block rate")
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], INK.stroke_width(2)));
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.85))
+        .border_style(RGBColor(0xcc, 0xcc, 0xcc))
+        .position(SeriesLabelPosition::UpperLeft)
+        .draw()
+        .map_err(err)?;
+    root.present().map_err(err)?;
+    Ok(())
+}
+
+/// One point of the time-frequency scatter.
+#[derive(Debug, Clone, Copy)]
+pub struct TfPoint {
+    /// Peak time \[GPS s\].
+    pub t_gps: f64,
+    /// Peak frequency \[Hz\].
+    pub f_hz: f64,
+    /// Colour index (`None` = unassigned, drawn grey).
+    pub colour: Option<usize>,
+}
+
+/// Time-frequency scatter over the run (log frequency axis).
+///
+/// # Errors
+/// If the SVG cannot be drawn or written.
+pub fn tf_scatter(path: &Path, pts: &[TfPoint], t0_gps: f64, t1_gps: f64) -> Result<()> {
+    let root = SVGBackend::new(path, (900, 380)).into_drawing_area();
+    root.fill(&WHITE).map_err(err)?;
+    let (fmin, fmax) = pts.iter().fold((f64::INFINITY, 0.0_f64), |(a, b), p| {
+        (a.min(p.f_hz), b.max(p.f_hz))
+    });
+    let (fmin, fmax) = if fmax > 0.0 {
+        (fmin * 0.8, fmax * 1.25)
+    } else {
+        (1.0, 10.0)
+    };
+    let mut chart = ChartBuilder::on(&root)
+        .caption(
+            "triggers over the run",
+            ("sans-serif", 18).into_font().color(&INK),
+        )
+        .margin(12)
+        .x_label_area_size(40)
+        .y_label_area_size(60)
+        .build_cartesian_2d(
+            0.0..((t1_gps - t0_gps) / 3600.0).max(1e-9),
+            (fmin..fmax).log_scale(),
+        )
+        .map_err(err)?;
+    chart
+        .configure_mesh()
+        .x_desc("hours since span start")
+        .y_desc("peak frequency [Hz]")
+        .light_line_style(RGBColor(0xee, 0xee, 0xf2))
+        .draw()
+        .map_err(err)?;
+    chart
+        .draw_series(pts.iter().map(|p| {
+            let c = p.colour.map_or(GREY, family_colour);
+            Circle::new(
+                ((p.t_gps - t0_gps) / 3600.0, p.f_hz),
+                2,
+                c.mix(0.8).filled(),
+            )
+        }))
+        .map_err(err)?;
+    root.present().map_err(err)?;
+    Ok(())
+}
+
+/// Cumulative SNR distributions: for each curve, the number of triggers with
+/// SNR ≥ x, log-log. `curves` = (name, colour, SNRs sorted ascending).
+///
+/// # Errors
+/// If the SVG cannot be drawn or written.
+pub fn snr_cumulative(path: &Path, curves: &[(String, RGBColor, Vec<f64>)]) -> Result<()> {
+    let root = SVGBackend::new(path, (900, 380)).into_drawing_area();
+    root.fill(&WHITE).map_err(err)?;
+    let all = curves.iter().flat_map(|c| c.2.iter().copied());
+    let (smin, smax) = all.fold((f64::INFINITY, 0.0_f64), |(a, b), s| (a.min(s), b.max(s)));
+    let (smin, smax) = if smax > 0.0 {
+        (smin.max(1e-3) * 0.9, smax * 1.1)
+    } else {
+        (1.0, 10.0)
+    };
+    let nmax = curves.iter().map(|c| c.2.len()).max().unwrap_or(1).max(1) as f64;
+    let mut chart = ChartBuilder::on(&root)
+        .caption(
+            "SNR distribution (cumulative, loudest first)",
+            ("sans-serif", 18).into_font().color(&INK),
+        )
+        .margin(12)
+        .x_label_area_size(40)
+        .y_label_area_size(60)
+        .build_cartesian_2d((smin..smax).log_scale(), (0.8..nmax * 1.5).log_scale())
+        .map_err(err)?;
+    chart
+        .configure_mesh()
+        .x_desc("SNR")
+        .y_desc("triggers with SNR at least x")
+        .light_line_style(RGBColor(0xee, 0xee, 0xf2))
+        .draw()
+        .map_err(err)?;
+    for (name, colour, snr) in curves {
+        let n = snr.len();
+        if n == 0 {
+            continue;
+        }
+        // at most ~400 vertices per curve
+        let stride = n.div_ceil(400).max(1);
+        let mut pts: Vec<(f64, f64)> = (0..n)
+            .step_by(stride)
+            .map(|i| (snr[i], (n - i) as f64))
+            .collect();
+        pts.push((snr[n - 1], 1.0));
+        let colour = *colour;
+        chart
+            .draw_series(std::iter::once(PathElement::new(
+                pts,
+                colour.stroke_width(2),
+            )))
+            .map_err(err)?
+            .label(name.clone())
+            .legend(move |(x, y)| {
+                PathElement::new(vec![(x, y), (x + 16, y)], colour.stroke_width(2))
+            });
+    }
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.85))
+        .border_style(RGBColor(0xcc, 0xcc, 0xcc))
+        .position(SeriesLabelPosition::UpperRight)
+        .draw()
+        .map_err(err)?;
+    root.present().map_err(err)?;
+    Ok(())
+}
+
+/// Histogram of witness lags (aux time − target time) \[s\].
+///
+/// # Errors
+/// If `edges_s.len() != counts.len() + 1`, or the SVG cannot be written.
+pub fn lag_histogram(path: &Path, edges_s: &[f64], counts: &[f64], title: &str) -> Result<()> {
+    if edges_s.len() != counts.len() + 1 || counts.is_empty() {
+        anyhow::bail!(
+            "lag histogram: {} edges for {} counts",
+            edges_s.len(),
+            counts.len()
+        );
+    }
+    let root = SVGBackend::new(path, (440, 260)).into_drawing_area();
+    root.fill(&WHITE).map_err(err)?;
+    let cmax = counts.iter().copied().fold(1.0, f64::max) * 1.1;
+    let mut chart = ChartBuilder::on(&root)
+        .caption(title, ("sans-serif", 14).into_font().color(&INK))
+        .margin(8)
+        .x_label_area_size(32)
+        .y_label_area_size(44)
+        .build_cartesian_2d(edges_s[0]..edges_s[edges_s.len() - 1], 0.0..cmax)
+        .map_err(err)?;
+    chart
+        .configure_mesh()
+        .x_desc("lag aux − target [s]")
+        .y_desc("pairs")
+        .light_line_style(RGBColor(0xee, 0xee, 0xf2))
+        .draw()
+        .map_err(err)?;
+    chart
+        .draw_series(counts.iter().enumerate().map(|(i, &c)| {
+            Rectangle::new(
+                [(edges_s[i], 0.0), (edges_s[i + 1], c)],
+                PALETTE[6].mix(0.75).filled(),
+            )
+        }))
+        .map_err(err)?;
+    root.present().map_err(err)?;
+    Ok(())
+}
