@@ -5,7 +5,7 @@
 //! Run: `cargo bench --bench scan_throughput` (set GLITCHBOOK_BENCH_SECONDS
 //! to change the span, default 3600).
 
-use glitchbook::scan::{resolve_params, scan_source, InMemory, ScanParams};
+use glitchbook::scan::{resolve_params, Conditioner, scan_source, InMemory, ScanParams};
 use glitchbook::tf::{QPlan, Tiling};
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
@@ -57,6 +57,21 @@ fn main() {
         plan.tiles_per_block(),
         secs / fft_s
     );
+
+    // Conditioning alone (read, Welch PSD, taper, FFT, whitening) for the same blocks.
+    let pad = (rp.pad_s * fs) as usize;
+    let welch_n = (rp.welch_s * fs) as usize;
+    let cond = Conditioner::new(block_n, pad, welch_n, (8.0, 14.4)).unwrap();
+    let t = Instant::now();
+    let mut i0 = 0;
+    for _ in 0..n_blocks {
+        let start = i0.min(n - block_n);
+        let w = cond.whiten_block(&src, start).unwrap();
+        std::hint::black_box(w);
+        i0 += step;
+    }
+    let cond_s = t.elapsed().as_secs_f64();
+    println!("  conditioning only (1 thread): {cond_s:.2} s");
 
     let run = |threads: usize| -> (f64, usize) {
         let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();

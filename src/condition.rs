@@ -74,56 +74,80 @@ impl Psd {
 /// # Errors
 /// Fewer samples than one segment, or `noverlap >= nperseg`.
 pub fn welch_median(x: &[f64], fs_hz: f64, nperseg: usize, noverlap: usize) -> Result<Psd> {
-    if nperseg < 2 || noverlap >= nperseg {
-        bail!("Welch: need nperseg >= 2 and noverlap < nperseg (got {nperseg}, {noverlap})");
-    }
-    if x.len() < nperseg {
-        bail!(
-            "Welch: {} samples is shorter than one segment of {nperseg}",
-            x.len()
-        );
-    }
-    let step = nperseg - noverlap;
-    let nseg = (x.len() - nperseg) / step + 1;
-    let win = hann_periodic(nperseg);
-    let win_ss: f64 = win.iter().map(|w| w * w).sum();
-    let nfreq = nperseg / 2 + 1;
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(nperseg);
-    let mut input = fft.make_input_vec();
-    let mut spec = fft.make_output_vec();
-    let mut scratch = fft.make_scratch_vec();
-    // per_bin[k][s]: periodogram of segment s at bin k.
-    let mut per_bin = vec![vec![0.0f64; nseg]; nfreq];
-    for s in 0..nseg {
-        let seg = &x[s * step..s * step + nperseg];
-        let mean = seg.iter().sum::<f64>() / nperseg as f64;
-        for ((o, &v), &w) in input.iter_mut().zip(seg).zip(&win) {
-            *o = (v - mean) * w;
+    Welch::new(nperseg, noverlap)?.estimate(x, fs_hz)
+}
+
+/// A planned Welch estimator (window and FFT plan made once, shareable
+/// between threads).
+pub struct Welch {
+    nperseg: usize,
+    noverlap: usize,
+    win: Vec<f64>,
+    win_ss: f64,
+    fft: std::sync::Arc<dyn realfft::RealToComplex<f64>>,
+}
+
+impl Welch {
+    /// Plan for segments of `nperseg` samples overlapping by `noverlap`.
+    ///
+    /// # Errors
+    /// `nperseg < 2` or `noverlap >= nperseg`.
+    pub fn new(nperseg: usize, noverlap: usize) -> Result<Welch> {
+        if nperseg < 2 || noverlap >= nperseg {
+            bail!("Welch: need nperseg >= 2 and noverlap < nperseg (got {nperseg}, {noverlap})");
         }
-        fft.process_with_scratch(&mut input, &mut spec, &mut scratch)
-            .expect("buffer sizes come from the plan");
-        for (k, c) in spec.iter().enumerate() {
-            per_bin[k][s] = c.norm_sqr();
-        }
+        let win = hann_periodic(nperseg);
+        let win_ss = win.iter().map(|w| w * w).sum();
+        let fft = RealFftPlanner::<f64>::new().plan_fft_forward(nperseg);
+        Ok(Welch { nperseg, noverlap, win, win_ss, fft })
     }
-    let scale = 1.0 / (fs_hz * win_ss);
-    let bias = median_bias(nseg);
-    let density = per_bin
-        .iter_mut()
-        .enumerate()
-        .map(|(k, vals)| {
-            let one_sided = if k == 0 || (nperseg.is_multiple_of(2) && k == nfreq - 1) {
-                1.0
-            } else {
-                2.0
-            };
-            median(vals) * scale * one_sided / bias
-        })
-        .collect();
-    Ok(Psd {
-        df_hz: fs_hz / nperseg as f64,
-        density,
-    })
+
+    /// The median-averaged PSD of `x` sampled at `fs_hz`.
+    ///
+    /// # Errors
+    /// Fewer samples than one segment.
+    pub fn estimate(&self, x: &[f64], fs_hz: f64) -> Result<Psd> {
+        let nperseg = self.nperseg;
+        if x.len() < nperseg {
+            bail!("Welch: {} samples is shorter than one segment of {nperseg}", x.len());
+        }
+        let step = nperseg - self.noverlap;
+        let nseg = (x.len() - nperseg) / step + 1;
+        let nfreq = nperseg / 2 + 1;
+        let mut input = self.fft.make_input_vec();
+        let mut spec = self.fft.make_output_vec();
+        let mut scratch = self.fft.make_scratch_vec();
+        // per_bin[k * nseg + s]: periodogram of segment s at bin k.
+        let mut per_bin = vec![0.0f64; nfreq * nseg];
+        for s in 0..nseg {
+            let seg = &x[s * step..s * step + nperseg];
+            let mean = seg.iter().sum::<f64>() / nperseg as f64;
+            for ((o, &v), &w) in input.iter_mut().zip(seg).zip(&self.win) {
+                *o = (v - mean) * w;
+            }
+            self.fft
+                .process_with_scratch(&mut input, &mut spec, &mut scratch)
+                .expect("buffer sizes come from the plan");
+            for (k, c) in spec.iter().enumerate() {
+                per_bin[k * nseg + s] = c.norm_sqr();
+            }
+        }
+        let scale = 1.0 / (fs_hz * self.win_ss);
+        let bias = median_bias(nseg);
+        let density = per_bin
+            .chunks_mut(nseg)
+            .enumerate()
+            .map(|(k, vals)| {
+                let one_sided = if k == 0 || (nperseg.is_multiple_of(2) && k == nfreq - 1) {
+                    1.0
+                } else {
+                    2.0
+                };
+                median(vals) * scale * one_sided / bias
+            })
+            .collect();
+        Ok(Psd { df_hz: fs_hz / nperseg as f64, density })
+    }
 }
 
 /// Median as numpy computes it (mean of the two middle values for even length).

@@ -1,7 +1,7 @@
 //! Scanning one channel: split into valid stretches (analysis segments minus
 //! NaN dropouts), condition and tile each stretch in overlapping blocks, and
 //! cluster significant tiles into triggers.
-use crate::condition::{highpass_gain, tukey, welch_median, whiten};
+use crate::condition::{highpass_gain, tukey, whiten, Welch};
 use crate::io::ChannelSpec;
 use crate::segments::{Segment, SegmentList};
 use crate::tf::{QPlan, Tile, Tiling, Workspace};
@@ -13,6 +13,7 @@ use rustfft::FftPlanner;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::Arc;
 
 /// Parameters of a scan as given by the user (None = derive per channel).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -377,10 +378,13 @@ pub fn scan_source(
     };
     let highpass = (0.5 * rp.fmin, 0.9 * rp.fmin);
     let mut planner = FftPlanner::new();
-    let mut plans: HashMap<usize, QPlan> = HashMap::new();
+    let mut plans: HashMap<usize, (QPlan, Conditioner)> = HashMap::new();
     for b in &blocks {
         if let std::collections::hash_map::Entry::Vacant(e) = plans.entry(b.n) {
-            e.insert(QPlan::new(fs, b.n, &tiling, highpass, &mut planner)?);
+            e.insert((
+                QPlan::new(fs, b.n, &tiling, highpass, &mut planner)?,
+                Conditioner::new(b.n, pad, welch_n, highpass)?,
+            ));
         }
     }
     let z_thr = energy_from_snr(rp.snr_threshold);
@@ -389,11 +393,11 @@ pub fn scan_source(
     let results: Vec<Result<Vec<Tile>>> = blocks
         .par_iter()
         .map_init(HashMap::<usize, Workspace>::new, |wss, b| {
-            let plan = &plans[&b.n];
+            let (plan, conditioner) = &plans[&b.n];
             let ws = wss.entry(b.n).or_insert_with(|| plan.workspace());
             let keep = (t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs);
             let mut tiles = Vec::new();
-            let block = read_and_whiten(src, b.i0, b.n, pad, welch_n, highpass)?;
+            let block = conditioner.whiten_block(src, b.i0)?;
             plan.transform(&block, t0 + b.i0 as f64 / fs, keep, z_thr, ws, &mut tiles);
             progress(
                 done.fetch_add(1, Ordering::Relaxed) as f64 / total as f64 + 1.0 / total as f64,
@@ -412,8 +416,66 @@ pub fn scan_source(
     Ok((rp, analysed, cluster_tiles(tiles), checksum))
 }
 
-/// Read a block, estimate its PSD (Welch, median), taper the padding, FFT and
-/// whiten with the high-pass. Returns `n/2 + 1` whitened bins.
+/// Conditioning of blocks of one length: Welch estimator, taper and FFT
+/// plan made once and shared by all workers.
+pub struct Conditioner {
+    n: usize,
+    welch: Welch,
+    taper: Vec<f64>,
+    taper_ms: f64,
+    fft: Arc<dyn realfft::RealToComplex<f64>>,
+    highpass: (f64, f64),
+}
+
+impl Conditioner {
+    /// Plan for blocks of `n` samples with `pad` samples of padding (half
+    /// of it tapered), Welch segments of `welch_n` samples (50% overlap) and
+    /// the high-pass `(stop, pass)` edges \[Hz\].
+    ///
+    /// # Errors
+    /// A Welch segment shorter than 2 samples.
+    pub fn new(n: usize, pad: usize, welch_n: usize, highpass: (f64, f64)) -> Result<Conditioner> {
+        let taper = tukey(n, pad / 2);
+        let taper_ms = taper.iter().map(|w| w * w).sum::<f64>() / n as f64;
+        Ok(Conditioner {
+            n,
+            welch: Welch::new(welch_n, welch_n / 2)?,
+            taper,
+            taper_ms,
+            fft: realfft::RealFftPlanner::<f64>::new().plan_fft_forward(n),
+            highpass,
+        })
+    }
+
+    /// Read a block from sample `i0`, estimate its PSD (Welch, median), taper
+    /// the padding, FFT and whiten with the high-pass. Returns `n/2 + 1`
+    /// whitened bins.
+    ///
+    /// # Errors
+    /// Read errors of the source.
+    pub fn whiten_block(&self, src: &dyn SampleSource, i0: usize) -> Result<Vec<Complex<f32>>> {
+        let (n, fs) = (self.n, src.rate_hz());
+        let mut x = vec![0.0f64; n];
+        src.read(i0, &mut x)?;
+        let psd = self.welch.estimate(&x, fs)?;
+        let mean = x.iter().sum::<f64>() / n as f64;
+        for (v, w) in x.iter_mut().zip(&self.taper) {
+            *v = (*v - mean) * w;
+        }
+        let mut spec = self.fft.make_output_vec();
+        self.fft.process(&mut x, &mut spec).map_err(|e| anyhow!("FFT: {e}"))?;
+        let mut out = vec![Complex::new(0.0f32, 0.0); n / 2 + 1];
+        let hp = self.highpass;
+        whiten(&spec, n, fs, self.taper_ms, &psd, |f| highpass_gain(f, hp.0, hp.1), &mut out);
+        Ok(out)
+    }
+}
+
+/// Read and whiten one block (see [`Conditioner::whiten_block`]); plans
+/// afresh, so loops should build a [`Conditioner`] once instead.
+///
+/// # Errors
+/// Read errors of the source.
 pub fn read_and_whiten(
     src: &dyn SampleSource,
     i0: usize,
@@ -422,31 +484,7 @@ pub fn read_and_whiten(
     welch_n: usize,
     highpass: (f64, f64),
 ) -> Result<Vec<Complex<f32>>> {
-    let fs = src.rate_hz();
-    let mut x = vec![0.0f64; n];
-    src.read(i0, &mut x)?;
-    let psd = welch_median(&x, fs, welch_n, welch_n / 2)?;
-    let mean = x.iter().sum::<f64>() / n as f64;
-    let win = tukey(n, pad / 2);
-    let win_ms = win.iter().map(|w| w * w).sum::<f64>() / n as f64;
-    for (v, w) in x.iter_mut().zip(&win) {
-        *v = (*v - mean) * w;
-    }
-    let fft = realfft::RealFftPlanner::<f64>::new().plan_fft_forward(n);
-    let mut spec = fft.make_output_vec();
-    fft.process(&mut x, &mut spec)
-        .map_err(|e| anyhow!("FFT: {e}"))?;
-    let mut out = vec![Complex::new(0.0f32, 0.0); n / 2 + 1];
-    whiten(
-        &spec,
-        n,
-        fs,
-        win_ms,
-        &psd,
-        |f| highpass_gain(f, highpass.0, highpass.1),
-        &mut out,
-    );
-    Ok(out)
+    Conditioner::new(n, pad, welch_n, highpass)?.whiten_block(src, i0)
 }
 
 /// Scan one channel of a bundle (see [`scan_source`]).
