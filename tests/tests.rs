@@ -1,1 +1,4 @@
+//! Integration tests; one submodule per topic.
 
+/// Families clustering core against scikit-learn / Iris references.
+mod families_core;
