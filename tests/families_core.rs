@@ -182,7 +182,7 @@ fn gmm_matches_sklearn_on_blobs() {
         assert!((gk.bic(x.view()) - bics[k - 1]).abs() < 0.1, "k={k}");
     }
     // Auto-k picks the same k as sklearn's lowest BIC (k = 3).
-    let auto = fit_auto_k(x.view(), 5, &GmmParams::new(1, 0), 100_000).unwrap();
+    let auto = fit_auto_k(x.view(), 5, &GmmParams::new(1, 0), 100_000, false).unwrap();
     let sk_best = 1 + bics
         .iter()
         .enumerate()

@@ -2,3 +2,5 @@
 
 /// Families clustering core against scikit-learn / Iris references.
 mod families_core;
+/// Families in a catalogue: cluster, stable ids, labels, assignment.
+mod families_store;

@@ -11,8 +11,13 @@ use std::path::Path;
 /// Numbered migrations, applied in order; the schema version is
 /// `PRAGMA user_version` = number of migrations applied. Never edit a
 /// migration that has shipped: add a new one.
-pub const MIGRATIONS: &[(&str, &str)] =
-    &[("0001_init", include_str!("../../migrations/0001_init.sql"))];
+pub const MIGRATIONS: &[(&str, &str)] = &[
+    ("0001_init", include_str!("../../migrations/0001_init.sql")),
+    (
+        "0002_families",
+        include_str!("../../migrations/0002_families.sql"),
+    ),
+];
 
 /// Schema version this build writes.
 pub fn schema_version() -> i64 {

@@ -36,6 +36,9 @@ pub struct GmmParams {
     pub n_init: usize,
     /// Seed for the k-means initialisation.
     pub seed: u64,
+    /// Diagonal covariances (off-diagonal terms zero) instead of full.
+    #[serde(default)]
+    pub diagonal: bool,
 }
 
 impl GmmParams {
@@ -48,6 +51,7 @@ impl GmmParams {
             max_iter: 100,
             n_init: 1,
             seed,
+            diagonal: false,
         }
     }
 }
@@ -69,6 +73,9 @@ pub struct Gmm {
     pub mean_loglik: f64,
     /// Whether EM converged within `max_iter`.
     pub converged: bool,
+    /// Diagonal covariances (affects the parameter count of the BIC).
+    #[serde(default)]
+    pub diagonal: bool,
     /// EM iterations used (best initialisation).
     pub n_iter: usize,
 }
@@ -103,10 +110,15 @@ impl Gmm {
         self.weights.len()
     }
 
-    /// Number of free parameters (scikit-learn's `_n_parameters`, full).
+    /// Number of free parameters (scikit-learn's `_n_parameters`, full or diag).
     pub fn n_parameters(&self) -> usize {
         let (k, d) = (self.k(), self.dim);
-        k * d + k * d * (d + 1) / 2 + k - 1
+        let cov = if self.diagonal {
+            k * d
+        } else {
+            k * d * (d + 1) / 2
+        };
+        k * d + cov + k - 1
     }
 
     /// Bayesian information criterion on `x`: `-2 ln L + p ln n`.
@@ -214,7 +226,15 @@ impl Gmm {
     }
 
     /// M-step from responsibilities.
-    fn m_step(x: &[f64], n: usize, d: usize, k: usize, resp: &[f64], reg: f64) -> Result<Gmm> {
+    fn m_step(
+        x: &[f64],
+        n: usize,
+        d: usize,
+        k: usize,
+        resp: &[f64],
+        reg: f64,
+        diagonal: bool,
+    ) -> Result<Gmm> {
         const CHUNK: usize = 2048;
         // Per chunk: nk (k), sum r x (k d), sum r x x^T lower (k d d).
         let sz = k + k * d + k * d * d;
@@ -273,6 +293,9 @@ impl Gmm {
             let mut c = vec![0.0; d * d];
             for p in 0..d {
                 for q in 0..=p {
+                    if diagonal && q != p {
+                        continue;
+                    }
                     let v = acc[base + p * d + q] / nk - mu[p] * mu[q];
                     c[p * d + q] = v;
                     c[q * d + p] = v;
@@ -296,6 +319,7 @@ impl Gmm {
             mean_loglik: f64::NEG_INFINITY,
             converged: false,
             n_iter: 0,
+            diagonal,
         })
     }
 
@@ -322,7 +346,7 @@ impl Gmm {
             for (i, &l) in labels.iter().enumerate() {
                 resp[i * p.k + l] = 1.0;
             }
-            let mut g = Gmm::m_step(data, n, d, p.k, &resp, p.reg_covar)?;
+            let mut g = Gmm::m_step(data, n, d, p.k, &resp, p.reg_covar, p.diagonal)?;
             let mut prev = f64::NEG_INFINITY;
             for it in 1..=p.max_iter {
                 let (r, ll) = g.e_step(x, true);
@@ -334,7 +358,7 @@ impl Gmm {
                     break;
                 }
                 prev = lb;
-                let mut g2 = Gmm::m_step(data, n, d, p.k, &r, p.reg_covar)?;
+                let mut g2 = Gmm::m_step(data, n, d, p.k, &r, p.reg_covar, p.diagonal)?;
                 g2.n_iter = it;
                 g = g2;
             }
@@ -377,12 +401,17 @@ pub struct AutoK {
 
 /// Fit `k = 1..=k_max` and keep the lowest BIC. When `x` has more than
 /// `select_rows` rows, the choice of `k` is made on a seeded random subset
-/// of that size and the chosen `k` is then refitted on all rows.
+/// of that size. With `select_diagonal`, k is chosen among diagonal-covariance
+/// mixtures (k·2d parameters instead of k·d(d+3)/2, so BIC does not starve
+/// k when rows are few for 24 dimensions). Whenever the selection differed
+/// from `base` (subset or covariance type), the chosen k is refitted on all
+/// rows with `base`'s covariance type.
 pub fn fit_auto_k(
     x: ArrayView2<f64>,
     k_max: usize,
     base: &GmmParams,
     select_rows: usize,
+    select_diagonal: bool,
 ) -> Result<AutoK> {
     let n = x.nrows();
     let sub: Option<Array2<f64>> = (n > select_rows)
@@ -394,7 +423,11 @@ pub fn fit_auto_k(
     let mut bic = Vec::new();
     let mut best: Option<(f64, Gmm)> = None;
     for k in 1..=k_max.min(xs.nrows()) {
-        let p = GmmParams { k, ..*base };
+        let p = GmmParams {
+            k,
+            diagonal: select_diagonal || base.diagonal,
+            ..*base
+        };
         let g = match Gmm::fit(xs, &p) {
             Ok(g) => g,
             Err(_) if k > 1 => break, // too many components for the data
@@ -407,7 +440,7 @@ pub fn fit_auto_k(
         }
     }
     let (_, mut g) = best.expect("k = 1 always fits");
-    if n > select_rows {
+    if n > select_rows || g.diagonal != base.diagonal {
         g = Gmm::fit(x, &GmmParams { k: g.k(), ..*base })?;
     }
     Ok(AutoK { best: g, bic })

@@ -6,7 +6,16 @@
 //! ([`gmm`]) → stable ids by Hungarian assignment on member overlap
 //! ([`hungarian`]) → stored in the catalogue with labels and history.
 
+pub mod features;
 pub mod gmm;
 pub mod hungarian;
 pub mod metrics;
 pub mod pca;
+pub mod store;
+
+pub use features::{fingerprint, EnergyMapSource, Fingerprint, SineGaussian, SineGaussianSource};
+pub use store::{
+    assign_new, cluster_catalogue, compute_features, default_author, label, label_history,
+    list_families, AssignReport, ClusterParams, ClusterReport, FamilyEvent, FamilyModel,
+    FamilySummary,
+};
