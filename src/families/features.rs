@@ -213,7 +213,7 @@ pub fn f32_to_blob(v: &[f32]) -> Vec<u8> {
 /// # Errors
 /// A length that is not a multiple of 4.
 pub fn blob_to_f32(b: &[u8]) -> Result<Vec<f32>> {
-    if b.len() % 4 != 0 {
+    if !b.len().is_multiple_of(4) {
         bail!(
             "feature BLOB of {} bytes is not a whole number of f32",
             b.len()

@@ -131,7 +131,7 @@ impl Gmm {
     /// Per-component `ln w_j + ln N(x | mu_j, Sigma_j)` for one row.
     fn weighted_log_probs(&self, row: &[f64], out: &mut [f64], y: &mut [f64]) {
         let d = self.dim;
-        for j in 0..self.k() {
+        for (j, o) in out.iter_mut().enumerate().take(self.k()) {
             let l = &self.chol[j];
             let mu = &self.means[j];
             let mut maha = 0.0;
@@ -147,7 +147,7 @@ impl Gmm {
                 maha += y[a] * y[a];
                 log_det_half += diag.ln();
             }
-            out[j] = self.weights[j].ln() - 0.5 * (d as f64 * LN_2PI + maha) - log_det_half;
+            *o = self.weights[j].ln() - 0.5 * (d as f64 * LN_2PI + maha) - log_det_half;
         }
     }
 

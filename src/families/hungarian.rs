@@ -71,8 +71,7 @@ pub fn assign(cost: &[Vec<f64>]) -> Vec<Option<usize>> {
         }
     }
     let mut out = vec![None; rows];
-    for j in 1..=n {
-        let i = p[j];
+    for (j, &i) in p.iter().enumerate().skip(1) {
         if i >= 1 && i <= rows && j <= cols {
             out[i - 1] = Some(j - 1);
         }

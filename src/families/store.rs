@@ -84,6 +84,9 @@ pub struct FamilyModel {
     pub component_family: Vec<i64>,
 }
 
+/// Stored fingerprints as (maps, scalars) per trigger.
+pub type Fingerprints = Vec<(Vec<f32>, Vec<f32>)>;
+
 /// Pooled map length: each 16 × 16 map averaged over 2 × 2 cells.
 const POOLED_LEN: usize = SPANS_S.len() * (N_TIMES / 2) * (N_FREQS / 2);
 
@@ -282,7 +285,7 @@ fn ensure_features(
     tx: &Transaction,
     rows: &[Row],
     src: &dyn EnergyMapSource,
-) -> Result<(Vec<(Vec<f32>, Vec<f32>)>, usize)> {
+) -> Result<(Fingerprints, usize)> {
     let mut have: Vec<Option<(Vec<f32>, Vec<f32>)>> = Vec::with_capacity(rows.len());
     {
         let mut st =
@@ -304,7 +307,8 @@ fn ensure_features(
         }
     }
     let todo: Vec<usize> = (0..rows.len()).filter(|&i| have[i].is_none()).collect();
-    let computed: Vec<Result<(usize, Vec<f32>, Vec<f32>)>> = todo
+    type Computed = Result<(usize, Vec<f32>, Vec<f32>)>;
+    let computed: Vec<Computed> = todo
         .par_iter()
         .map(|&i| {
             let fp = fingerprint(&rows[i].trig, &rows[i].channel, src)
@@ -443,7 +447,7 @@ pub fn fit_model(
             pm[[r, j]] = v;
         }
     }
-    let nc = p.n_map_components.min(idx.len() - 1).min(POOLED_LEN).max(1);
+    let nc = p.n_map_components.min(idx.len() - 1).clamp(1, POOLED_LEN);
     let map_pca = PcaModel::fit(pm.view(), nc)?;
     let map_scale = map_pca.explained_variance[0].sqrt().max(1e-12);
     let mut model = FamilyModel {
