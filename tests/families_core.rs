@@ -148,11 +148,8 @@ fn gmm_matches_sklearn_on_blobs() {
         assert!((fit.weights[j] - weights[r]).abs() < 1e-3);
         for a in 0..2 {
             assert!((fit.means[j][a] - means[[r, a]]).abs() < 1e-3, "means");
-            for b in 0..2 {
-                assert!(
-                    (fit.covariances[j][a * 2 + b] - covs[r][a][b]).abs() < 1e-3,
-                    "cov"
-                );
+            for (b, want) in covs[r][a].iter().enumerate() {
+                assert!((fit.covariances[j][a * 2 + b] - want).abs() < 1e-3, "cov");
             }
         }
     }
