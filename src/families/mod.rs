@@ -19,3 +19,5 @@ pub use store::{
     list_families, AssignReport, ClusterParams, ClusterReport, FamilyEvent, FamilyModel,
     FamilySummary,
 };
+pub mod thumbnail;
+pub use thumbnail::render_thumbnail;
