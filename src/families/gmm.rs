@@ -373,20 +373,33 @@ impl Gmm {
     }
 }
 
-/// k-means labels (linfa-clustering, k-means++ initialisation, one seeded run).
+/// Rows used to fit the k-means initialisation (larger inputs use a seeded
+/// subset; every row then takes its nearest centroid).
+pub const KMEANS_INIT_ROWS: usize = 10_000;
+
+/// k-means labels (linfa-clustering, k-means++ initialisation, one seeded
+/// run, fitted on at most [`KMEANS_INIT_ROWS`] rows).
 pub fn kmeans_labels(x: ArrayView2<f64>, k: usize, seed: u64) -> Result<Vec<usize>> {
     if k == 1 {
         return Ok(vec![0; x.nrows()]);
     }
     let rng = Xoshiro256Plus::seed_from_u64(seed);
-    let ds = DatasetBase::from(x.to_owned());
+    let fit_rows = if x.nrows() > KMEANS_INIT_ROWS {
+        x.select(
+            ndarray::Axis(0),
+            &seeded_subset(x.nrows(), KMEANS_INIT_ROWS, seed),
+        )
+    } else {
+        x.to_owned()
+    };
+    let ds = DatasetBase::from(fit_rows);
     let model = KMeans::params_with_rng(k, rng)
         .n_runs(1)
         .max_n_iterations(100)
         .tolerance(1e-4)
         .fit(&ds)?;
     use linfa::traits::Predict;
-    let labels = model.predict(ds.records());
+    let labels = model.predict(&x.to_owned());
     Ok(labels.to_vec())
 }
 
