@@ -270,6 +270,19 @@ fn cluster_recluster_label_assign() {
         .any(|(r, e)| *r == rep2.run_id && e.kind == "kept"));
     let (ari2, dom2) = ari_and_dominance(&conn, &w);
     assert!(ari2 >= 0.8 && dom2 >= 0.85, "ARI {ari2} dom {dom2}");
+
+    // Fingerprints of another feature version are recomputed, others kept.
+    conn.execute("UPDATE features SET version = 0 WHERE trigger_id IN (SELECT trigger_id FROM features LIMIT 3)", [])
+        .unwrap();
+    assert_eq!(compute_features(&mut conn, 7.0, &w.src).unwrap(), 3);
+    assert_eq!(compute_features(&mut conn, 7.0, &w.src).unwrap(), 0);
+
+    // Thumbnails of representative members.
+    let out = dir.path().join("thumbs");
+    let written = render_family_thumbnails(&conn, &w.src, &out, 2).unwrap();
+    assert_eq!(written.len(), 2 * fams2.iter().filter(|f| !f.novel).count());
+    assert!(image::open(&written[0]).is_ok());
+    assert!(render_trigger_thumbnail(&conn, 999_999, &w.src, &out.join("x.png")).is_err());
 }
 
 #[test]

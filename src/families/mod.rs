@@ -19,5 +19,6 @@ pub use store::{
     list_families, AssignReport, ClusterParams, ClusterReport, FamilyEvent, FamilyModel,
     FamilySummary,
 };
+pub use store::{render_family_thumbnails, render_trigger_thumbnail};
 pub mod thumbnail;
 pub use thumbnail::render_thumbnail;

@@ -986,3 +986,123 @@ pub fn family_member_ids(conn: &Connection, family: i64, limit: usize) -> Result
         .collect::<rusqlite::Result<_>>()?;
     Ok(v)
 }
+
+/// Write a PNG thumbnail (1 s map, see [`super::thumbnail`]) of one target
+/// trigger to `path`, from its stored fingerprint or, if missing, from `src`.
+///
+/// # Errors
+/// Unknown trigger id, or the map cannot be computed or written.
+pub fn render_trigger_thumbnail(
+    conn: &Connection,
+    trigger_id: i64,
+    src: &dyn EnergyMapSource,
+    path: &std::path::Path,
+) -> Result<()> {
+    let stored: Option<(i64, Vec<u8>)> = conn
+        .query_row(
+            "SELECT version, maps FROM features WHERE trigger_id = ?1",
+            [trigger_id],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .optional()?;
+    let maps = match stored {
+        Some((v, m)) if v == FEATURE_VERSION => blob_to_f32(&m)?,
+        _ => {
+            let row: Option<Row> = {
+                let mut st = conn.prepare(
+                    "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
+                     t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id WHERE t.id = ?1",
+                )?;
+                st.query_row([trigger_id], |r| {
+                    Ok(Row {
+                        id: r.get(0)?,
+                        channel: r.get(1)?,
+                        trig: Trigger {
+                            t_peak: from_ns(r.get(2)?),
+                            t_start: from_ns(r.get(3)?),
+                            t_end: from_ns(r.get(4)?),
+                            f_peak: r.get(5)?,
+                            f_low: r.get(6)?,
+                            f_high: r.get(7)?,
+                            snr: r.get(8)?,
+                            q: r.get::<_, Option<f64>>(9)?.unwrap_or(f64::NAN),
+                            energy: r.get(10)?,
+                        },
+                    })
+                })
+                .optional()?
+            };
+            let Some(row) = row else {
+                bail!("thumbnail: no trigger with id {trigger_id}");
+            };
+            fingerprint(&row.trig, &row.channel, src)
+                .with_context(|| format!("fingerprint of trigger {}", row.id))?
+                .maps
+        }
+    };
+    if maps.len() != SPANS_S.len() * MAP_LEN {
+        bail!(
+            "thumbnail: stored maps of trigger {trigger_id} have {} values",
+            maps.len()
+        );
+    }
+    super::thumbnail::render_thumbnail(&maps[MAP_LEN..2 * MAP_LEN], N_TIMES, N_FREQS, path)
+}
+
+/// Thumbnails of up to `per_family` representative members (most probable
+/// first) of every active family, written as
+/// `dir/family_<id>_trigger_<trigger id>.png`. Returns the paths written.
+pub fn render_family_thumbnails(
+    conn: &Connection,
+    src: &dyn EnergyMapSource,
+    dir: &std::path::Path,
+    per_family: usize,
+) -> Result<Vec<std::path::PathBuf>> {
+    std::fs::create_dir_all(dir).with_context(|| format!("creating {}", dir.display()))?;
+    let mut out = Vec::new();
+    for f in list_families(conn)?.iter().filter(|f| !f.novel) {
+        for t in family_member_ids(conn, f.id, per_family)? {
+            let p = dir.join(format!("family_{}_trigger_{t}.png", f.id));
+            render_trigger_thumbnail(conn, t, src, &p)?;
+            out.push(p);
+        }
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn groups_join_overlapping_components_only() {
+        // Components 0 and 1 share ambiguous rows; 2 is cleanly separate.
+        let resp = [
+            1.0, 0.0, 0.0, //
+            0.5, 0.5, 0.0, //
+            0.4, 0.6, 0.0, //
+            0.0, 1.0, 0.0, //
+            0.0, 0.0, 1.0, //
+            0.0, 0.0, 1.0,
+        ];
+        assert_eq!(component_groups(&resp, 3, 0.02), vec![0, 0, 1]);
+        // A high threshold keeps them apart.
+        assert_eq!(component_groups(&resp, 3, 0.9), vec![0, 1, 2]);
+        let (g, n) = group_resp(&resp, 3, &[0, 0, 1]);
+        assert_eq!(n, 2);
+        assert_eq!(&g[2..4], &[1.0, 0.0]);
+    }
+
+    #[test]
+    fn quantile_interpolates() {
+        // NumPy 2.4.6 np.quantile([1, 2, 3, 4], 0.25) = 1.75 (linear method).
+        assert!((quantile(&[4.0, 1.0, 3.0, 2.0], 0.25) - 1.75).abs() < 1e-12);
+    }
+
+    #[test]
+    fn utc_format() {
+        let s = now_utc();
+        assert_eq!(s.len(), 20);
+        assert!(s.starts_with("20") && s.ends_with('Z'));
+    }
+}
