@@ -106,6 +106,13 @@ fn main() {
         auto.best.k()
     );
 
+    let (resp, _) = auto.best.predict_proba(x.view());
+    let groups = glitchbook::families::store::component_groups(&resp, auto.best.k(), 0.02);
+    println!(
+        "  components grouped into families (overlap ≥ 0.02): {}",
+        groups.iter().max().map_or(0, |m| m + 1)
+    );
+
     // PCA of the pooled maps (20,000 × 256 subset), part of the same step.
     let m = blobs(20_000, 256, 8, 3);
     let t0 = Instant::now();

@@ -5,6 +5,23 @@
 //! ([`pca`]) → Gaussian mixture with the number of families chosen by BIC
 //! ([`gmm`]) → stable ids by Hungarian assignment on member overlap
 //! ([`hungarian`]) → stored in the catalogue with labels and history.
+//!
+//! Typical calls (CLI wiring lives elsewhere):
+//! - `cluster`: [`cluster_catalogue`]`(&mut conn, &ClusterParams { seed, min_snr, ..Default::default() }, &src)`
+//!   → [`ClusterReport`] (one transaction; fingerprints computed as needed).
+//! - `assign`: [`assign_new`]`(&mut conn, &src)` places unclustered triggers with
+//!   the stored model (no refit); far ones become novel.
+//! - `families`: [`list_families`]`(&conn)` → `Vec<`[`FamilySummary`]`>`
+//!   (serde; the novel candidate group comes last with `id` 0, `novel` true).
+//! - `label`: [`label`]`(&mut conn, id, name, note, &`[`default_author`]`())`.
+//! - images: [`render_trigger_thumbnail`], [`render_family_thumbnails`].
+//!
+//! Clustering vector (24 dims): 15 PCA scores of the pooled ln Z maps
+//! (scaled by the first axis' standard deviation) + 9 standardised scalars.
+//! k is chosen by the BIC of full-covariance mixtures (on ≤ 20,000 rows),
+//! then mixture components whose memberships overlap are grouped into one
+//! family ([`store::component_groups`]). Novelty: log-likelihood below the
+//! 0.5 % quantile of the fit data's.
 
 pub mod features;
 pub mod gmm;
