@@ -20,3 +20,8 @@ mod rates_blocks;
 pub mod rates_catalogue;
 mod rates_limits;
 mod report_html;
+
+/// Families clustering core against scikit-learn / Iris references.
+mod families_core;
+/// Families in a catalogue: cluster, stable ids, labels, assignment.
+mod families_store;

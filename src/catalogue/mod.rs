@@ -14,6 +14,8 @@ use std::path::Path;
 pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0001_init", include_str!("../../migrations/0001_init.sql")),
     (
+        "0002_families",
+        include_str!("../../migrations/0002_families.sql"),
         "0003_coupling",
         include_str!("../../migrations/0003_coupling.sql"),
     ),

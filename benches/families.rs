@@ -1,0 +1,125 @@
+//! Families performance figures (prints them; harness = false).
+//! Targets from the brief: one GMM fit (k = 8, full covariance) on
+//! 100,000 × 24 standardised features ≤ 5 s; auto-k clustering of 100,000
+//! triggers (features precomputed) ≤ 30 s; fingerprints ≥ 2,000 triggers/s.
+//! Run: `cargo bench --bench families` (short: a few tens of seconds).
+
+use glitchbook::families::features::{fingerprint, SineGaussian, SineGaussianSource};
+use glitchbook::families::gmm::{fit_auto_k, Gmm, GmmParams};
+use glitchbook::families::pca::PcaModel;
+use glitchbook::trigger::Trigger;
+use ndarray::Array2;
+use rand::{Rng, SeedableRng};
+use rand_distr::{Distribution, StandardNormal};
+use rayon::prelude::*;
+use std::time::Instant;
+
+/// `n × d` standardised blob data with `k` centres (seeded).
+fn blobs(n: usize, d: usize, k: usize, seed: u64) -> Array2<f64> {
+    let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(seed);
+    let centres: Vec<Vec<f64>> = (0..k)
+        .map(|_| (0..d).map(|_| rng.gen_range(-4.0..4.0)).collect())
+        .collect();
+    let mut x = Array2::zeros((n, d));
+    for i in 0..n {
+        let c = &centres[i % k];
+        for j in 0..d {
+            let z: f64 = StandardNormal.sample(&mut rng);
+            x[[i, j]] = c[j] + z;
+        }
+    }
+    // Standardise.
+    let s = glitchbook::families::pca::Scaler::fit(x.view());
+    s.apply(&mut x);
+    x
+}
+
+fn main() {
+    println!(
+        "families bench ({} rayon threads)",
+        rayon::current_num_threads()
+    );
+
+    // Fingerprints.
+    let n_fp = 4000;
+    let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(1);
+    let mut src = SineGaussianSource {
+        events: vec![],
+        noise: true,
+    };
+    let trigs: Vec<Trigger> = (0..n_fp)
+        .map(|i| {
+            let t = 1.0e9 + 20.0 * i as f64;
+            let f = rng.gen_range(30.0..1500.0);
+            let q = rng.gen_range(3.0..30.0);
+            src.events.push((
+                "B:S".into(),
+                SineGaussian {
+                    t0_gps: t,
+                    f0_hz: f,
+                    q,
+                    snr: 12.0,
+                    drift_hz_per_s: 0.0,
+                },
+            ));
+            Trigger {
+                t_peak: t,
+                t_start: t - 0.05,
+                t_end: t + 0.05,
+                f_peak: f,
+                f_low: 0.8 * f,
+                f_high: 1.2 * f,
+                snr: 12.0,
+                q,
+                energy: 73.0,
+            }
+        })
+        .collect();
+    let t0 = Instant::now();
+    let n_ok = trigs
+        .par_iter()
+        .filter(|t| fingerprint(t, "B:S", &src).is_ok())
+        .count();
+    let dt = t0.elapsed().as_secs_f64();
+    println!(
+        "fingerprint: {n_ok} triggers in {dt:.3} s = {:.0} triggers/s (synthetic source; target ≥ 2,000/s; the real Q-transform source will dominate)",
+        n_ok as f64 / dt
+    );
+
+    // One GMM fit, k = 8, full covariance, 100,000 × 24.
+    let x = blobs(100_000, 24, 8, 2);
+    let t0 = Instant::now();
+    let g = Gmm::fit(x.view(), &GmmParams::new(8, 0)).unwrap();
+    println!(
+        "GMM fit k=8 full 100000x24: {:.2} s ({} EM iterations, converged {}; target ≤ 5 s)",
+        t0.elapsed().as_secs_f64(),
+        g.n_iter,
+        g.converged
+    );
+
+    // Auto-k (1..=12, BIC on a 20,000-row subset, refit on all rows).
+    let t0 = Instant::now();
+    let auto = fit_auto_k(x.view(), 12, &GmmParams::new(1, 0), 20_000, false).unwrap();
+    println!(
+        "auto-k GMM/BIC k=1..12 on 100000x24: {:.2} s, chose k = {} (truth 8; target ≤ 30 s with PCA below)",
+        t0.elapsed().as_secs_f64(),
+        auto.best.k()
+    );
+
+    let (resp, _) = auto.best.predict_proba(x.view());
+    let groups = glitchbook::families::store::component_groups(&resp, auto.best.k(), 0.02);
+    println!(
+        "  components grouped into families (overlap ≥ 0.02): {}",
+        groups.iter().max().map_or(0, |m| m + 1)
+    );
+
+    // PCA of the pooled maps (20,000 × 256 subset), part of the same step.
+    let m = blobs(20_000, 256, 8, 3);
+    let t0 = Instant::now();
+    let p = PcaModel::fit(m.view(), 15).unwrap();
+    println!(
+        "PCA 20000x256 -> 15: {:.2} s (first ratio {:.3})",
+        t0.elapsed().as_secs_f64(),
+        p.explained_variance_ratio[0]
+    );
+}
