@@ -7,6 +7,7 @@
 
 pub mod catalogue;
 pub mod condition;
+pub mod demo;
 pub mod io;
 pub mod scan;
 pub mod segments;
