@@ -1,1 +1,1 @@
-
+mod demo_scenario;
