@@ -201,6 +201,7 @@ fn snr_normalisation_matches_narrow_band_formula() {
         let snr = 20.0;
         let a = amplitude_for_snr(snr, fs, f0, q, 0.4, &target_psd);
         let analytic = (2.0 / target_psd(f0) * sine_gaussian_energy(a, f0, q)).sqrt();
+        eprintln!("f0 {f0} Q {q}: A {a:e}, narrow-band rho {analytic}");
         assert!(
             (analytic / snr - 1.0).abs() < 0.05,
             "f0 {f0} Q {q}: numerical ρ {snr} vs narrow-band {analytic}"
@@ -252,6 +253,7 @@ fn injected_snr_is_recovered_in_model_noise() {
         .collect();
     let mean = stats.iter().sum::<f64>() / stats.len() as f64;
     let sd = (stats.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / 23.0).sqrt();
+    eprintln!("recovered SNR: mean {mean}, sd {sd}");
     assert!((mean - rho).abs() < 4.0 / 24f64.sqrt(), "mean {mean}");
     assert!(sd > 0.5 && sd < 1.6, "sd {sd}");
 }
@@ -288,6 +290,7 @@ fn pure_noise_psd_matches_model() {
     for &(lo, hi) in &[(20.0, 40.0), (60.0, 95.0), (200.0, 480.0), (700.0, 1800.0)] {
         let (r, nbins, nseg) = band_ratio(&x, lo, hi);
         let sigma = 1.5 / (std::f64::consts::LN_2 * ((nseg * nbins) as f64).sqrt());
+        eprintln!("pure noise band {lo}-{hi}: ratio {r}, sigma {sigma}");
         assert!(
             (r - 1.0).abs() < 5.0 * sigma + 0.005,
             "band {lo}-{hi} Hz: measured/model = {r} (σ {sigma})"
@@ -320,6 +323,7 @@ fn target_file_psd_and_amplitude() {
     // Time-domain amplitude of order 1e-21.
     let mean = run.iter().sum::<f64>() / run.len() as f64;
     let sd = (run.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / run.len() as f64).sqrt();
+    eprintln!("strain std {sd:e}");
     assert!(sd > 1e-22 && sd < 1e-19, "strain std {sd}");
     // The model variance ∫S df (trapezoid, 0.01 Hz steps) predicts the std:
     // the sample std over ~10^5 correlated samples agrees within 15%
@@ -336,10 +340,17 @@ fn target_file_psd_and_amplitude() {
     // them): within 5% of the model in line-free bands.
     for &(lo, hi) in &[(60.0, 95.0), (200.0, 480.0), (700.0, 1800.0)] {
         let (r, _, _) = band_ratio(run, lo, hi);
+        eprintln!("file band {lo}-{hi}: ratio {r}");
         assert!((r - 1.0).abs() < 0.05, "band {lo}-{hi} Hz: {r}");
     }
     // The 503.2 Hz line stands far above the floor.
     let psd = welch_median(run, TARGET_RATE_HZ, 4096, 2048).unwrap();
+    eprintln!(
+        "line ratios 503: {}, 50: {}; model std {:e}",
+        psd.at(503.0) / target_psd_smooth(503.0),
+        psd.at(50.0) / target_psd_smooth(50.0),
+        var.sqrt()
+    );
     assert!(psd.at(503.0) / target_psd_smooth(503.0) > 50.0);
     assert!(psd.at(50.0) / target_psd_smooth(50.0) > 50.0);
 }
@@ -428,6 +439,7 @@ fn witness_fractions_follow_the_design() {
         let f = s.families.iter().find(|f| f.name == fam).unwrap();
         let n = f.n_injected as f64;
         let frac = f.n_witnessed as f64 / n;
+        eprintln!("{fam}: {} of {n} witnessed", f.n_witnessed);
         let sigma = (p * (1.0 - p) / n).sqrt();
         assert!((frac - p).abs() < 4.0 * sigma, "{fam}: {frac} of {n}");
     }
