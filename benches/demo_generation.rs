@@ -19,7 +19,10 @@ fn main() -> anyhow::Result<()> {
     let s = write_scenario(dir.path(), &DemoOptions { seed: 1, hours })?;
     let wall = t.elapsed().as_secs_f64();
     let bytes: u64 = std::fs::read_dir(dir.path())?
-        .map(|e| e.map(|e| e.metadata().map(|m| m.len()).unwrap_or(0)).unwrap_or(0))
+        .map(|e| {
+            e.map(|e| e.metadata().map(|m| m.len()).unwrap_or(0))
+                .unwrap_or(0)
+        })
         .sum();
     println!(
         "demo {hours} h: {wall:.2} s wall ({} rayon threads), peak RSS {:.0} MiB, {:.0} MB written",
@@ -28,7 +31,10 @@ fn main() -> anyhow::Result<()> {
         bytes as f64 / 1e6
     );
     for f in &s.families {
-        println!("  {:<7} {:>4} injected, {:>4} witnessed", f.name, f.n_injected, f.n_witnessed);
+        println!(
+            "  {:<7} {:>4} injected, {:>4} witnessed",
+            f.name, f.n_injected, f.n_witnessed
+        );
     }
     Ok(())
 }
