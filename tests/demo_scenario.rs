@@ -434,7 +434,16 @@ fn witness_fractions_follow_the_design() {
         },
     )
     .unwrap();
+    let truth = read_truth(&s.truth_csv).unwrap();
     std::fs::remove_dir_all(&s.dir).unwrap();
+    // SNR law: 97% from p(ρ) ∝ ρ⁻³ on [6, 60], 3% on [60, 300], so
+    // P(ρ > 12) = 0.97 (12⁻² − 60⁻²)/(6⁻² − 60⁻²) + 0.03 = 0.97·0.2424 + 0.03.
+    let p12 = 0.97 * (12f64.powi(-2) - 60f64.powi(-2)) / (6f64.powi(-2) - 60f64.powi(-2)) + 0.03;
+    let n = truth.len() as f64;
+    let frac12 = truth.iter().filter(|g| g.snr_target > 12.0).count() as f64 / n;
+    eprintln!("P(rho > 12): {frac12} of {n} (expected {p12})");
+    assert!((frac12 - p12).abs() < 4.0 * (p12 * (1.0 - p12) / n).sqrt());
+    assert!(truth.iter().all(|g| g.snr_target >= 6.0));
     for (fam, p) in [("drum", 0.9), ("kettle", 0.8), ("moth", 0.85)] {
         let f = s.families.iter().find(|f| f.name == fam).unwrap();
         let n = f.n_injected as f64;
