@@ -5,7 +5,7 @@
 //! Run: `cargo bench --bench scan_throughput` (set GLITCHBOOK_BENCH_SECONDS
 //! to change the span, default 3600).
 
-use glitchbook::scan::{resolve_params, Conditioner, scan_source, InMemory, ScanParams};
+use glitchbook::scan::{resolve_params, scan_source, Conditioner, InMemory, ScanParams};
 use glitchbook::tf::{QPlan, Tiling};
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
@@ -25,7 +25,11 @@ fn main() {
             1e-21 * z
         })
         .collect();
-    let src = InMemory { data, rate_hz: fs, start_gps: 1_400_000_000.0 };
+    let src = InMemory {
+        data,
+        rate_hz: fs,
+        start_gps: 1_400_000_000.0,
+    };
     let params = ScanParams {
         fmin: Some(16.0),
         fmax: Some(1024.0),
@@ -44,8 +48,21 @@ fn main() {
     let block_n = (rp.block_s * fs) as usize;
     let step = block_n - 2 * (rp.pad_s * fs) as usize;
     let n_blocks = (n - block_n).div_ceil(step) + 1;
-    let tiling = Tiling { fmin: 16.0, fmax: 1024.0, qmin: 4.0, qmax: 64.0, mismatch: 0.2 };
-    let plan = QPlan::new(fs, block_n, &tiling, (8.0, 14.4), &mut rustfft::FftPlanner::new()).unwrap();
+    let tiling = Tiling {
+        fmin: 16.0,
+        fmax: 1024.0,
+        qmin: 4.0,
+        qmax: 64.0,
+        mismatch: 0.2,
+    };
+    let plan = QPlan::new(
+        fs,
+        block_n,
+        &tiling,
+        (8.0, 14.4),
+        &mut rustfft::FftPlanner::new(),
+    )
+    .unwrap();
     let mut ws = plan.workspace();
     let t = Instant::now();
     for _ in 0..n_blocks {
@@ -74,7 +91,10 @@ fn main() {
     println!("  conditioning only (1 thread): {cond_s:.2} s");
 
     let run = |threads: usize| -> (f64, usize) {
-        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
         pool.install(|| {
             let t = Instant::now();
             let (_, _, trig, _) = scan_source(&src, &params, (None, None), None, &|_| {}).unwrap();

@@ -99,7 +99,13 @@ impl Welch {
         let win = hann_periodic(nperseg);
         let win_ss = win.iter().map(|w| w * w).sum();
         let fft = RealFftPlanner::<f64>::new().plan_fft_forward(nperseg);
-        Ok(Welch { nperseg, noverlap, win, win_ss, fft })
+        Ok(Welch {
+            nperseg,
+            noverlap,
+            win,
+            win_ss,
+            fft,
+        })
     }
 
     /// The median-averaged PSD of `x` sampled at `fs_hz`.
@@ -109,7 +115,10 @@ impl Welch {
     pub fn estimate(&self, x: &[f64], fs_hz: f64) -> Result<Psd> {
         let nperseg = self.nperseg;
         if x.len() < nperseg {
-            bail!("Welch: {} samples is shorter than one segment of {nperseg}", x.len());
+            bail!(
+                "Welch: {} samples is shorter than one segment of {nperseg}",
+                x.len()
+            );
         }
         let step = nperseg - self.noverlap;
         let nseg = (x.len() - nperseg) / step + 1;
@@ -146,7 +155,10 @@ impl Welch {
                 median(vals) * scale * one_sided / bias
             })
             .collect();
-        Ok(Psd { df_hz: fs_hz / nperseg as f64, density })
+        Ok(Psd {
+            df_hz: fs_hz / nperseg as f64,
+            density,
+        })
     }
 }
 

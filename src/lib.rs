@@ -8,6 +8,7 @@
 pub mod catalogue;
 pub mod condition;
 pub mod coupling;
+pub mod demo;
 pub mod families;
 pub mod io;
 pub mod rates;

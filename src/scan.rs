@@ -463,10 +463,20 @@ impl Conditioner {
             *v = (*v - mean) * w;
         }
         let mut spec = self.fft.make_output_vec();
-        self.fft.process(&mut x, &mut spec).map_err(|e| anyhow!("FFT: {e}"))?;
+        self.fft
+            .process(&mut x, &mut spec)
+            .map_err(|e| anyhow!("FFT: {e}"))?;
         let mut out = vec![Complex::new(0.0f32, 0.0); n / 2 + 1];
         let hp = self.highpass;
-        whiten(&spec, n, fs, self.taper_ms, &psd, |f| highpass_gain(f, hp.0, hp.1), &mut out);
+        whiten(
+            &spec,
+            n,
+            fs,
+            self.taper_ms,
+            &psd,
+            |f| highpass_gain(f, hp.0, hp.1),
+            &mut out,
+        );
         Ok(out)
     }
 }

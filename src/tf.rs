@@ -140,7 +140,9 @@ impl Row {
             return None;
         }
         let dtau = step * q / (2.0 * std::f64::consts::PI * f_hz);
-        let n_t = ((t_block / dtau).ceil() as usize).max(window.len()).next_power_of_two();
+        let n_t = ((t_block / dtau).ceil() as usize)
+            .max(window.len())
+            .next_power_of_two();
         Some(Row {
             f_hz,
             bin_lo: lo,

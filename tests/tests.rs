@@ -21,6 +21,7 @@ pub mod rates_catalogue;
 mod rates_limits;
 mod report_html;
 
+mod demo_scenario;
 /// Families clustering core against scikit-learn / Iris references.
 mod families_core;
 /// Families in a catalogue: cluster, stable ids, labels, assignment.

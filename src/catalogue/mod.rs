@@ -16,6 +16,8 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     (
         "0002_families",
         include_str!("../../migrations/0002_families.sql"),
+    ),
+    (
         "0003_coupling",
         include_str!("../../migrations/0003_coupling.sql"),
     ),
