@@ -8,6 +8,20 @@ use anyhow::{bail, Context, Result};
 use rusqlite::Connection;
 use std::path::Path;
 
+mod check;
+mod query;
+mod write;
+
+pub use check::{check, logical_checksum, table_counts, CheckItem, CheckReport};
+pub use query::{
+    analysed_segments, channel_by_name, channels, query_triggers, ChannelRow, TriggerQuery,
+    TriggerRow,
+};
+pub use write::{
+    import_triggers, insert_channel_scan, insert_scan, run_key, upsert_channel, ImportRecord,
+    InsertOutcome, ScanKind, ScanRecord,
+};
+
 /// Numbered migrations, applied in order; the schema version is
 /// `PRAGMA user_version` = number of migrations applied. Never edit a
 /// migration that has shipped: add a new one.
@@ -64,9 +78,28 @@ pub fn open(path: &Path) -> Result<Connection> {
     Ok(conn)
 }
 
+/// Open an existing catalogue (as [`open`]), refusing to create a new one.
+///
+/// # Errors
+/// No file at `path`, or any error of [`open`].
+pub fn open_existing(path: &Path) -> Result<Connection> {
+    if !path.exists() {
+        bail!(
+            "{}: no catalogue here (run `glitchbook scan` or `glitchbook import` first, or pass --db)",
+            path.display()
+        );
+    }
+    open(path)
+}
+
 /// Apply every pending migration and the version bump in one immediate
-/// transaction (so two processes cannot both migrate).
+/// transaction (so two processes cannot both migrate). An up-to-date
+/// catalogue takes no write lock, so readers never wait for a writer here.
 fn migrate(conn: &mut Connection) -> Result<()> {
+    let current: i64 = conn.query_row("PRAGMA user_version", [], |r| r.get(0))?;
+    if current >= schema_version() {
+        return Ok(());
+    }
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let version: i64 = tx.query_row("PRAGMA user_version", [], |r| r.get(0))?;
     for (i, (name, sql)) in MIGRATIONS.iter().enumerate().skip(version.max(0) as usize) {
@@ -112,3 +145,6 @@ mod tests {
         assert!((from_ns(to_ns(t)) - t).abs() < 1e-6);
     }
 }
+
+#[cfg(test)]
+mod tests_rw;
