@@ -49,7 +49,7 @@ fn insert_query_round_trip_and_skip() {
     let (_d, mut conn) = fresh();
     let seg = SegmentList::single(1_400_000_000.0, 1_400_000_100.0);
     let mut ts: Vec<Trigger> = (0..10)
-        .map(|i| trig(1_400_000_000.123_456_789 + i as f64 * 7.0, 5.0 + i as f64))
+        .map(|i| trig(1_400_000_000.123_456_7 + i as f64 * 7.0, 5.0 + i as f64))
         .collect();
     ts[3].q = f64::NAN; // unknown q is stored as NULL
     let tx = conn.transaction().unwrap();
