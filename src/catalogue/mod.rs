@@ -34,14 +34,21 @@ pub fn schema_version() -> i64 {
 }
 
 /// GPS seconds → integer nanoseconds (rounded).
+///
+/// Whole and fractional seconds are converted separately so no precision is
+/// lost to the f64 product `t × 1e9` (its spacing near 1.4e18 is 256 ns):
+/// a GPS time exactly representable to the ns, such as 1400000010.25,
+/// round-trips exactly.
 pub fn to_ns(t_gps: f64) -> i64 {
-    (t_gps * 1e9).round() as i64
+    let whole = t_gps.floor();
+    let frac = t_gps - whole; // exact (Sterbenz)
+    (whole as i64) * 1_000_000_000 + (frac * 1e9).round() as i64
 }
 
-/// Integer nanoseconds → GPS seconds.
+/// Integer nanoseconds → GPS seconds (the nearest f64, up to one rounding).
 pub fn from_ns(ns: i64) -> f64 {
     // Split to keep full precision for large GPS times.
-    (ns / 1_000_000_000) as f64 + (ns % 1_000_000_000) as f64 * 1e-9
+    (ns.div_euclid(1_000_000_000)) as f64 + (ns.rem_euclid(1_000_000_000)) as f64 / 1e9
 }
 
 /// Open (creating if needed) the catalogue at `path`, set per-connection
@@ -143,6 +150,12 @@ mod tests {
     fn ns_round_trip() {
         let t = 1_400_000_123.456_789;
         assert!((from_ns(to_ns(t)) - t).abs() < 1e-6);
+        // Exactly representable times come back bit-identical.
+        for t in [1_400_000_010.25, 1_400_000_010.5, -1.5, 0.0, 1e9 + 0.125] {
+            assert_eq!(from_ns(to_ns(t)), t, "{t}");
+        }
+        assert_eq!(to_ns(1_400_000_010.25), 1_400_000_010_250_000_000);
+        assert_eq!(to_ns(-1.5), -1_500_000_000);
     }
 }
 

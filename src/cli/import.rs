@@ -59,10 +59,13 @@ fn gather(args: &ImportArgs) -> Result<ImportRecord> {
     let bytes =
         std::fs::read(&args.csv).with_context(|| format!("{}: cannot read", args.csv.display()))?;
     let checksum = format!("{:032x}", xxhash_rust::xxh3::xxh3_128(&bytes));
-    let triggers = io::read_trigger_csv(&args.csv)?;
+    let triggers = io::text::parse_trigger_csv(&bytes, &args.csv.display().to_string())?;
     let (analysed, source) = match &args.segments {
         Some(p) => {
-            let segs = io::read_segments_file(p)?;
+            let (segs, warnings) = io::read_segments_file(p)?;
+            for w in &warnings {
+                warn(w);
+            }
             let outside = triggers.iter().filter(|t| !segs.contains(t.t_peak)).count();
             if outside > 0 {
                 warn(&format!(

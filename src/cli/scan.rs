@@ -1,5 +1,5 @@
 //! `glitchbook scan`: search bundle channels for transients and record them.
-use super::{finite, Global};
+use super::{finite, warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::catalogue::{self, InsertOutcome};
 use glitchbook::io::{self, Bundle, ChannelSpec};
@@ -131,11 +131,16 @@ pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
     let params = args.validate()?;
     let bundle = Bundle::open(&args.bundle)?;
     let chosen = select(&bundle, &args.channels)?;
-    let segments = args
-        .segments
-        .as_deref()
-        .map(io::read_segments_file)
-        .transpose()?;
+    let segments = match &args.segments {
+        Some(p) => {
+            let (segs, warnings) = io::read_segments_file(p)?;
+            for w in &warnings {
+                warn(w);
+            }
+            Some(segs)
+        }
+        None => None,
+    };
     let mut results: Vec<ChannelScan> = Vec::with_capacity(chosen.len());
     for spec in chosen {
         let pb = progress_bar(g, &spec.name);
