@@ -1,1 +1,18 @@
+//! Integration tests (one target; each module says what belongs in it).
 
+/// Harness running the real binary in a temporary directory.
+mod cli_util;
+
+/// CLI behaviour of scan/import/triggers/channels/check on good input.
+mod cli_basic;
+
+/// Issue 6 reliability: bad input leaves the catalogue unchanged.
+mod reliability_bad_input;
+/// Issue 6 reliability: two writers and a reader at once.
+mod reliability_concurrency;
+/// Issue 6 reliability: hostile text round-trips verbatim through every format.
+mod reliability_injection;
+/// Issue 6 reliability: SIGKILL during writes (ignored; run by .ci/run).
+mod reliability_kill;
+/// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
+mod reliability_upgrade;
