@@ -6,6 +6,9 @@ mod cli_util;
 /// CLI behaviour of scan/import/triggers/channels/check on good input.
 mod cli_basic;
 
+/// `scan` end to end (the full run waits for scan::scan_channel).
+mod cli_scan;
+
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;
 /// Issue 6 reliability: two writers and a reader at once.
