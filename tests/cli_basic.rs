@@ -151,8 +151,13 @@ fn role_conflict_is_one_error_line() {
     assert_eq!(errs.len(), 1, "{err}");
     assert!(errs[0].starts_with("glitchbook: error: ") && errs[0].contains("as target"));
     assert_eq!(before, d.checksum());
-    // Without --role the known role is reused.
+    // Without --role the known role is reused (target here, aux below:
+    // defaulting to target would be refused as a role conflict).
     d.ok(&["import", "u.csv", "--channel", "Z1:TEST"]);
+    d.ok(&["import", "u.csv", "--channel", "Z1:AUX", "--role", "aux"]);
+    d.write("v.csv", "time,frequency,snr\n1400000006,50,7\n");
+    d.ok(&["import", "v.csv", "--channel", "Z1:AUX"]);
+    assert_eq!(count(&d.db(), "scans"), 4);
 }
 
 #[test]
