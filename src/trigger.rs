@@ -39,3 +39,128 @@ pub fn snr_from_energy(z: f64) -> f64 {
 pub fn energy_from_snr(snr: f64) -> f64 {
     1.0 + 0.5 * snr * snr
 }
+
+use crate::tf::Tile;
+
+/// Cluster significant tiles into triggers, one per transient.
+///
+/// 1. Most significant first, keep a tile only if it overlaps no kept tile in
+///    both time (`t ± Q/(2πf)`) and frequency (`f ± 2f/Q`); this removes the
+///    cloud of overlapping tiles of other Q planes and neighbouring rows.
+/// 2. Kept tiles whose time extents overlap are one trigger: its peak is the
+///    loudest kept tile, its extent the union of the kept tiles' extents.
+///
+/// Returns triggers sorted by `t_peak`.
+pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
+    if tiles.is_empty() {
+        return Vec::new();
+    }
+    tiles.sort_by(|a, b| b.energy.total_cmp(&a.energy));
+    let max_half = tiles.iter().map(Tile::half_duration).fold(0.0, f64::max);
+    // Kept tiles indexed by centre time (ns) for range queries.
+    let mut kept_by_time: std::collections::BTreeMap<i64, Vec<usize>> = Default::default();
+    let mut kept: Vec<Tile> = Vec::new();
+    let key = |t: f64| (t * 1e9).round() as i64;
+    for tile in tiles {
+        let (hd, hb) = (tile.half_duration(), tile.half_bandwidth());
+        let lo = key(tile.t_gps - hd - max_half);
+        let hi = key(tile.t_gps + hd + max_half);
+        let overlaps = kept_by_time.range(lo..=hi).flat_map(|(_, v)| v).any(|&j| {
+            let k = &kept[j];
+            (k.t_gps - tile.t_gps).abs() < hd + k.half_duration()
+                && (k.f_hz - tile.f_hz).abs() < hb + k.half_bandwidth()
+        });
+        if !overlaps {
+            kept_by_time
+                .entry(key(tile.t_gps))
+                .or_default()
+                .push(kept.len());
+            kept.push(tile);
+        }
+    }
+    kept.sort_by(|a, b| (a.t_gps - a.half_duration()).total_cmp(&(b.t_gps - b.half_duration())));
+    let mut out = Vec::new();
+    let mut group: Vec<Tile> = Vec::new();
+    let mut group_end = f64::NEG_INFINITY;
+    for tile in kept {
+        if !group.is_empty() && tile.t_gps - tile.half_duration() > group_end {
+            out.push(trigger_of(&group));
+            group.clear();
+        }
+        group_end = if group.is_empty() {
+            tile.t_gps + tile.half_duration()
+        } else {
+            group_end.max(tile.t_gps + tile.half_duration())
+        };
+        group.push(tile);
+    }
+    out.push(trigger_of(&group));
+    out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
+    out
+}
+
+fn trigger_of(group: &[Tile]) -> Trigger {
+    let peak = group
+        .iter()
+        .max_by(|a, b| a.energy.total_cmp(&b.energy))
+        .expect("non-empty group");
+    let fold = |f: fn(&Tile) -> f64, init: f64, pick: fn(f64, f64) -> f64| {
+        group.iter().map(f).fold(init, pick)
+    };
+    Trigger {
+        t_peak: peak.t_gps,
+        t_start: fold(|t| t.t_gps - t.half_duration(), f64::INFINITY, f64::min),
+        t_end: fold(|t| t.t_gps + t.half_duration(), f64::NEG_INFINITY, f64::max),
+        f_peak: peak.f_hz,
+        f_low: fold(
+            |t| (t.f_hz - t.half_bandwidth()).max(0.0),
+            f64::INFINITY,
+            f64::min,
+        ),
+        f_high: fold(|t| t.f_hz + t.half_bandwidth(), f64::NEG_INFINITY, f64::max),
+        snr: snr_from_energy(peak.energy),
+        q: peak.q,
+        energy: peak.energy,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn tile(t: f64, f: f64, q: f64, e: f64) -> Tile {
+        Tile {
+            t_gps: t,
+            f_hz: f,
+            q,
+            energy: e,
+        }
+    }
+
+    #[test]
+    fn overlapping_tiles_make_one_trigger() {
+        // A loud tile with weaker neighbours in time, frequency and Q.
+        let tiles = vec![
+            tile(100.0, 200.0, 8.0, 50.0),
+            tile(100.002, 200.0, 8.0, 40.0),
+            tile(100.0, 210.0, 16.0, 30.0),
+            tile(100.001, 190.0, 5.6, 20.0),
+            // Far away in time: a second transient.
+            tile(105.0, 60.0, 8.0, 20.0),
+        ];
+        let trig = cluster_tiles(tiles);
+        assert_eq!(trig.len(), 2);
+        assert_eq!(trig[0].t_peak, 100.0);
+        assert_eq!(trig[0].energy, 50.0);
+        assert!((trig[0].snr - (2.0f64 * 49.0).sqrt()).abs() < 1e-12);
+        assert!(trig[0].t_start < 100.0 && trig[0].t_end > 100.0);
+        assert_eq!(trig[1].f_peak, 60.0);
+    }
+
+    #[test]
+    fn snr_energy_inverse() {
+        for s in [0.0, 5.5, 8.0, 100.0] {
+            assert!((snr_from_energy(energy_from_snr(s)) - s).abs() < 1e-12);
+        }
+    }
+}

@@ -1,4 +1,7 @@
-//! Integration tests (one target; each module says what belongs in it).
+//! Integration tests: one target, one module per area (see each module's header).
+
+/// Scan pipeline against reference values.
+mod scan_reference;
 
 /// Harness running the real binary in a temporary directory.
 mod cli_util;
