@@ -39,6 +39,9 @@ pub struct ScanArgs {
     /// Maximum fractional energy mismatch between neighbouring tiles.
     #[arg(long, value_name = "M", default_value_t = 0.2)]
     pub mismatch: f64,
+    /// Block length [s] [default: derived from the padding, at least 32 s].
+    #[arg(long, value_name = "S")]
+    pub block_s: Option<f64>,
 }
 
 impl ScanArgs {
@@ -84,6 +87,9 @@ impl ScanArgs {
             qmin: self.qmin,
             qmax: self.qmax,
             mismatch: self.mismatch,
+            block_s: finite("block-s", self.block_s)?
+                .map(|b| pos("block-s", b))
+                .transpose()?,
         })
     }
 }
@@ -201,6 +207,7 @@ mod tests {
         assert!(e(&["--snr-threshold", "-1"]).contains("--snr-threshold"));
         assert!(e(&["--fmin", "NaN"]).contains("--fmin"));
         assert!(e(&["--mismatch", "1.5"]).contains("--mismatch"));
+        assert!(e(&["--block-s", "0"]).contains("--block-s"));
         assert!(parse(&["--fmin", "10", "--fmax", "500", "--qmin", "2"]).is_ok());
     }
 }
