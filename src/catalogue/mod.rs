@@ -2,7 +2,18 @@
 //! row ↔ record mapping of the core tables.
 //!
 //! Times are stored as integer GPS nanoseconds ([`to_ns`], [`from_ns`]).
-//! Every command that writes does so in one transaction.
+//! Every command that writes does so in one transaction: open with [`open`],
+//! start `conn.transaction_with_behavior(Immediate)`, call the writers
+//! ([`insert_channel_scan`], [`import_triggers`], [`insert_scan`]) for every
+//! result, then commit once; dropping the transaction on an error writes
+//! nothing. A scan whose [`run_key`] (channel, input checksum, analysed
+//! segments, parameters, kind) is already stored is skipped
+//! ([`InsertOutcome::Skipped`]).
+//!
+//! Reads: [`query_triggers`] (channel / min SNR / since / until / limit,
+//! served by the `(channel_id, t_peak_ns)` index), [`analysed_segments`]
+//! (union over a channel's scans), [`channels`], [`channel_by_name`];
+//! health: [`check`], [`table_counts`], [`logical_checksum`].
 
 use anyhow::{bail, Context, Result};
 use rusqlite::Connection;
