@@ -7,7 +7,7 @@
 //!    query; timed through the library and through the real binary
 //!    (process start + open + query + CSV to /dev/null). Target < 100 ms.
 //!
-//! Usage: `cargo bench --bench catalogue -- [N_INSERT] [N_BIG]`
+//! Usage: `[BENCH_DIR=/dev/shm] cargo bench --bench catalogue -- [N_INSERT] [N_BIG]`
 //! (or `cargo test --release --bench catalogue -- ...`).
 use glitchbook::catalogue::{self, InsertOutcome, ScanKind, ScanRecord, TriggerQuery};
 use glitchbook::io::Role;
@@ -88,7 +88,12 @@ fn main() {
         .collect();
     let n_insert = nums.first().copied().unwrap_or(1_000_000);
     let n_big = nums.get(1).copied().unwrap_or(10_000_000);
-    let dir = tempfile::tempdir().unwrap();
+    // BENCH_DIR (e.g. /dev/shm) places the catalogues elsewhere, to tell
+    // disk time from CPU time.
+    let dir = match std::env::var_os("BENCH_DIR") {
+        Some(d) => tempfile::tempdir_in(d).unwrap(),
+        None => tempfile::tempdir().unwrap(),
+    };
 
     // 1. Insert rate.
     let ts = triggers(n_insert, T0);
