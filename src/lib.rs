@@ -13,6 +13,7 @@ pub mod families;
 pub mod io;
 pub mod rates;
 pub mod report;
+pub mod output;
 pub mod scan;
 pub mod segments;
 pub mod tf;

@@ -2,11 +2,36 @@
 //! row ↔ record mapping of the core tables.
 //!
 //! Times are stored as integer GPS nanoseconds ([`to_ns`], [`from_ns`]).
-//! Every command that writes does so in one transaction.
+//! Every command that writes does so in one transaction: open with [`open`],
+//! start `conn.transaction_with_behavior(Immediate)`, call the writers
+//! ([`insert_channel_scan`], [`import_triggers`], [`insert_scan`]) for every
+//! result, then commit once; dropping the transaction on an error writes
+//! nothing. A scan whose [`run_key`] (channel, input checksum, analysed
+//! segments, parameters, kind) is already stored is skipped
+//! ([`InsertOutcome::Skipped`]).
+//!
+//! Reads: [`query_triggers`] (channel / min SNR / since / until / limit,
+//! served by the `(channel_id, t_peak_ns)` index), [`analysed_segments`]
+//! (union over a channel's scans), [`channels`], [`channel_by_name`];
+//! health: [`check`], [`table_counts`], [`logical_checksum`].
 
 use anyhow::{bail, Context, Result};
 use rusqlite::Connection;
 use std::path::Path;
+
+mod check;
+mod query;
+mod write;
+
+pub use check::{check, logical_checksum, table_counts, CheckItem, CheckReport};
+pub use query::{
+    analysed_segments, channel_by_name, channels, query_triggers, ChannelRow, TriggerQuery,
+    TriggerRow,
+};
+pub use write::{
+    import_triggers, insert_channel_scan, insert_scan, run_key, upsert_channel, ImportRecord,
+    InsertOutcome, ScanKind, ScanRecord,
+};
 
 /// Numbered migrations, applied in order; the schema version is
 /// `PRAGMA user_version` = number of migrations applied. Never edit a
@@ -29,14 +54,21 @@ pub fn schema_version() -> i64 {
 }
 
 /// GPS seconds → integer nanoseconds (rounded).
+///
+/// Whole and fractional seconds are converted separately so no precision is
+/// lost to the f64 product `t × 1e9` (its spacing near 1.4e18 is 256 ns):
+/// a GPS time exactly representable to the ns, such as 1400000010.25,
+/// round-trips exactly.
 pub fn to_ns(t_gps: f64) -> i64 {
-    (t_gps * 1e9).round() as i64
+    let whole = t_gps.floor();
+    let frac = t_gps - whole; // exact (Sterbenz)
+    (whole as i64) * 1_000_000_000 + (frac * 1e9).round() as i64
 }
 
-/// Integer nanoseconds → GPS seconds.
+/// Integer nanoseconds → GPS seconds (the nearest f64, up to one rounding).
 pub fn from_ns(ns: i64) -> f64 {
     // Split to keep full precision for large GPS times.
-    (ns / 1_000_000_000) as f64 + (ns % 1_000_000_000) as f64 * 1e-9
+    (ns.div_euclid(1_000_000_000)) as f64 + (ns.rem_euclid(1_000_000_000)) as f64 / 1e9
 }
 
 /// Open (creating if needed) the catalogue at `path`, set per-connection
@@ -69,13 +101,35 @@ pub fn open(path: &Path) -> Result<Connection> {
     conn.pragma_update(None, "journal_mode", "WAL")?;
     conn.pragma_update(None, "foreign_keys", "ON")?;
     conn.pragma_update(None, "synchronous", "NORMAL")?;
+    // 64 MiB page cache (negative = KiB): large imports keep both trigger
+    // indexes in memory instead of spilling pages mid-transaction.
+    conn.pragma_update(None, "cache_size", -65536)?;
     migrate(&mut conn).with_context(|| format!("upgrading catalogue {}", path.display()))?;
     Ok(conn)
 }
 
+/// Open an existing catalogue (as [`open`]), refusing to create a new one.
+///
+/// # Errors
+/// No file at `path`, or any error of [`open`].
+pub fn open_existing(path: &Path) -> Result<Connection> {
+    if !path.exists() {
+        bail!(
+            "{}: no catalogue here (run `glitchbook scan` or `glitchbook import` first, or pass --db)",
+            path.display()
+        );
+    }
+    open(path)
+}
+
 /// Apply every pending migration and the version bump in one immediate
-/// transaction (so two processes cannot both migrate).
+/// transaction (so two processes cannot both migrate). An up-to-date
+/// catalogue takes no write lock, so readers never wait for a writer here.
 fn migrate(conn: &mut Connection) -> Result<()> {
+    let current: i64 = conn.query_row("PRAGMA user_version", [], |r| r.get(0))?;
+    if current >= schema_version() {
+        return Ok(());
+    }
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let version: i64 = tx.query_row("PRAGMA user_version", [], |r| r.get(0))?;
     for (i, (name, sql)) in MIGRATIONS.iter().enumerate().skip(version.max(0) as usize) {
@@ -119,5 +173,14 @@ mod tests {
     fn ns_round_trip() {
         let t = 1_400_000_123.456_789;
         assert!((from_ns(to_ns(t)) - t).abs() < 1e-6);
+        // Exactly representable times come back bit-identical.
+        for t in [1_400_000_010.25, 1_400_000_010.5, -1.5, 0.0, 1e9 + 0.125] {
+            assert_eq!(from_ns(to_ns(t)), t, "{t}");
+        }
+        assert_eq!(to_ns(1_400_000_010.25), 1_400_000_010_250_000_000);
+        assert_eq!(to_ns(-1.5), -1_500_000_000);
     }
 }
+
+#[cfg(test)]
+mod tests_rw;

@@ -1,5 +1,25 @@
 //! The channel bundle: a directory with `bundle.toml` and one `.npy` per channel.
+//!
+//! ```toml
+//! description = "free text for humans (optional, not used by the tool)"
+//!
+//! [[channel]]
+//! name = "X1:STRAIN"       # free-form, unique in the bundle
+//! file = "strain.npy"      # relative to the bundle directory
+//! rate = 4096              # samples per second, > 0
+//! start = 1400000000.0     # GPS time of the first sample [s]
+//! role = "target"          # "target" or "aux"
+//! fmin = 20.0              # optional lowest analysed frequency [Hz]
+//! fmax = 1000.0            # optional highest analysed frequency [Hz], <= rate/2
+//! ```
+//!
+//! Every error is one line naming `bundle.toml` (with line and column where
+//! TOML gives one), the channel (1-based index and name) and the field.
+use super::npy::NpyReader;
+use anyhow::{anyhow, bail};
+use serde::Deserialize;
 use std::path::{Path, PathBuf};
+use toml::Spanned;
 
 /// What a channel is for.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -39,9 +59,204 @@ pub struct Bundle {
     pub channels: Vec<ChannelSpec>,
 }
 
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawBundle {
+    #[allow(dead_code)]
+    description: Option<String>,
+    #[serde(default)]
+    channel: Vec<RawChannel>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawChannel {
+    name: Spanned<String>,
+    file: Spanned<String>,
+    rate: Spanned<f64>,
+    start: Spanned<f64>,
+    role: Spanned<String>,
+    fmin: Option<Spanned<f64>>,
+    fmax: Option<Spanned<f64>>,
+}
+
+/// 1-based (line, column) of a byte offset in `text`.
+fn line_col(text: &str, offset: usize) -> (usize, usize) {
+    let offset = offset.min(text.len());
+    let before = &text.as_bytes()[..offset];
+    let line = before.iter().filter(|&&b| b == b'\n').count() + 1;
+    let line_start = before
+        .iter()
+        .rposition(|&b| b == b'\n')
+        .map_or(0, |p| p + 1);
+    let col = String::from_utf8_lossy(&before[line_start..])
+        .chars()
+        .count()
+        + 1;
+    (line, col)
+}
+
+/// Parse and validate the text of a `bundle.toml` whose directory is `dir`.
+///
+/// Checks everything that does not need the `.npy` files (names, roles,
+/// rates, start times, frequency limits, unique names, at least one channel).
+/// [`Bundle::open`] calls this and then opens each `.npy` header.
+///
+/// # Errors
+/// One line naming `dir/bundle.toml`, the line and column, the channel and
+/// the field: TOML syntax, missing or unknown field, unknown role, rate not
+/// finite and > 0, start not finite, fmin/fmax not finite and > 0, fmin ≥
+/// fmax, fmax above Nyquist (rate/2), an empty or repeated channel name or
+/// file, or no channels.
+pub fn parse_bundle_toml(text: &str, dir: &Path) -> anyhow::Result<Bundle> {
+    let toml_path = dir.join("bundle.toml");
+    let fname = toml_path.display();
+    let raw: RawBundle = toml::from_str(text).map_err(|e| {
+        let msg = e.message().trim().replace('\n', " ");
+        match e.span() {
+            Some(span) => {
+                let (line, col) = line_col(text, span.start);
+                anyhow!("{fname}:{line}:{col}: {msg}")
+            }
+            None => anyhow!("{fname}: {msg}"),
+        }
+    })?;
+    if raw.channel.is_empty() {
+        bail!("{fname}: no channels: add at least one [[channel]] table");
+    }
+    let mut channels: Vec<ChannelSpec> = Vec::with_capacity(raw.channel.len());
+    for (i, ch) in raw.channel.into_iter().enumerate() {
+        let idx = i + 1;
+        let at = |span: std::ops::Range<usize>| {
+            let (line, col) = line_col(text, span.start);
+            format!("{fname}:{line}:{col}: channel #{idx}")
+        };
+        let name = ch.name.get_ref().trim().to_owned();
+        if name.is_empty() {
+            bail!("{}: field 'name' is empty", at(ch.name.span()));
+        }
+        let here = |span: std::ops::Range<usize>| format!("{} '{name}'", at(span));
+        if let Some(prev) = channels.iter().position(|c| c.name == name) {
+            bail!(
+                "{}: field 'name' repeats the name of channel #{}",
+                here(ch.name.span()),
+                prev + 1
+            );
+        }
+        let file_rel = ch.file.get_ref();
+        if file_rel.trim().is_empty() {
+            bail!("{}: field 'file' is empty", here(ch.file.span()));
+        }
+        let joined = dir.join(file_rel);
+        let file = std::path::absolute(&joined).unwrap_or(joined);
+        if let Some(prev) = channels.iter().position(|c| c.file == file) {
+            bail!(
+                "{}: field 'file' names the same file as channel #{}",
+                here(ch.file.span()),
+                prev + 1
+            );
+        }
+        let rate = *ch.rate.get_ref();
+        if !(rate.is_finite() && rate > 0.0) {
+            bail!(
+                "{}: field 'rate' = {rate} must be finite and > 0 [Hz]",
+                here(ch.rate.span())
+            );
+        }
+        let start = *ch.start.get_ref();
+        if !start.is_finite() {
+            bail!(
+                "{}: field 'start' = {start} must be a finite GPS time [s]",
+                here(ch.start.span())
+            );
+        }
+        let role = match ch.role.get_ref().as_str() {
+            "target" => Role::Target,
+            "aux" => Role::Aux,
+            other => bail!(
+                "{}: field 'role' = \"{other}\" must be \"target\" or \"aux\"",
+                here(ch.role.span())
+            ),
+        };
+        let nyquist = rate / 2.0;
+        let check_f = |f: &Option<Spanned<f64>>, field: &str| -> anyhow::Result<Option<f64>> {
+            let Some(f) = f else { return Ok(None) };
+            let v = *f.get_ref();
+            if !(v.is_finite() && v > 0.0) {
+                bail!(
+                    "{}: field '{field}' = {v} must be finite and > 0 [Hz]",
+                    here(f.span())
+                );
+            }
+            if v > nyquist {
+                bail!(
+                    "{}: field '{field}' = {v} Hz is above the Nyquist frequency {nyquist} Hz (rate/2)",
+                    here(f.span())
+                );
+            }
+            Ok(Some(v))
+        };
+        let fmin = check_f(&ch.fmin, "fmin")?;
+        let fmax = check_f(&ch.fmax, "fmax")?;
+        if let (Some(lo), Some(hi), Some(span)) = (fmin, fmax, ch.fmin.as_ref().map(|s| s.span())) {
+            if lo >= hi {
+                bail!(
+                    "{}: field 'fmin' = {lo} Hz must be below fmax = {hi} Hz",
+                    here(span)
+                );
+            }
+        }
+        channels.push(ChannelSpec {
+            name,
+            file,
+            rate,
+            start,
+            role,
+            fmin,
+            fmax,
+        });
+    }
+    Ok(Bundle {
+        dir: dir.to_path_buf(),
+        channels,
+    })
+}
+
 impl Bundle {
-    /// Read and validate `DIR/bundle.toml` (the `.npy` headers are checked too).
+    /// Read and validate `DIR/bundle.toml`, then open every channel's `.npy`
+    /// header so a bad file fails before any work starts.
+    ///
+    /// # Errors
+    /// A missing or unreadable `bundle.toml`, anything
+    /// [`parse_bundle_toml`] rejects, or a missing or invalid `.npy` file
+    /// (named with its channel).
     pub fn open(dir: &Path) -> anyhow::Result<Bundle> {
-        todo!("{}", dir.display())
+        let toml_path = dir.join("bundle.toml");
+        let text = match std::fs::read(&toml_path) {
+            Ok(bytes) => String::from_utf8(bytes)
+                .map_err(|_| anyhow!("{}: not valid UTF-8 text", toml_path.display()))?,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => bail!(
+                "{}: missing: a bundle directory must hold bundle.toml",
+                toml_path.display()
+            ),
+            Err(e) => bail!("{}: cannot read: {e}", toml_path.display()),
+        };
+        let bundle = parse_bundle_toml(&text, dir)?;
+        for (i, ch) in bundle.channels.iter().enumerate() {
+            NpyReader::open(&ch.file).map_err(|e| {
+                anyhow!(
+                    "{}: channel #{} '{}': field 'file': {e}",
+                    toml_path.display(),
+                    i + 1,
+                    ch.name
+                )
+            })?;
+        }
+        Ok(bundle)
+    }
+
+    /// The channels with a given role, in file order.
+    pub fn with_role(&self, role: Role) -> impl Iterator<Item = &ChannelSpec> {
+        self.channels.iter().filter(move |c| c.role == role)
     }
 }

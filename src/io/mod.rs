@@ -7,6 +7,9 @@ pub mod bundle;
 pub mod npy;
 pub mod text;
 
-pub use bundle::{Bundle, ChannelSpec, Role};
-pub use npy::{write_npy, NpyDtype, NpyReader};
-pub use text::{read_injections, read_segments_file, read_trigger_csv};
+pub use bundle::{parse_bundle_toml, Bundle, ChannelSpec, Role};
+pub use npy::{parse_header, write_npy, NpyDtype, NpyHeader, NpyReader};
+pub use text::{
+    parse_injections, parse_segments, parse_trigger_csv, read_injections, read_segments_file,
+    read_trigger_csv,
+};

@@ -1,19 +1,373 @@
 //! Text inputs: segment files, external trigger CSV, injection CSV.
-use crate::segments::SegmentList;
-use crate::trigger::Trigger;
+//!
+//! Every error is one line of the form `file:line: what is wrong` (line
+//! numbers are 1-based lines of the file), or `file: what is wrong` when no
+//! line is at fault. The `parse_*` functions take the file's contents and a
+//! name to use in messages; the `read_*` functions read a file and call them.
+use crate::segments::{Segment, SegmentList};
+use crate::trigger::{energy_from_snr, Trigger};
+use anyhow::{anyhow, bail};
+use std::collections::HashMap;
 use std::path::Path;
 
-/// Read a segments file (`start end` per line, `#` comments).
-pub fn read_segments_file(path: &Path) -> anyhow::Result<SegmentList> {
-    todo!("{}", path.display())
+/// At most this many line-level warnings are listed one by one; the rest
+/// are summarised in one more warning.
+const MAX_LISTED_WARNINGS: usize = 20;
+
+fn read_bytes(path: &Path) -> anyhow::Result<Vec<u8>> {
+    std::fs::read(path).map_err(|e| anyhow!("{}: cannot read: {e}", path.display()))
+}
+
+/// Read a segments file (`start end` per line \[GPS s\], `#` comments).
+///
+/// Returns the coalesced segment list and warnings (zero-length segments,
+/// unsorted or overlapping lines that were merged), each naming its lines.
+///
+/// # Errors
+/// An unreadable file, or see [`parse_segments`].
+pub fn read_segments_file(path: &Path) -> anyhow::Result<(SegmentList, Vec<String>)> {
+    let bytes = read_bytes(path)?;
+    let name = path.display().to_string();
+    let text =
+        std::str::from_utf8(&bytes).map_err(|e| anyhow!("{name}: not valid UTF-8 text: {e}"))?;
+    parse_segments(text, &name)
+}
+
+/// Parse the contents of a segments file; `name` is used in messages.
+///
+/// Format: one segment per line, `start end` in GPS seconds (decimals
+/// allowed) separated by spaces or tabs; `#` starts a comment (whole line or
+/// after the numbers); blank lines are skipped.
+///
+/// # Errors
+/// `name:line: ...` for a line without exactly two columns, a non-numeric or
+/// non-finite value, or end < start; `name: ...` when the file holds no
+/// segment of positive length.
+pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Vec<String>)> {
+    let mut segs = Vec::new();
+    let mut warnings = Vec::new();
+    let mut n_warned = 0usize;
+    let mut warn = |w: String| {
+        n_warned += 1;
+        if n_warned <= MAX_LISTED_WARNINGS {
+            warnings.push(w);
+        }
+    };
+    // Previous positive-length line (start, line) and the line reaching furthest.
+    let mut prev: Option<(f64, usize)> = None;
+    let mut furthest: Option<(f64, usize)> = None;
+    for (idx, raw) in text.lines().enumerate() {
+        let line_no = idx + 1;
+        let content = raw.split('#').next().unwrap_or("").trim();
+        if content.is_empty() {
+            continue;
+        }
+        let cols: Vec<&str> = content.split_whitespace().collect();
+        if cols.len() != 2 {
+            bail!(
+                "{name}:{line_no}: expected 2 columns 'start end', found {}",
+                cols.len()
+            );
+        }
+        let num = |s: &str, what: &str| -> anyhow::Result<f64> {
+            let v: f64 = s
+                .parse()
+                .map_err(|_| anyhow!("{name}:{line_no}: {what} '{s}' is not a number"))?;
+            if !v.is_finite() {
+                bail!("{name}:{line_no}: {what} '{s}' is not finite");
+            }
+            Ok(v)
+        };
+        let start = num(cols[0], "start")?;
+        let end = num(cols[1], "end")?;
+        if end < start {
+            bail!("{name}:{line_no}: end {end} is before start {start}");
+        }
+        if end == start {
+            warn(format!(
+                "{name}:{line_no}: zero-length segment [{start}, {end}) ignored"
+            ));
+            continue;
+        }
+        if let Some((p_start, p_line)) = prev {
+            if start < p_start {
+                warn(format!(
+                    "{name}:{line_no}: segment starts before the one on line {p_line}; segments sorted"
+                ));
+            }
+        }
+        if let Some((f_end, f_line)) = furthest {
+            if start < f_end {
+                warn(format!(
+                    "{name}:{line_no}: segment overlaps the one on line {f_line}; merged"
+                ));
+            }
+        }
+        prev = Some((start, line_no));
+        if furthest.is_none_or(|(f_end, _)| end > f_end) {
+            furthest = Some((end, line_no));
+        }
+        segs.push(Segment::new(start, end));
+    }
+    if n_warned > MAX_LISTED_WARNINGS {
+        warnings.push(format!(
+            "{name}: {} more warnings not listed",
+            n_warned - MAX_LISTED_WARNINGS
+        ));
+    }
+    if segs.is_empty() {
+        bail!("{name}: no segments of positive length found");
+    }
+    Ok((SegmentList::from_segments(segs), warnings))
+}
+
+/// A CSV file with a header row, its columns located by name.
+struct Table {
+    name: String,
+    reader: csv::Reader<std::io::Cursor<Vec<u8>>>,
+    columns: HashMap<String, usize>,
+}
+
+impl Table {
+    fn new(bytes: &[u8], name: &str) -> anyhow::Result<Table> {
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(true)
+            .trim(csv::Trim::All)
+            .comment(Some(b'#'))
+            .from_reader(std::io::Cursor::new(bytes.to_vec()));
+        let headers = reader
+            .headers()
+            .map_err(|e| anyhow!("{name}: {}", csv_error_text(&e)))?
+            .clone();
+        if headers.is_empty() || headers.iter().all(str::is_empty) {
+            bail!("{name}: empty file: a header row naming the columns is required");
+        }
+        let mut columns = HashMap::new();
+        for (i, h) in headers.iter().enumerate() {
+            let key = h.to_ascii_lowercase();
+            if columns.insert(key, i).is_some() {
+                bail!("{name}:1: column '{h}' appears twice in the header");
+            }
+        }
+        Ok(Table {
+            name: name.to_owned(),
+            reader,
+            columns,
+        })
+    }
+
+    fn require(&self, col: &str) -> anyhow::Result<usize> {
+        self.columns.get(col).copied().ok_or_else(|| {
+            anyhow!(
+                "{}: missing required column '{col}' (the first line must be a header naming the columns)",
+                self.name
+            )
+        })
+    }
+
+    /// Visit each record with its 1-based line number.
+    fn for_each(
+        &mut self,
+        mut f: impl FnMut(&csv::StringRecord, u64) -> anyhow::Result<()>,
+    ) -> anyhow::Result<()> {
+        let mut rec = csv::StringRecord::new();
+        loop {
+            match self.reader.read_record(&mut rec) {
+                Ok(false) => return Ok(()),
+                Ok(true) => {
+                    let line = rec.position().map_or(0, |p| p.line());
+                    f(&rec, line)?;
+                }
+                Err(e) => {
+                    let line = e.position().map_or(0, |p| p.line());
+                    bail!("{}:{line}: {}", self.name, csv_error_text(&e));
+                }
+            }
+        }
+    }
+}
+
+fn csv_error_text(e: &csv::Error) -> String {
+    match e.kind() {
+        csv::ErrorKind::UnequalLengths {
+            expected_len, len, ..
+        } => format!("expected {expected_len} fields as in the header, found {len}"),
+        csv::ErrorKind::Utf8 { .. } => "not valid UTF-8 text".to_owned(),
+        _ => e.to_string().replace('\n', " "),
+    }
+}
+
+/// A numeric cell: `Ok(None)` when the column is absent or the cell empty.
+fn cell(
+    rec: &csv::StringRecord,
+    col: Option<usize>,
+    col_name: &str,
+    name: &str,
+    line: u64,
+) -> anyhow::Result<Option<f64>> {
+    let Some(s) = col.and_then(|c| rec.get(c)) else {
+        return Ok(None);
+    };
+    if s.is_empty() {
+        return Ok(None);
+    }
+    let v: f64 = s
+        .parse()
+        .map_err(|_| anyhow!("{name}:{line}: column '{col_name}': '{s}' is not a number"))?;
+    if !v.is_finite() {
+        bail!("{name}:{line}: column '{col_name}': '{s}' is not finite");
+    }
+    Ok(Some(v))
 }
 
 /// Read an external trigger CSV (`time,frequency,snr` + optional columns).
+///
+/// # Errors
+/// An unreadable file, or see [`parse_trigger_csv`].
 pub fn read_trigger_csv(path: &Path) -> anyhow::Result<Vec<Trigger>> {
-    todo!("{}", path.display())
+    parse_trigger_csv(&read_bytes(path)?, &path.display().to_string())
+}
+
+/// Parse an external trigger CSV; `name` is used in messages.
+///
+/// A header row is required. Required columns (any order, names matched
+/// case-insensitively): `time` \[GPS s\], `frequency` \[Hz\], `snr`. Optional:
+/// `duration` \[s\], `bandwidth` \[Hz\], `t_start`, `t_end` \[GPS s\], `f_low`,
+/// `f_high` \[Hz\], `q`. Other columns are ignored; an empty optional cell
+/// counts as absent. Quoted cells, CRLF line ends and `#` comment lines are
+/// accepted.
+///
+/// Derived fields: `t_peak = time`; `t_start`/`t_end` from their columns,
+/// else `time ∓ duration/2`, else `time`; `f_low`/`f_high` likewise from
+/// `bandwidth`, else `frequency`; `q` from its column, else
+/// `frequency / bandwidth` when a bandwidth (the column, else
+/// `f_high - f_low` from explicit columns) is > 0, else NaN (unknown);
+/// `energy = 1 + snr²/2`. Triggers are returned sorted by `t_peak`.
+///
+/// # Errors
+/// `name: ...` for a missing header or required column; `name:line: column
+/// 'c': ...` for a non-numeric or non-finite cell, `snr` or `frequency` ≤ 0,
+/// a negative `duration` or `bandwidth`, `q` ≤ 0, or extents that do not
+/// contain the peak (`t_start ≤ time ≤ t_end`, `0 ≤ f_low ≤ frequency ≤ f_high`).
+pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger>> {
+    let mut table = Table::new(bytes, name)?;
+    let c_time = table.require("time")?;
+    let c_freq = table.require("frequency")?;
+    let c_snr = table.require("snr")?;
+    let opt = |c: &str| table.columns.get(c).copied();
+    let (c_dur, c_bw, c_ts, c_te, c_fl, c_fh, c_q) = (
+        opt("duration"),
+        opt("bandwidth"),
+        opt("t_start"),
+        opt("t_end"),
+        opt("f_low"),
+        opt("f_high"),
+        opt("q"),
+    );
+    let mut out = Vec::new();
+    table.for_each(|rec, line| {
+        let get = |c: Option<usize>, n: &str| cell(rec, c, n, name, line);
+        let need = |c: usize, n: &str| -> anyhow::Result<f64> {
+            get(Some(c), n)?.ok_or_else(|| anyhow!("{name}:{line}: column '{n}': empty cell"))
+        };
+        let time = need(c_time, "time")?;
+        let freq = need(c_freq, "frequency")?;
+        let snr = need(c_snr, "snr")?;
+        if freq <= 0.0 {
+            bail!("{name}:{line}: column 'frequency': {freq} must be > 0");
+        }
+        if snr <= 0.0 {
+            bail!("{name}:{line}: column 'snr': {snr} must be > 0");
+        }
+        let dur = get(c_dur, "duration")?;
+        let bw = get(c_bw, "bandwidth")?;
+        if let Some(d) = dur.filter(|&d| d < 0.0) {
+            bail!("{name}:{line}: column 'duration': {d} must be ≥ 0");
+        }
+        if let Some(b) = bw.filter(|&b| b < 0.0) {
+            bail!("{name}:{line}: column 'bandwidth': {b} must be ≥ 0");
+        }
+        let ts_col = get(c_ts, "t_start")?;
+        let te_col = get(c_te, "t_end")?;
+        let fl_col = get(c_fl, "f_low")?;
+        let fh_col = get(c_fh, "f_high")?;
+        let t_start = ts_col.unwrap_or(time - dur.unwrap_or(0.0) / 2.0);
+        let t_end = te_col.unwrap_or(time + dur.unwrap_or(0.0) / 2.0);
+        let f_low = fl_col.unwrap_or(freq - bw.unwrap_or(0.0) / 2.0);
+        let f_high = fh_col.unwrap_or(freq + bw.unwrap_or(0.0) / 2.0);
+        if t_start > time {
+            bail!("{name}:{line}: column 't_start': {t_start} is after the peak time {time}");
+        }
+        if t_end < time {
+            bail!("{name}:{line}: column 't_end': {t_end} is before the peak time {time}");
+        }
+        if f_low < 0.0 {
+            let col = if fl_col.is_some() {
+                "f_low"
+            } else {
+                "bandwidth"
+            };
+            bail!("{name}:{line}: column '{col}': lower frequency edge {f_low} Hz is negative");
+        }
+        if f_low > freq {
+            bail!("{name}:{line}: column 'f_low': {f_low} is above the frequency {freq}");
+        }
+        if f_high < freq {
+            bail!("{name}:{line}: column 'f_high': {f_high} is below the frequency {freq}");
+        }
+        let bandwidth = bw.or(match (fl_col, fh_col) {
+            (Some(lo), Some(hi)) => Some(hi - lo),
+            _ => None,
+        });
+        let q = match get(c_q, "q")? {
+            Some(q) if q <= 0.0 => bail!("{name}:{line}: column 'q': {q} must be > 0"),
+            Some(q) => q,
+            None => match bandwidth {
+                Some(b) if b > 0.0 => freq / b,
+                _ => f64::NAN,
+            },
+        };
+        out.push(Trigger {
+            t_peak: time,
+            t_start,
+            t_end,
+            f_peak: freq,
+            f_low,
+            f_high,
+            snr,
+            q,
+            energy: energy_from_snr(snr),
+        });
+        Ok(())
+    })?;
+    out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
+    Ok(out)
 }
 
 /// Read an injections CSV (a `time` column) \[GPS s\].
+///
+/// # Errors
+/// An unreadable file, or see [`parse_injections`].
 pub fn read_injections(path: &Path) -> anyhow::Result<Vec<f64>> {
-    todo!("{}", path.display())
+    parse_injections(&read_bytes(path)?, &path.display().to_string())
+}
+
+/// Parse an injections CSV: a header row with a `time` column \[GPS s\]
+/// (other columns ignored). Times are returned sorted.
+///
+/// # Errors
+/// `name: ...` for a missing header or `time` column; `name:line: column
+/// 'time': ...` for an empty, non-numeric or non-finite cell.
+pub fn parse_injections(bytes: &[u8], name: &str) -> anyhow::Result<Vec<f64>> {
+    let mut table = Table::new(bytes, name)?;
+    let c_time = table.require("time")?;
+    let mut out = Vec::new();
+    table.for_each(|rec, line| {
+        let t = cell(rec, Some(c_time), "time", name, line)?
+            .ok_or_else(|| anyhow!("{name}:{line}: column 'time': empty cell"))?;
+        out.push(t);
+        Ok(())
+    })?;
+    out.sort_by(f64::total_cmp);
+    Ok(out)
 }

@@ -1,0 +1,101 @@
+//! Command-line interface: one file per subcommand. Each defines its clap
+//! `Args`, a `validate` step that checks every flag before any I/O, and a
+//! `run` that calls the library and prints.
+use clap::{Parser, Subcommand};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+mod channels;
+mod check;
+mod import;
+mod scan;
+mod triggers;
+
+/// glitchbook: find, sort, track and trace noise transients in
+/// gravitational-wave detector data.
+#[derive(Debug, Parser)]
+#[command(name = "glitchbook", version, about)]
+pub struct Cli {
+    #[command(flatten)]
+    pub global: Global,
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// Options every command takes.
+#[derive(Debug, Clone, clap::Args)]
+pub struct Global {
+    /// Catalogue file (SQLite).
+    #[arg(
+        long,
+        global = true,
+        value_name = "PATH",
+        default_value = "glitchbook.db"
+    )]
+    pub db: PathBuf,
+    /// Print only warnings, errors and requested listings.
+    #[arg(long, global = true)]
+    pub quiet: bool,
+}
+
+impl Global {
+    /// Print an informational line to stderr unless `--quiet`.
+    pub fn info(&self, msg: &str) {
+        if !self.quiet {
+            eprintln!("glitchbook: {msg}");
+        }
+    }
+}
+
+/// Print a warning to stderr (always, even with `--quiet`).
+pub fn warn(msg: &str) {
+    eprintln!("glitchbook: warning: {msg}");
+}
+
+/// The subcommands. Later stages add their variants here (cluster, families,
+/// label, assign, witnesses, vetoes, rates, report, demo, plan), each with
+/// its own file in `src/cli/`.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Search channels of a bundle for transients and record the triggers.
+    Scan(scan::ScanArgs),
+    /// Record triggers from an external CSV file.
+    Import(import::ImportArgs),
+    /// List triggers.
+    Triggers(triggers::TriggersArgs),
+    /// List channels with their scan and trigger counts and analysed time.
+    Channels(channels::ChannelsArgs),
+    /// Check the catalogue's integrity (exit status 1 when a check fails).
+    Check(check::CheckArgs),
+}
+
+/// Run one command.
+pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
+    let g = &cli.global;
+    match cli.command {
+        Command::Scan(a) => scan::run(g, a),
+        Command::Import(a) => import::run(g, a),
+        Command::Triggers(a) => triggers::run(g, a),
+        Command::Channels(a) => channels::run(g, a),
+        Command::Check(a) => check::run(g, a),
+    }
+}
+
+/// Parse an optional finite number flag.
+pub fn finite(name: &str, v: Option<f64>) -> anyhow::Result<Option<f64>> {
+    match v {
+        Some(x) if !x.is_finite() => anyhow::bail!("--{name} must be a finite number, got {x}"),
+        _ => Ok(v),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn cli_definition_is_consistent() {
+        Cli::command().debug_assert();
+    }
+}

@@ -1,0 +1,60 @@
+//! `glitchbook triggers`: list stored triggers.
+use super::{finite, Global};
+use anyhow::{bail, Result};
+use glitchbook::catalogue::{self, TriggerQuery};
+use glitchbook::output::{write_rows, Format};
+use std::process::ExitCode;
+
+/// List triggers, earliest first.
+#[derive(Debug, clap::Args)]
+#[command(allow_negative_numbers = true)]
+pub struct TriggersArgs {
+    /// Only this channel.
+    #[arg(long, value_name = "NAME")]
+    pub channel: Option<String>,
+    /// Only triggers with SNR at least X.
+    #[arg(long, value_name = "X")]
+    pub min_snr: Option<f64>,
+    /// Only triggers peaking at or after T [GPS s].
+    #[arg(long, value_name = "T")]
+    pub since: Option<f64>,
+    /// Only triggers peaking before T [GPS s].
+    #[arg(long, value_name = "T")]
+    pub until: Option<f64>,
+    /// At most N rows.
+    #[arg(long, value_name = "N")]
+    pub limit: Option<usize>,
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = Format::Table)]
+    pub format: Format,
+}
+
+impl TriggersArgs {
+    /// Check the flags (no I/O).
+    pub fn validate(&self) -> Result<TriggerQuery> {
+        let since = finite("since", self.since)?;
+        let until = finite("until", self.until)?;
+        let min_snr = finite("min-snr", self.min_snr)?;
+        if let (Some(a), Some(b)) = (since, until) {
+            if a >= b {
+                bail!("--since ({a}) must be before --until ({b})");
+            }
+        }
+        Ok(TriggerQuery {
+            channel: self.channel.clone(),
+            min_snr,
+            since,
+            until,
+            limit: self.limit,
+        })
+    }
+}
+
+/// Run the command.
+pub fn run(g: &Global, args: TriggersArgs) -> Result<ExitCode> {
+    let q = args.validate()?;
+    let conn = catalogue::open_existing(&g.db)?;
+    let rows = catalogue::query_triggers(&conn, &q)?;
+    write_rows(&mut std::io::stdout().lock(), args.format, &rows)?;
+    Ok(ExitCode::SUCCESS)
+}
