@@ -2,11 +2,11 @@
 //! NaN dropouts), condition and tile each stretch in overlapping blocks, and
 //! cluster significant tiles into triggers.
 use crate::condition::{highpass_gain, tukey, whiten, Welch};
-use crate::io::ChannelSpec;
+use crate::io::{ChannelSpec, NpyReader};
 use crate::segments::{Segment, SegmentList};
 use crate::tf::{QPlan, Tile, Tiling, Workspace};
 use crate::trigger::{cluster_tiles, energy_from_snr, Trigger};
-use anyhow::{anyhow, bail, Result};
+use anyhow::{anyhow, bail, Context, Result};
 use rayon::prelude::*;
 use realfft::num_complex::Complex;
 use rustfft::FftPlanner;
@@ -497,16 +497,56 @@ pub fn read_and_whiten(
     Conditioner::new(n, pad, welch_n, highpass)?.whiten_block(src, i0)
 }
 
-/// Scan one channel of a bundle (see [`scan_source`]).
+/// A bundle channel's `.npy` file as a [`SampleSource`].
+pub struct NpyChannel {
+    reader: NpyReader,
+    rate_hz: f64,
+    start_gps: f64,
+}
+
+impl NpyChannel {
+    /// Open the channel's file (header checked, nothing else read).
+    ///
+    /// # Errors
+    /// As [`NpyReader::open`].
+    pub fn open(spec: &ChannelSpec) -> Result<NpyChannel> {
+        Ok(NpyChannel { reader: NpyReader::open(&spec.file)?, rate_hz: spec.rate, start_gps: spec.start })
+    }
+}
+
+impl SampleSource for NpyChannel {
+    fn rate_hz(&self) -> f64 {
+        self.rate_hz
+    }
+    fn start_gps(&self) -> f64 {
+        self.start_gps
+    }
+    fn len(&self) -> usize {
+        self.reader.len
+    }
+    fn read(&self, start: usize, out: &mut [f64]) -> Result<()> {
+        self.reader.read_f64(start, out)
+    }
+    fn describe(&self) -> String {
+        self.reader.path().display().to_string()
+    }
+}
+
+/// Scan one channel of a bundle (see [`scan_source`]); the file is read in
+/// blocks, never whole.
 ///
 /// # Errors
-/// As [`scan_source`], plus unreadable `.npy` files.
+/// As [`scan_source`], plus unreadable `.npy` files; messages name the
+/// channel.
 pub fn scan_channel(
     spec: &ChannelSpec,
     params: &ScanParams,
     segments: Option<&SegmentList>,
     progress: &(dyn Fn(f64) + Sync),
 ) -> Result<ChannelScan> {
-    let _ = (spec, params, segments, progress);
-    bail!("scanning .npy files lands with the io module")
+    let src = NpyChannel::open(spec)?;
+    let (params, analysed, triggers, input_checksum) =
+        scan_source(&src, params, (spec.fmin, spec.fmax), segments, progress)
+            .with_context(|| format!("channel {}", spec.name))?;
+    Ok(ChannelScan { channel: spec.clone(), params, analysed, triggers, input_checksum })
 }
