@@ -1,1 +1,1 @@
-
+mod io_inputs;
