@@ -760,6 +760,18 @@ fn trigger_csv_bad_input_matrix() {
         ),
         ("time,frequency,snr,q\n1,100,5,0\n", vec![":2: column 'q'"]),
         (
+            "time,frequency,snr\n1,100,1e200\n",
+            vec![":2: column 'snr'", "too large"],
+        ),
+        (
+            "time,frequency,snr,bandwidth\n1,100,5,1e-320\n",
+            vec![":2: column 'bandwidth'", "too small"],
+        ),
+        (
+            "time,frequency,snr,duration\n-1.7e308,100,5,1.7e308\n",
+            vec![":2: column 't_start'", "not finite"],
+        ),
+        (
             "time,frequency,snr,t_start\n1,100,5,2\n",
             vec![":2: column 't_start'"],
         ),

@@ -328,6 +328,16 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
         let t_end = te_col.unwrap_or(time + dur.unwrap_or(0.0) / 2.0);
         let f_low = fl_col.unwrap_or(freq - bw.unwrap_or(0.0) / 2.0);
         let f_high = fh_col.unwrap_or(freq + bw.unwrap_or(0.0) / 2.0);
+        for (value, col) in [
+            (t_start, "t_start"),
+            (t_end, "t_end"),
+            (f_low, "f_low"),
+            (f_high, "f_high"),
+        ] {
+            if !value.is_finite() {
+                bail!("{name}:{line}: column '{col}': derived value {value} is not finite");
+            }
+        }
         if t_start > time {
             bail!("{name}:{line}: column 't_start': {t_start} is after the peak time {time}");
         }
@@ -356,10 +366,17 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
             Some(q) if q <= 0.0 => bail!("{name}:{line}: column 'q': {q} must be > 0"),
             Some(q) => q,
             None => match bandwidth {
-                Some(b) if b > 0.0 => freq / b,
+                Some(b) if b > 0.0 && (freq / b).is_finite() => freq / b,
+                Some(b) if b > 0.0 => {
+                    bail!("{name}:{line}: column 'bandwidth': {b} Hz is too small to derive q")
+                }
                 _ => f64::NAN,
             },
         };
+        let energy = energy_from_snr(snr);
+        if !energy.is_finite() {
+            bail!("{name}:{line}: column 'snr': {snr} is too large (energy 1 + snr²/2 overflows)");
+        }
         out.push(Trigger {
             t_peak: time,
             t_start,
@@ -369,7 +386,7 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
             f_high,
             snr,
             q,
-            energy: energy_from_snr(snr),
+            energy,
         });
         Ok(())
     })?;
