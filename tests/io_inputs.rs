@@ -760,6 +760,10 @@ fn trigger_csv_bad_input_matrix() {
         ),
         ("time,frequency,snr,q\n1,100,5,0\n", vec![":2: column 'q'"]),
         (
+            "time,frequency,snr,note\n1,100,5,\"two\nlines\"\n2,100,abc,x\n",
+            vec![":4: column 'snr'"],
+        ),
+        (
             "time,frequency,snr\n1,100,1e200\n",
             vec![":2: column 'snr'", "too large"],
         ),
