@@ -528,6 +528,14 @@ fn bundle_bad_input_matrix() {
         ),
         (ch("").replace("name = \"A\"", "name = \"  \""), vec!["channel #1", "field 'name'"]),
         ("description = \"nothing here\"\n".into(), vec!["no channels"]),
+        (
+            ch("").replace("\"target\"", "\"tar\\nget\""),
+            vec!["field 'role' = \"tar\\nget\""],
+        ),
+        (
+            ch("").replace("name = \"A\"", "name = \"A\\nB\""),
+            vec!["field 'name'", "control character"],
+        ),
         (String::new(), vec!["no channels"]),
         (
             ch("").replace("strain.npy", "missing.npy"),
@@ -762,6 +770,11 @@ fn trigger_csv_bad_input_matrix() {
         (
             "time,frequency,snr,note\n1,100,5,\"two\nlines\"\n2,100,abc,x\n",
             vec![":4: column 'snr'"],
+        ),
+        (
+            // Found by cargo fuzz: a multi-line quoted cell echoed in the error.
+            "time,frequency,snr\n\"8\nw\",100,5\n",
+            vec![":2: column 'time': '8\\nw' is not a number"],
         ),
         (
             "time,frequency,snr\n1,100,1e200\n",

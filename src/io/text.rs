@@ -4,6 +4,7 @@
 //! numbers are 1-based lines of the file), or `file: what is wrong` when no
 //! line is at fault. The `parse_*` functions take the file's contents and a
 //! name to use in messages; the `read_*` functions read a file and call them.
+use super::shown;
 use crate::segments::{Segment, SegmentList};
 use crate::trigger::{energy_from_snr, Trigger};
 use anyhow::{anyhow, bail};
@@ -72,9 +73,9 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
         let num = |s: &str, what: &str| -> anyhow::Result<f64> {
             let v: f64 = s
                 .parse()
-                .map_err(|_| anyhow!("{name}:{line_no}: {what} '{s}' is not a number"))?;
+                .map_err(|_| anyhow!("{name}:{line_no}: {what} '{}' is not a number", shown(s)))?;
             if !v.is_finite() {
-                bail!("{name}:{line_no}: {what} '{s}' is not finite");
+                bail!("{name}:{line_no}: {what} '{}' is not finite", shown(s));
             }
             Ok(v)
         };
@@ -156,7 +157,10 @@ impl<'a> Table<'a> {
         for (i, h) in headers.iter().enumerate() {
             let key = h.to_ascii_lowercase();
             if columns.insert(key, i).is_some() {
-                bail!("{name}:1: column '{h}' appears twice in the header");
+                bail!(
+                    "{name}:1: column '{}' appears twice in the header",
+                    shown(h)
+                );
             }
         }
         Ok(Table {
@@ -244,11 +248,17 @@ fn cell(
     if s.is_empty() {
         return Ok(None);
     }
-    let v: f64 = s
-        .parse()
-        .map_err(|_| anyhow!("{name}:{line}: column '{col_name}': '{s}' is not a number"))?;
+    let v: f64 = s.parse().map_err(|_| {
+        anyhow!(
+            "{name}:{line}: column '{col_name}': '{}' is not a number",
+            shown(s)
+        )
+    })?;
     if !v.is_finite() {
-        bail!("{name}:{line}: column '{col_name}': '{s}' is not finite");
+        bail!(
+            "{name}:{line}: column '{col_name}': '{}' is not finite",
+            shown(s)
+        );
     }
     Ok(Some(v))
 }
