@@ -46,3 +46,4 @@ mod reliability_injection;
 mod reliability_kill;
 /// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
 mod reliability_upgrade;
+mod io_inputs;

@@ -16,6 +16,7 @@
 //! Every error is one line naming `bundle.toml` (with line and column where
 //! TOML gives one), the channel (1-based index and name) and the field.
 use super::npy::NpyReader;
+use super::shown;
 use anyhow::{anyhow, bail};
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
@@ -135,6 +136,13 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> anyhow::Result<Bundle> {
         if name.is_empty() {
             bail!("{}: field 'name' is empty", at(ch.name.span()));
         }
+        if name.chars().any(char::is_control) {
+            bail!(
+                "{}: field 'name' = \"{}\" contains a control character",
+                at(ch.name.span()),
+                shown(&name)
+            );
+        }
         let here = |span: std::ops::Range<usize>| format!("{} '{name}'", at(span));
         if let Some(prev) = channels.iter().position(|c| c.name == name) {
             bail!(
@@ -146,6 +154,13 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> anyhow::Result<Bundle> {
         let file_rel = ch.file.get_ref();
         if file_rel.trim().is_empty() {
             bail!("{}: field 'file' is empty", here(ch.file.span()));
+        }
+        if file_rel.chars().any(char::is_control) {
+            bail!(
+                "{}: field 'file' = \"{}\" contains a control character",
+                here(ch.file.span()),
+                shown(file_rel)
+            );
         }
         let joined = dir.join(file_rel);
         let file = std::path::absolute(&joined).unwrap_or(joined);
@@ -174,8 +189,9 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> anyhow::Result<Bundle> {
             "target" => Role::Target,
             "aux" => Role::Aux,
             other => bail!(
-                "{}: field 'role' = \"{other}\" must be \"target\" or \"aux\"",
-                here(ch.role.span())
+                "{}: field 'role' = \"{}\" must be \"target\" or \"aux\"",
+                here(ch.role.span()),
+                shown(other)
             ),
         };
         let nyquist = rate / 2.0;

@@ -13,3 +13,18 @@ pub use text::{
     parse_injections, parse_segments, parse_trigger_csv, read_injections, read_segments_file,
     read_trigger_csv,
 };
+
+/// A user-supplied string made safe for a one-line message: control
+/// characters escaped (`\n`, `\u{0}`, ...) and long strings shortened.
+pub(crate) fn shown(s: &str) -> String {
+    const MAX_CHARS: usize = 60;
+    let mut out: String = s
+        .chars()
+        .take(MAX_CHARS)
+        .flat_map(char::escape_debug)
+        .collect();
+    if s.chars().count() > MAX_CHARS {
+        out.push('…');
+    }
+    out
+}

@@ -511,6 +511,13 @@ impl NpyReader {
             );
         }
         let t_of = |i: usize| start_gps + i as f64 / rate_hz;
+        if !t_of(self.len).is_finite() {
+            bail!(
+                "{}: end time of {} samples at {rate_hz} Hz from {start_gps} s is not finite",
+                self.path.display(),
+                self.len
+            );
+        }
         let mut segs = Vec::new();
         let mut run_start: Option<usize> = None;
         let mut buf = vec![0.0f64; chunk_samples.min(self.len)];

@@ -4,6 +4,7 @@
 //! numbers are 1-based lines of the file), or `file: what is wrong` when no
 //! line is at fault. The `parse_*` functions take the file's contents and a
 //! name to use in messages; the `read_*` functions read a file and call them.
+use super::shown;
 use crate::segments::{Segment, SegmentList};
 use crate::trigger::{energy_from_snr, Trigger};
 use anyhow::{anyhow, bail};
@@ -53,9 +54,9 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
             warnings.push(w);
         }
     };
-    // Previous positive-length line (start, line) and the line reaching furthest.
+    // Previous positive-length line: (start, line).
     let mut prev: Option<(f64, usize)> = None;
-    let mut furthest: Option<(f64, usize)> = None;
+    let mut lines: Vec<usize> = Vec::new();
     for (idx, raw) in text.lines().enumerate() {
         let line_no = idx + 1;
         let content = raw.split('#').next().unwrap_or("").trim();
@@ -72,9 +73,9 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
         let num = |s: &str, what: &str| -> anyhow::Result<f64> {
             let v: f64 = s
                 .parse()
-                .map_err(|_| anyhow!("{name}:{line_no}: {what} '{s}' is not a number"))?;
+                .map_err(|_| anyhow!("{name}:{line_no}: {what} '{}' is not a number", shown(s)))?;
             if !v.is_finite() {
-                bail!("{name}:{line_no}: {what} '{s}' is not finite");
+                bail!("{name}:{line_no}: {what} '{}' is not finite", shown(s));
             }
             Ok(v)
         };
@@ -96,18 +97,27 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
                 ));
             }
         }
-        if let Some((f_end, f_line)) = furthest {
-            if start < f_end {
+        prev = Some((start, line_no));
+        segs.push(Segment::new(start, end));
+        lines.push(line_no);
+    }
+    // Overlaps, found in time order: each segment against the one reaching
+    // furthest among those starting no later (touching is not an overlap).
+    let mut order: Vec<usize> = (0..segs.len()).collect();
+    order.sort_by(|&a, &b| segs[a].start.total_cmp(&segs[b].start).then(a.cmp(&b)));
+    let mut furthest: Option<usize> = None;
+    for &k in &order {
+        if let Some(f) = furthest {
+            if segs[k].start < segs[f].end {
+                let (first, second) = (lines[f].min(lines[k]), lines[f].max(lines[k]));
                 warn(format!(
-                    "{name}:{line_no}: segment overlaps the one on line {f_line}; merged"
+                    "{name}:{second}: segment overlaps the one on line {first}; merged"
                 ));
             }
         }
-        prev = Some((start, line_no));
-        if furthest.is_none_or(|(f_end, _)| end > f_end) {
-            furthest = Some((end, line_no));
+        if furthest.is_none_or(|f| segs[k].end > segs[f].end) {
+            furthest = Some(k);
         }
-        segs.push(Segment::new(start, end));
     }
     if n_warned > MAX_LISTED_WARNINGS {
         warnings.push(format!(
@@ -122,19 +132,20 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
 }
 
 /// A CSV file with a header row, its columns located by name.
-struct Table {
+struct Table<'a> {
     name: String,
-    reader: csv::Reader<std::io::Cursor<Vec<u8>>>,
+    bytes: &'a [u8],
+    reader: csv::Reader<&'a [u8]>,
     columns: HashMap<String, usize>,
 }
 
-impl Table {
-    fn new(bytes: &[u8], name: &str) -> anyhow::Result<Table> {
+impl<'a> Table<'a> {
+    fn new(bytes: &'a [u8], name: &str) -> anyhow::Result<Table<'a>> {
         let mut reader = csv::ReaderBuilder::new()
             .has_headers(true)
             .trim(csv::Trim::All)
             .comment(Some(b'#'))
-            .from_reader(std::io::Cursor::new(bytes.to_vec()));
+            .from_reader(bytes);
         let headers = reader
             .headers()
             .map_err(|e| anyhow!("{name}: {}", csv_error_text(&e)))?
@@ -146,11 +157,15 @@ impl Table {
         for (i, h) in headers.iter().enumerate() {
             let key = h.to_ascii_lowercase();
             if columns.insert(key, i).is_some() {
-                bail!("{name}:1: column '{h}' appears twice in the header");
+                bail!(
+                    "{name}:1: column '{}' appears twice in the header",
+                    shown(h)
+                );
             }
         }
         Ok(Table {
             name: name.to_owned(),
+            bytes,
             reader,
             columns,
         })
@@ -165,6 +180,28 @@ impl Table {
         })
     }
 
+    /// 1-based line of the record starting at byte `offset`. The CSV reader's
+    /// own line count skips comment lines, so count newlines here, then step
+    /// over the blank and `#` lines the reader skips before a record.
+    fn line_at(&self, offset: u64) -> u64 {
+        let mut off = (offset as usize).min(self.bytes.len());
+        let mut line = 1 + self.bytes[..off].iter().filter(|&&b| b == b'\n').count() as u64;
+        while let Some(rest) = self.bytes.get(off..).filter(|r| !r.is_empty()) {
+            let skipped = matches!(rest[0], b'#' | b'\n') || rest.starts_with(b"\r\n");
+            if !skipped {
+                break;
+            }
+            match rest.iter().position(|&b| b == b'\n') {
+                Some(nl) => {
+                    off += nl + 1;
+                    line += 1;
+                }
+                None => break,
+            }
+        }
+        line
+    }
+
     /// Visit each record with its 1-based line number.
     fn for_each(
         &mut self,
@@ -175,11 +212,11 @@ impl Table {
             match self.reader.read_record(&mut rec) {
                 Ok(false) => return Ok(()),
                 Ok(true) => {
-                    let line = rec.position().map_or(0, |p| p.line());
+                    let line = rec.position().map_or(0, |p| self.line_at(p.byte()));
                     f(&rec, line)?;
                 }
                 Err(e) => {
-                    let line = e.position().map_or(0, |p| p.line());
+                    let line = e.position().map_or(0, |p| self.line_at(p.byte()));
                     bail!("{}:{line}: {}", self.name, csv_error_text(&e));
                 }
             }
@@ -211,11 +248,17 @@ fn cell(
     if s.is_empty() {
         return Ok(None);
     }
-    let v: f64 = s
-        .parse()
-        .map_err(|_| anyhow!("{name}:{line}: column '{col_name}': '{s}' is not a number"))?;
+    let v: f64 = s.parse().map_err(|_| {
+        anyhow!(
+            "{name}:{line}: column '{col_name}': '{}' is not a number",
+            shown(s)
+        )
+    })?;
     if !v.is_finite() {
-        bail!("{name}:{line}: column '{col_name}': '{s}' is not finite");
+        bail!(
+            "{name}:{line}: column '{col_name}': '{}' is not finite",
+            shown(s)
+        );
     }
     Ok(Some(v))
 }
@@ -295,6 +338,16 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
         let t_end = te_col.unwrap_or(time + dur.unwrap_or(0.0) / 2.0);
         let f_low = fl_col.unwrap_or(freq - bw.unwrap_or(0.0) / 2.0);
         let f_high = fh_col.unwrap_or(freq + bw.unwrap_or(0.0) / 2.0);
+        for (value, col) in [
+            (t_start, "t_start"),
+            (t_end, "t_end"),
+            (f_low, "f_low"),
+            (f_high, "f_high"),
+        ] {
+            if !value.is_finite() {
+                bail!("{name}:{line}: column '{col}': derived value {value} is not finite");
+            }
+        }
         if t_start > time {
             bail!("{name}:{line}: column 't_start': {t_start} is after the peak time {time}");
         }
@@ -323,10 +376,17 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
             Some(q) if q <= 0.0 => bail!("{name}:{line}: column 'q': {q} must be > 0"),
             Some(q) => q,
             None => match bandwidth {
-                Some(b) if b > 0.0 => freq / b,
+                Some(b) if b > 0.0 && (freq / b).is_finite() => freq / b,
+                Some(b) if b > 0.0 => {
+                    bail!("{name}:{line}: column 'bandwidth': {b} Hz is too small to derive q")
+                }
                 _ => f64::NAN,
             },
         };
+        let energy = energy_from_snr(snr);
+        if !energy.is_finite() {
+            bail!("{name}:{line}: column 'snr': {snr} is too large (energy 1 + snr²/2 overflows)");
+        }
         out.push(Trigger {
             t_peak: time,
             t_start,
@@ -336,7 +396,7 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
             f_high,
             snr,
             q,
-            energy: energy_from_snr(snr),
+            energy,
         });
         Ok(())
     })?;
