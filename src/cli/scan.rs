@@ -159,7 +159,7 @@ pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let mut lines = Vec::new();
     for r in &results {
-        let msg = match catalogue::insert_channel_scan(&tx, r, &args.bundle)? {
+        let msg = match catalogue::insert_channel_scan(&tx, r, &bundle_dir)? {
             InsertOutcome::Inserted { n_triggers, .. } => format!(
                 "{}: {n_triggers} triggers in {:.1} s analysed",
                 r.channel.name,
