@@ -8,6 +8,7 @@
 pub mod catalogue;
 pub mod condition;
 pub mod io;
+pub mod plan;
 pub mod scan;
 pub mod segments;
 pub mod tf;

@@ -11,8 +11,11 @@ use std::path::Path;
 /// Numbered migrations, applied in order; the schema version is
 /// `PRAGMA user_version` = number of migrations applied. Never edit a
 /// migration that has shipped: add a new one.
-pub const MIGRATIONS: &[(&str, &str)] =
-    &[("0001_init", include_str!("../../migrations/0001_init.sql"))];
+// At integration: 0001_init, 0002_families, 0003_coupling, 0004_merges.
+pub const MIGRATIONS: &[(&str, &str)] = &[
+    ("0001_init", include_str!("../../migrations/0001_init.sql")),
+    ("0004_merges", include_str!("../../migrations/0004_merges.sql")),
+];
 
 /// Schema version this build writes.
 pub fn schema_version() -> i64 {
