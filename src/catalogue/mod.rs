@@ -14,7 +14,10 @@ use std::path::Path;
 // At integration: 0001_init, 0002_families, 0003_coupling, 0004_merges.
 pub const MIGRATIONS: &[(&str, &str)] = &[
     ("0001_init", include_str!("../../migrations/0001_init.sql")),
-    ("0004_merges", include_str!("../../migrations/0004_merges.sql")),
+    (
+        "0004_merges",
+        include_str!("../../migrations/0004_merges.sql"),
+    ),
 ];
 
 /// Schema version this build writes.

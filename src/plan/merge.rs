@@ -43,9 +43,10 @@ struct ShardScanRow {
 ///
 /// - Shards whose scans used other parameters or another tool version than
 ///   the plan are refused unless `force` (then recorded in `merges`).
-/// - Edge triggers: two triggers of the same channel from different shards
-///   of this plan whose `[t_start, t_end]` overlap are one trigger; the
-///   louder (higher SNR) is kept.
+/// - Edge twins: two triggers of the same channel from different shards of
+///   this plan whose `[t_start, t_end]` overlap and whose peak tiles overlap
+///   in time and frequency are one trigger; the louder (higher SNR) is kept.
+///   (Shards scan a margin beyond their edges, so twins are rare.)
 /// - A shard already merged (same plan id and shard) is skipped, so merging
 ///   twice changes nothing.
 ///
@@ -85,11 +86,9 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             continue;
         }
         // Open the shard read-only; its rows are copied scan by scan.
-        let shard = rusqlite::Connection::open_with_flags(
-            &db,
-            rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY,
-        )
-        .with_context(|| format!("opening shard catalogue {}", db.display()))?;
+        let shard =
+            rusqlite::Connection::open_with_flags(&db, rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY)
+                .with_context(|| format!("opening shard catalogue {}", db.display()))?;
         let runs: Vec<(String, i64, String)> = shard
             .prepare("SELECT plan_id, shard, tool_version FROM shard_runs")?
             .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?
@@ -185,14 +184,17 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                 "INSERT OR IGNORE INTO channels(name, role, rate_hz) VALUES (?1, ?2, ?3)",
                 params![s.channel, s.role, s.rate_hz],
             )?;
-            let ch_id: i64 =
-                tx.query_row("SELECT id FROM channels WHERE name = ?1", [&s.channel], |r| {
-                    r.get(0)
-                })?;
+            let ch_id: i64 = tx.query_row(
+                "SELECT id FROM channels WHERE name = ?1",
+                [&s.channel],
+                |r| r.get(0),
+            )?;
             let exists: Option<i64> = tx
-                .query_row("SELECT id FROM scans WHERE run_key = ?1", [&s.run_key], |r| {
-                    r.get(0)
-                })
+                .query_row(
+                    "SELECT id FROM scans WHERE run_key = ?1",
+                    [&s.run_key],
+                    |r| r.get(0),
+                )
                 .optional()?;
             if exists.is_some() {
                 continue;
@@ -255,7 +257,7 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             max_len_ns = max_len_ns.max(shard_max);
             let keep = keep_by_channel.get(s.channel.as_str());
             let mut twins = tx.prepare_cached(
-                "SELECT t.id, t.snr FROM triggers t \
+                "SELECT t.id, t.snr, t.t_peak_ns, t.f_peak_hz, t.q FROM triggers t \
                  JOIN merged_scans ms ON ms.scan_id = t.scan_id \
                  JOIN merges m ON m.id = ms.merge_id \
                  WHERE m.plan_id = ?1 AND t.channel_id = ?2 AND t.scan_id != ?3 \
@@ -290,9 +292,21 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                                 t.2,
                                 t.1
                             ],
-                            |r| Ok((r.get(0)?, r.get(1)?)),
+                            |r| {
+                                Ok((
+                                    r.get::<_, i64>(0)?,
+                                    r.get::<_, f64>(1)?,
+                                    r.get::<_, i64>(2)?,
+                                    r.get::<_, f64>(3)?,
+                                    r.get::<_, Option<f64>>(4)?,
+                                ))
+                            },
                         )?
-                        .collect::<rusqlite::Result<_>>()?;
+                        .collect::<rusqlite::Result<Vec<_>>>()?
+                        .into_iter()
+                        .filter(|y| peak_tiles_overlap((t.0, t.3, t.7), (y.2, y.3, y.4)))
+                        .map(|y| (y.0, y.1))
+                        .collect();
                     if !found.is_empty() {
                         if found.iter().all(|f| t.6 > f.1) {
                             // The incoming trigger is louder than its twins.
@@ -325,6 +339,19 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             .extend(notes.into_iter().map(|n| format!("shard {k}: {n}")));
     }
     Ok(report)
+}
+
+/// Whether the peak tiles of two triggers overlap in time and frequency
+/// (the suppression test of `trigger::cluster_tiles`): `(t_peak_ns, f_peak,
+/// q)`; with an unknown Q the extents' overlap alone decides.
+fn peak_tiles_overlap(x: (i64, f64, Option<f64>), y: (i64, f64, Option<f64>)) -> bool {
+    let (Some(qx), Some(qy)) = (x.2, y.2) else {
+        return true;
+    };
+    let hd = |q: f64, f: f64| 2.0 * crate::tf::sigma_t(q, f);
+    let hb = |q: f64, f: f64| 2.0 * f / q;
+    let dt = (x.0 - y.0).abs() as f64 * 1e-9;
+    dt < hd(qx, x.1) + hd(qy, y.1) && (x.1 - y.1).abs() < hb(qx, x.1) + hb(qy, y.1)
 }
 
 /// Parameter JSON equality by value (key order and float formatting aside).

@@ -14,9 +14,11 @@
 //! overlap and no gap. Each interior edge is snapped to the channel's block
 //! grid (the block boundaries a single scan of the whole stretch would use),
 //! and a shard scans its keep span widened by the conditioning padding
-//! (`ResolvedParams::pad_s`). So each shard tiles exactly the blocks a single
-//! scan would, and the only difference is trigger clustering across an edge,
-//! which [`merge`] undoes (edge triggers that overlap are one trigger).
+//! (`ResolvedParams::pad_s`) plus one block step of margin. So each shard
+//! tiles exactly the blocks a single scan would, clusters near an edge see
+//! the same tiles on both sides, and a trigger belongs to the shard whose
+//! keep span holds its `t_peak` (so it appears once). [`merge`] still folds
+//! edge twins (a chain of tiles longer than the margin) into one.
 
 mod merge;
 mod run;
@@ -24,8 +26,8 @@ mod slurm;
 
 pub use merge::{merge, MergeReport};
 pub use run::{
-    clip_to_shard, run_local, run_shard, run_shard_with, shard_db_path, status, write_shard_catalogue,
-    ShardState, ShardStatus,
+    clip_to_shard, run_local, run_shard, run_shard_with, shard_db_path, status,
+    write_shard_catalogue, ShardState, ShardStatus,
 };
 pub use slurm::{slurm_script, SlurmOptions};
 
@@ -112,8 +114,9 @@ pub struct ShardChannel {
     /// `t_peak` here belong to the shard. Keep spans of all shards partition
     /// the channel's usable time.
     pub keep: Vec<[f64; 2]>,
-    /// Time to scan \[GPS s\]: keep widened by the padding ∩ usable time,
-    /// only stretches long enough to analyse. Empty = nothing to scan.
+    /// Time to scan \[GPS s\]: keep widened by the padding plus one block
+    /// step (`block_s - 2 pad_s`, so edge clusters are complete) ∩ usable
+    /// time, only stretches long enough to analyse. Empty = nothing to scan.
     pub scan: Vec<[f64; 2]>,
 }
 
@@ -394,11 +397,11 @@ pub fn channel_pieces(
             if b - a >= min_len {
                 // A quarter sample outwards so the scan's ceil/floor recovers
                 // exactly these sample indices.
-                let (s_lo, s_hi) = ((lo - pad).max(a), (hi + pad).min(b));
-                scan[p].push(Segment::new(
-                    t_of(s_lo) - 0.25 / fs,
-                    t_of(s_hi) + 0.25 / fs,
-                ));
+                // Scan one block step beyond the padding on each side, so
+                // clusters of tiles near an edge are complete in both shards
+                // (the owner is then decided by t_peak alone). Still on the grid.
+                let (s_lo, s_hi) = ((lo - pad - step).max(a), (hi + pad + step).min(b));
+                scan[p].push(Segment::new(t_of(s_lo) - 0.25 / fs, t_of(s_hi) + 0.25 / fs));
             }
         }
     }
@@ -502,7 +505,10 @@ fn write_plan_dir(plan: &Plan, out_dir: &Path) -> Result<()> {
     #[cfg(unix)]
     {
         use std::os::unix::fs::PermissionsExt;
-        std::fs::set_permissions(dir.join("run-array.sh"), std::fs::Permissions::from_mode(0o755))?;
+        std::fs::set_permissions(
+            dir.join("run-array.sh"),
+            std::fs::Permissions::from_mode(0o755),
+        )?;
     }
     write("README.txt", &slurm::readme(plan, &dir))?;
     Ok(())
@@ -533,8 +539,7 @@ pub fn load_plan(dir: &Path) -> Result<Plan> {
 /// An unreadable plan or `k` out of range.
 pub fn shard_job(plan_dir: &Path, k: usize) -> Result<ShardJob> {
     let plan = load_plan(plan_dir)?;
-    shard_job_of(&plan, k)
-        .with_context(|| format!("{}", plan_dir.join("plan.json").display()))
+    shard_job_of(&plan, k).with_context(|| format!("{}", plan_dir.join("plan.json").display()))
 }
 
 /// [`shard_job`] for a loaded plan.

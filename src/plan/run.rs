@@ -47,7 +47,11 @@ pub fn write_shard_catalogue(
 ) -> Result<PathBuf> {
     let db = shard_db_path(plan_dir, k);
     let tmp = db.with_extension("db.tmp");
-    for p in [&tmp, &tmp.with_extension("tmp-wal"), &tmp.with_extension("tmp-shm")] {
+    for p in [
+        &tmp,
+        &tmp.with_extension("tmp-wal"),
+        &tmp.with_extension("tmp-shm"),
+    ] {
         let _ = std::fs::remove_file(p);
     }
     {
@@ -156,7 +160,11 @@ pub fn run_shard_with(
         let mut out = Vec::new();
         for c in job.channels.iter().filter(|c| !c.scan.is_empty()) {
             let s = scan(c, &job.params).with_context(|| {
-                format!("shard {k}: channel {} of {}", c.channel.name, c.channel.bundle.display())
+                format!(
+                    "shard {k}: channel {} of {}",
+                    c.channel.name,
+                    c.channel.bundle.display()
+                )
             })?;
             out.push(clip_to_shard(s, &c.keep));
         }
@@ -186,7 +194,11 @@ pub fn run_shard(plan_dir: &Path, k: usize) -> Result<PathBuf> {
         let ch = &c.channel;
         let bundle = crate::io::Bundle::open(&ch.bundle)?;
         let Some(spec) = bundle.channels.iter().find(|s| s.name == ch.name) else {
-            bail!("{}: channel {} is no longer in the bundle", ch.bundle.display(), ch.name);
+            bail!(
+                "{}: channel {} is no longer in the bundle",
+                ch.bundle.display(),
+                ch.name
+            );
         };
         let meta = std::fs::metadata(&spec.file)
             .with_context(|| format!("{}: cannot stat", spec.file.display()))?;
@@ -326,7 +338,12 @@ pub fn run_local(dir: &Path, jobs: usize, exe: &Path) -> Result<Vec<ShardStatus>
         .map(|s| format!("shard {} failed (log {})", s.index, s.log.display()))
         .collect();
     if !bad.is_empty() {
-        bail!("{} of {} shards failed: {}", bad.len(), st.len(), bad.join("; "));
+        bail!(
+            "{} of {} shards failed: {}",
+            bad.len(),
+            st.len(),
+            bad.join("; ")
+        );
     }
     Ok(st)
 }

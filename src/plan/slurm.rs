@@ -56,7 +56,10 @@ pub fn slurm_script(plan: &Plan, dir: &Path) -> String {
     if let Some(p) = &o.partition {
         s.push_str(&format!("#SBATCH --partition={p}\n"));
     }
-    s.push_str(&format!("#SBATCH --ntasks=1\n#SBATCH --cpus-per-task={}\n", o.cpus));
+    s.push_str(&format!(
+        "#SBATCH --ntasks=1\n#SBATCH --cpus-per-task={}\n",
+        o.cpus
+    ));
     s.push_str(&format!("#SBATCH --mem={}M\n", o.mem_mb));
     s.push_str(&format!("#SBATCH --time={}\n", o.time_limit));
     s.push_str(&format!("#SBATCH --output={dir_s}/logs/shard-%a.log\n"));
