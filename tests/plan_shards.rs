@@ -531,3 +531,100 @@ fn plan_status_and_local_runner_report_failures_with_logs() {
     let e = plan::shard_job(dir.path(), 9).unwrap_err();
     assert!(format!("{e:#}").contains("0..=3"), "{e:#}");
 }
+
+// ---- End-to-end through a real Slurm (.ci/slurm/e2e.sh) ----
+// These three are #[ignore]d: e2e.sh runs them from the test binary as a
+// stand-in for the CLI (`plan`, `scan --shard K --plan DIR`, `merge`) on
+// synthetic data rebuilt identically from seeds in each process.
+
+const E2E_SHARDS: usize = 6;
+
+fn e2e_chans() -> Vec<Chan> {
+    let fs = 1024.0;
+    let mut strain = noise(1024 * 600, 21);
+    let mut aux = noise(256 * 600, 22);
+    for (i, tc) in [41.7, 133.0, 250.25, 377.9, 512.6].iter().enumerate() {
+        inject(&mut strain, fs, T0 + tc, 70.0 + 10.0 * i as f64, 12.0, 5.0);
+        inject(&mut aux, 256.0, T0 + tc + 0.01, 40.0, 8.0, 5.0);
+    }
+    // A dropout in the strain channel.
+    for v in &mut strain[1024 * 300..1024 * 302] {
+        *v = f64::NAN;
+    }
+    vec![
+        Chan {
+            name: "X1:STRAIN",
+            rate_hz: fs,
+            data: strain,
+        },
+        Chan {
+            name: "X1:AUX-SEIS",
+            rate_hz: 256.0,
+            data: aux,
+        },
+    ]
+}
+
+fn e2e_dir() -> std::path::PathBuf {
+    std::env::var("GB_E2E_DIR")
+        .expect("set GB_E2E_DIR to the plan directory")
+        .into()
+}
+
+#[test]
+#[ignore = "run by .ci/slurm/e2e.sh"]
+fn plan_e2e_make() {
+    let o = PlanOptions {
+        shards: Some(E2E_SHARDS),
+        slurm: plan::SlurmOptions {
+            cpus: 1,
+            mem_mb: 500,
+            time_limit: "00:10:00".into(),
+            ..plan::SlurmOptions::default()
+        },
+        ..PlanOptions::default()
+    };
+    let p = plan_for(&e2e_chans(), None, &o, &e2e_dir());
+    println!("plan {} with {} shards", p.plan_id, p.shards.len());
+}
+
+#[test]
+#[ignore = "run by .ci/slurm/e2e.sh"]
+fn plan_e2e_shard() {
+    let k: usize = std::env::var("GB_E2E_SHARD").unwrap().parse().unwrap();
+    let chans = e2e_chans();
+    let by_name: HashMap<&str, &Chan> = chans.iter().map(|c| (c.name, c)).collect();
+    let db = run_shard_with(&e2e_dir(), k, &|job, params| {
+        scan_mem(by_name[job.channel.name.as_str()], params, Some(&job.scan))
+    })
+    .unwrap();
+    println!("shard {k} -> {}", db.display());
+}
+
+#[test]
+#[ignore = "run by .ci/slurm/e2e.sh"]
+fn plan_e2e_merge_compare() {
+    let dir = e2e_dir();
+    let st = status(&dir).unwrap();
+    assert!(
+        st.iter().all(|s| s.state == ShardState::Done),
+        "not all shards done: {st:?}"
+    );
+    let db = dir.join("merged.db");
+    let rep = merge(&dir, &db, false).unwrap();
+    assert_eq!(rep.merged.len(), E2E_SHARDS);
+    let merged = read_triggers(&db);
+    for c in &e2e_chans() {
+        let one = scan_mem(c, &ScanParams::default(), None).unwrap();
+        assert_same(&one.triggers, &merged[c.name], c.rate_hz, c.name);
+        println!(
+            "{}: {} triggers one-go, {} sharded+merged: identical",
+            c.name,
+            one.triggers.len(),
+            merged[c.name].len()
+        );
+    }
+    let again = merge(&dir, &db, false).unwrap();
+    assert!(again.merged.is_empty());
+    println!("merge report {rep:?}");
+}
