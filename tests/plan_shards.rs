@@ -628,3 +628,62 @@ fn plan_e2e_merge_compare() {
     assert!(again.merged.is_empty());
     println!("merge report {rep:?}");
 }
+
+#[test]
+fn plan_merge_folds_edge_twins_into_the_louder() {
+    // Hand-made shard catalogues around one shard edge: a trigger split in
+    // two by the edge (peak tiles overlap in time and frequency: one
+    // transient, keep the louder) and a neighbour at another frequency whose
+    // extent overlaps but whose peak tile does not (two transients, keep both).
+    let chans = vec![Chan {
+        name: "X1:STRAIN",
+        rate_hz: 256.0,
+        data: noise(256 * 400, 9),
+    }];
+    let dir = tempfile::tempdir().unwrap();
+    let p = plan_for(&chans, None, &opts(2), dir.path());
+    let e = interior_edges(&p, "X1:STRAIN")[0];
+    let trig = |t: f64, f: f64, q: f64, snr: f64, half: f64| Trigger {
+        t_peak: t,
+        t_start: t - half,
+        t_end: t + half,
+        f_peak: f,
+        f_low: f * 0.8,
+        f_high: f * 1.2,
+        snr,
+        q,
+        energy: glitchbook::trigger::energy_from_snr(snr),
+    };
+    let scan = |k: usize, triggers: Vec<Trigger>| ChannelScan {
+        channel: spec(&chans[0]),
+        params: p.channels[0].params.clone(),
+        analysed: SegmentList::from_segments(
+            p.shards[k].channels[0]
+                .keep
+                .iter()
+                .map(|g| Segment::new(g[0], g[1]))
+                .collect(),
+        ),
+        triggers,
+        input_checksum: "00".into(),
+    };
+    // Q = 8 at 50 Hz: tile half-duration 2σ_t ≈ 0.036 s, half-bandwidth 12.5 Hz.
+    // Twice: the louder half merged first, then merged second.
+    for (snr_l, snr_r) in [(12.0, 9.0), (9.0, 12.0)] {
+        let left = vec![trig(e - 0.01, 50.0, 8.0, snr_l, 0.05)];
+        let right = vec![
+            trig(e + 0.01, 52.0, 8.0, snr_r, 0.05), // twin of `left`
+            trig(e + 0.04, 110.0, 8.0, 7.0, 0.03),  // other frequency: its own transient
+            trig(e + 30.0, 50.0, 8.0, 20.0, 0.05),  // far from the edge
+        ];
+        plan::write_shard_catalogue(dir.path(), &p.plan_id, 0, &[scan(0, left)]).unwrap();
+        plan::write_shard_catalogue(dir.path(), &p.plan_id, 1, &[scan(1, right)]).unwrap();
+        let db = dir.path().join(format!("m{snr_l}.db"));
+        let rep = merge(dir.path(), &db, false).unwrap();
+        assert_eq!(rep.n_triggers_in, 4);
+        assert_eq!(rep.n_edge_duplicates, 1, "{rep:?}");
+        let got = &read_triggers(&db)["X1:STRAIN"];
+        let snrs: Vec<f64> = got.iter().map(|t| t.snr).collect();
+        assert_eq!(snrs, vec![12.0, 7.0, 20.0], "{got:?}");
+    }
+}
