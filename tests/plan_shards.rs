@@ -480,6 +480,19 @@ fn plan_merge_refuses_other_parameters_unless_forced() {
         })
         .unwrap();
     assert_eq!(forced, 1);
+    // Another tool version is refused too.
+    let conn = rusqlite::Connection::open(shard_db_path(dir.path(), 0)).unwrap();
+    conn.execute("UPDATE shard_runs SET tool_version = '0.0.1'", [])
+        .unwrap();
+    drop(conn);
+    let err = format!(
+        "{:#}",
+        merge(dir.path(), &dir.path().join("m2.db"), false).unwrap_err()
+    );
+    assert!(
+        err.contains("shard-0.db") && err.contains("tool version 0.0.1"),
+        "{err}"
+    );
 }
 
 #[test]
