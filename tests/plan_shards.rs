@@ -540,6 +540,15 @@ fn plan_status_and_local_runner_report_failures_with_logs() {
     assert!(std::fs::read_to_string(&st[2].log)
         .unwrap()
         .contains("boom"));
+    let text = plan::status_text(&st);
+    assert!(
+        text.starts_with("4 shards: 3 done, 1 failed, 0 missing"),
+        "{text}"
+    );
+    assert!(
+        text.contains("shard 2: failed") && text.contains("shard-2.log"),
+        "{text}"
+    );
     // Bad shard index names the plan and the range.
     let e = plan::shard_job(dir.path(), 9).unwrap_err();
     assert!(format!("{e:#}").contains("0..=3"), "{e:#}");

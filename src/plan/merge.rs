@@ -23,6 +23,31 @@ pub struct MergeReport {
     pub forced: Vec<String>,
 }
 
+impl std::fmt::Display for MergeReport {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        writeln!(
+            f,
+            "merged {} shards ({} triggers in, {} edge twins folded); {} already merged; {} missing",
+            self.merged.len(),
+            self.n_triggers_in,
+            self.n_edge_duplicates,
+            self.already.len(),
+            self.missing.len()
+        )?;
+        if !self.missing.is_empty() {
+            writeln!(
+                f,
+                "missing shards (run them, then merge again): {:?}",
+                self.missing
+            )?;
+        }
+        for n in &self.forced {
+            writeln!(f, "forced past a mismatch: {n}")?;
+        }
+        Ok(())
+    }
+}
+
 struct ShardScanRow {
     id: i64,
     channel: String,

@@ -26,7 +26,7 @@ mod slurm;
 
 pub use merge::{merge, MergeReport};
 pub use run::{
-    clip_to_shard, run_local, run_shard, run_shard_with, shard_db_path, status,
+    clip_to_shard, run_local, run_shard, run_shard_with, shard_db_path, status, status_text,
     write_shard_catalogue, ShardState, ShardStatus,
 };
 pub use slurm::{slurm_script, SlurmOptions};

@@ -347,3 +347,33 @@ pub fn run_local(dir: &Path, jobs: usize, exe: &Path) -> Result<Vec<ShardStatus>
     }
     Ok(st)
 }
+
+/// `plan status` as text: a count line, then one line per shard that is not
+/// done (failed ones with their message and log path).
+pub fn status_text(statuses: &[ShardStatus]) -> String {
+    let count = |s: ShardState| statuses.iter().filter(|x| x.state == s).count();
+    let mut out = format!(
+        "{} shards: {} done, {} failed, {} missing\n",
+        statuses.len(),
+        count(ShardState::Done),
+        count(ShardState::Failed),
+        count(ShardState::Missing)
+    );
+    for s in statuses {
+        match s.state {
+            ShardState::Done => {}
+            ShardState::Failed => out.push_str(&format!(
+                "shard {}: failed: {} (log {})\n",
+                s.index,
+                s.message.as_deref().unwrap_or(""),
+                s.log.display()
+            )),
+            ShardState::Missing => out.push_str(&format!(
+                "shard {}: missing (not run, or still running; log {})\n",
+                s.index,
+                s.log.display()
+            )),
+        }
+    }
+    out
+}
