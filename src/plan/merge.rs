@@ -180,11 +180,12 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                 notes.join("; ")
             );
         }
-        let keep_by_channel: HashMap<&str, crate::segments::SegmentList> = plan.shards[k]
-            .channels
-            .iter()
-            .map(|c| (c.name.as_str(), from_pairs(&c.keep)))
-            .collect();
+        // Keep spans by channel name (a name may come from several bundles).
+        let mut keep_by_channel: HashMap<&str, crate::segments::SegmentList> = HashMap::new();
+        for c in &plan.shards[k].channels {
+            let e = keep_by_channel.entry(c.name.as_str()).or_default();
+            *e = e.union(&from_pairs(&c.keep));
+        }
 
         let tx = conn.transaction()?;
         tx.execute(
