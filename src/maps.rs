@@ -85,10 +85,17 @@ impl BundleMaps {
                 .with_context(|| format!("parameters of the scan of {name}"))?;
             channels.insert(
                 name,
-                ChannelData { src: NpyChannel::open(spec)?, params, valid: OnceLock::new() },
+                ChannelData {
+                    src: NpyChannel::open(spec)?,
+                    params,
+                    valid: OnceLock::new(),
+                },
             );
         }
-        Ok(BundleMaps { channels, cache: Mutex::new(HashMap::new()) })
+        Ok(BundleMaps {
+            channels,
+            cache: Mutex::new(HashMap::new()),
+        })
     }
 
     /// Paths of the bundles in use (for messages).
@@ -136,7 +143,12 @@ impl BundleMaps {
         let ic = ((t_center - t0) * fs) as usize;
         let k = ic.saturating_sub(a + pad) / step;
         let i0 = (a + k * step).min(b - n);
-        let key = (channel.to_string(), i0, n, q.to_bits() ^ (freqs.len() as u64).rotate_left(32));
+        let key = (
+            channel.to_string(),
+            i0,
+            n,
+            q.to_bits() ^ (freqs.len() as u64).rotate_left(32),
+        );
         if let Some(hit) = self.cache.lock().expect("cache lock").get(&key) {
             return Ok(hit.clone());
         }
@@ -182,10 +194,9 @@ impl EnergyMapSource for BundleMaps {
         freqs_hz: &[f64],
         n_times: usize,
     ) -> Result<Vec<f32>> {
-        let cd = self
-            .channels
-            .get(channel)
-            .ok_or_else(|| anyhow!("no scanned data for channel {channel} (imported triggers have no data)"))?;
+        let cd = self.channels.get(channel).ok_or_else(|| {
+            anyhow!("no scanned data for channel {channel} (imported triggers have no data)")
+        })?;
         let q = q.clamp(cd.params.qmin.min(2.0).max(2.0), 128.0);
         let block = self.block_rows(channel, cd, t_center_gps, q, freqs_hz)?;
         let mut out = vec![0.0f32; n_times * freqs_hz.len()];

@@ -259,6 +259,37 @@ impl QPlan {
         })
     }
 
+    /// A plan with one plane of quality `q` and rows at the given
+    /// frequencies (for energy maps); rows that do not fit are skipped.
+    pub fn single_plane(
+        fs_hz: f64,
+        n: usize,
+        q: f64,
+        freqs_hz: &[f64],
+        step: f64,
+        highpass_hz: (f64, f64),
+        planner: &mut FftPlanner<f32>,
+    ) -> QPlan {
+        let rows: Vec<Row> = freqs_hz
+            .iter()
+            .filter_map(|&f| Row::new(f, q, fs_hz, n, step, highpass_hz, planner))
+            .collect();
+        let max_n_t = rows.iter().map(|r| r.n_t).max().unwrap_or(1);
+        let max_scratch = rows
+            .iter()
+            .map(|r| r.ifft.get_inplace_scratch_len())
+            .max()
+            .unwrap_or(0);
+        QPlan {
+            fs_hz,
+            n,
+            planes: vec![Plane { q, rows }],
+            highpass_hz,
+            max_n_t,
+            max_scratch,
+        }
+    }
+
     /// Buffers for one worker.
     pub fn workspace(&self) -> Workspace {
         Workspace {

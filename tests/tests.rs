@@ -2,6 +2,7 @@
 
 // Scan: conditioning, Q tiling and triggers against SciPy, Chatterji et al.
 // (2004) and analytic matched-filter SNRs.
+mod plan_shards;
 mod scan_reference;
 
 // Coupling: tail probabilities against SciPy fixtures.
@@ -36,6 +37,7 @@ mod cli_basic;
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 
+mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;
 /// Issue 6 reliability: two writers and a reader at once.
@@ -46,4 +48,3 @@ mod reliability_injection;
 mod reliability_kill;
 /// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
 mod reliability_upgrade;
-mod io_inputs;

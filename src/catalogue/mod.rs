@@ -46,6 +46,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0003_coupling",
         include_str!("../../migrations/0003_coupling.sql"),
     ),
+    (
+        "0004_merges",
+        include_str!("../../migrations/0004_merges.sql"),
+    ),
 ];
 
 /// Schema version this build writes.

@@ -136,6 +136,8 @@ fn progress_bar(g: &Global, name: &str) -> indicatif::ProgressBar {
 pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
     let params = args.validate()?;
     let bundle = Bundle::open(&args.bundle)?;
+    // Record the absolute path: later commands (cluster, thumbnails) reopen the data.
+    let bundle_dir = std::fs::canonicalize(&args.bundle).unwrap_or_else(|_| args.bundle.clone());
     let chosen = select(&bundle, &args.channels)?;
     let segments = match &args.segments {
         Some(p) => {
