@@ -7,6 +7,8 @@ use std::process::ExitCode;
 
 mod channels;
 mod check;
+mod demo;
+mod families;
 mod import;
 mod scan;
 mod triggers;
@@ -67,6 +69,18 @@ pub enum Command {
     Channels(channels::ChannelsArgs),
     /// Check the catalogue's integrity (exit status 1 when a check fails).
     Check(check::CheckArgs),
+    /// Sort target triggers into families (keeps ids and labels of earlier runs).
+    Cluster(families::ClusterArgs),
+    /// Place new target triggers into existing families; mark novel ones.
+    Assign(families::AssignArgs),
+    /// List families.
+    Families(families::FamiliesArgs),
+    /// Name a family (history kept).
+    Label(families::LabelArgs),
+    /// Write a PNG spectrogram image of one trigger.
+    Thumbnail(families::ThumbnailArgs),
+    /// Write the invented demo scenario and run the whole loop on it.
+    Demo(demo::DemoArgs),
 }
 
 /// Run one command.
@@ -78,6 +92,12 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Triggers(a) => triggers::run(g, a),
         Command::Channels(a) => channels::run(g, a),
         Command::Check(a) => check::run(g, a),
+        Command::Cluster(a) => families::run_cluster(g, a),
+        Command::Assign(a) => families::run_assign(g, a),
+        Command::Families(a) => families::run_families(g, a),
+        Command::Label(a) => families::run_label(g, a),
+        Command::Thumbnail(a) => families::run_thumbnail(g, a),
+        Command::Demo(a) => demo::run(g, a),
     }
 }
 
