@@ -193,17 +193,17 @@ fn witnesses_per_family_when_families_exist() {
     let mut conn = open(&dir.path().join("c.db")).unwrap();
     let fams = fill(&conn);
     conn.execute_batch(
-        "CREATE TABLE families (id INTEGER PRIMARY KEY, label TEXT, note TEXT, status TEXT NOT NULL);
-         INSERT INTO families (id, status) VALUES (1, 'active'), (2, 'active');
-         CREATE TABLE family_members (trigger_id INTEGER PRIMARY KEY REFERENCES triggers(id),
-           family_id INTEGER REFERENCES families(id), probability REAL,
-           novel INTEGER NOT NULL DEFAULT 0);",
+        "INSERT INTO cluster_runs (id, created_utc, params_json, tool_version, feature_version,
+           n_clustered, n_families, bic_json, model_json)
+         VALUES (1, '2026-01-01T00:00:00Z', '{}', 'test', 1, 0, 2, '[]', '{}');
+         INSERT INTO families (id, status, created_run, last_run) VALUES (1, 'active', 1, 1), (2, 'active', 1, 1);",
     )
     .unwrap();
     // Target triggers were inserted first, in the planted order: ids 1..=2000.
     for (i, f) in fams.iter().enumerate() {
         conn.execute(
-            "INSERT INTO family_members (trigger_id, family_id, probability) VALUES (?1, ?2, 1.0)",
+            "INSERT INTO family_members (trigger_id, family_id, probability, run_id, source)
+             VALUES (?1, ?2, 1.0, 1, 'cluster')",
             params![i as i64 + 1, *f as i64],
         )
         .unwrap();

@@ -177,11 +177,11 @@ fn cluster_recluster_label_assign() {
     let m0 = memberships(&conn);
     let t400 = *w.truth.iter().find(|(_, k)| **k == 1).unwrap().0;
     let fam400 = m0[&t400].0.unwrap();
-    label(&mut conn, fam400, "whistle-400", None, "tester").unwrap();
+    label(&mut conn, fam400, "reed-400", None, "tester").unwrap();
     label(
         &mut conn,
         fam400,
-        "whistle",
+        "reed",
         Some("narrow band near 400 Hz"),
         "tester",
     )
@@ -189,7 +189,7 @@ fn cluster_recluster_label_assign() {
     let h = label_history(&conn, fam400).unwrap();
     assert_eq!(h.len(), 2);
     assert_eq!(h[0].old_label, None);
-    assert_eq!(h[1].old_label.as_deref(), Some("whistle-400"));
+    assert_eq!(h[1].old_label.as_deref(), Some("reed-400"));
     assert_eq!(h[1].new_note.as_deref(), Some("narrow band near 400 Hz"));
     assert!(label(&mut conn, 9999, "x", None, "tester")
         .unwrap_err()
@@ -263,7 +263,7 @@ fn cluster_recluster_label_assign() {
     );
     let fams2 = list_families(&conn).unwrap();
     let f = fams2.iter().find(|f| f.id == fam400).unwrap();
-    assert_eq!(f.label.as_deref(), Some("whistle"));
+    assert_eq!(f.label.as_deref(), Some("reed"));
     let ev = family_events(&conn).unwrap();
     assert!(ev
         .iter()

@@ -16,24 +16,6 @@ pub const GAP: (f64, f64) = (30_000.0, 33_600.0);
 /// True start of the late family \[s after T0\].
 pub const LATE_START: f64 = 50_000.0;
 
-/// The agreed 0002 columns (SCHEMA.md), for trees without that migration.
-pub const SQL_0002: &str = "
-CREATE TABLE IF NOT EXISTS families(id INTEGER PRIMARY KEY, label TEXT, note TEXT,
-  status TEXT NOT NULL CHECK(status IN ('active','merged','retired')));
-CREATE TABLE IF NOT EXISTS family_members(trigger_id INTEGER PRIMARY KEY REFERENCES triggers(id) ON DELETE CASCADE,
-  family_id INTEGER REFERENCES families(id), probability REAL, novel INTEGER NOT NULL DEFAULT 0);";
-
-/// The agreed 0003 columns (SCHEMA.md).
-pub const SQL_0003: &str = "
-CREATE TABLE IF NOT EXISTS witness_runs(id INTEGER PRIMARY KEY, created_utc TEXT, params_json TEXT, tool_version TEXT);
-CREATE TABLE IF NOT EXISTS witness_stats(run_id, family_id INTEGER NULL, aux_channel_id, snr_threshold REAL, window_s REAL,
-  n_target, n_coinc, n_aux, n_aux_used, vetoed_s, analysed_s, deadtime, efficiency, use_percentage, expected, significance);
-CREATE TABLE IF NOT EXISTS witness_lags(run_id, family_id NULL, aux_channel_id, snr_threshold, window_s,
-  lag_hist_json TEXT, freq_relation TEXT, freq_ratio_median REAL);
-CREATE TABLE IF NOT EXISTS veto_rounds(run_id, mode TEXT, family_id NULL, round INTEGER, aux_channel_id, snr_threshold,
-  window_s, efficiency, deadtime, use_percentage, significance, cum_efficiency, cum_deadtime, n_inj_vetoed NULL,
-  inj_expected NULL, safety_p NULL, safe INTEGER, proposed INTEGER);";
-
 /// Insert `n` Poisson-process times of rate `per_hour` over `[a, b)` minus the gap.
 fn poisson_times(rng: &mut impl Rng, per_hour: f64, a: f64, b: f64) -> Vec<f64> {
     let mut out = Vec::new();
@@ -79,17 +61,26 @@ pub fn demo_catalogue(dir: &Path, families: bool) -> PathBuf {
         }
     }
     if families {
-        tx.execute_batch(SQL_0002).unwrap();
-        tx.execute_batch(SQL_0003).unwrap();
-        tx.execute("INSERT INTO families VALUES (1, '<script>alert(1)</script>', 'steady & loud', 'active')", [])
-            .unwrap();
+        // A stand-in clustering run that the family rows refer to.
         tx.execute(
-            "INSERT INTO families VALUES (2, 'late-whistle', 'appears mid-run', 'active')",
+            "INSERT INTO cluster_runs (id, created_utc, params_json, tool_version, feature_version,
+               n_clustered, n_families, bic_json, model_json)
+             VALUES (1, '2026-01-01T00:00:00Z', '{}', 'test', 1, 0, 3, '[]', '{}')",
             [],
         )
         .unwrap();
-        tx.execute("INSERT INTO families VALUES (3, NULL, NULL, 'active')", [])
+        for (id, label, note) in [
+            (1, Some("<script>alert(1)</script>"), Some("steady & loud")),
+            (2, Some("late-riser"), Some("appears mid-run")),
+            (3, None, None),
+        ] {
+            tx.execute(
+                "INSERT INTO families (id, label, note, status, created_run, last_run)
+                 VALUES (?1, ?2, ?3, 'active', 1, 1)",
+                params![id, label, note],
+            )
             .unwrap();
+        }
     }
     let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(11);
     // (family id or None, novel, rate per hour, start, f_peak Hz)
@@ -114,7 +105,8 @@ pub fn demo_catalogue(dir: &Path, families: bool) -> PathBuf {
             .unwrap();
             if families && (fam.is_some() || novel) {
                 tx.execute(
-                    "INSERT INTO family_members(trigger_id, family_id, probability, novel) VALUES (?1, ?2, 0.9, ?3)",
+                    "INSERT INTO family_members(trigger_id, family_id, probability, novel, run_id, source)
+                     VALUES (?1, ?2, 0.9, ?3, 1, 'cluster')",
                     params![tid, fam, novel as i64],
                 )
                 .unwrap();

@@ -11,23 +11,35 @@ use std::process::Command;
 fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<(i64, PathBuf)> {
     let c = open(db).unwrap();
     c.execute(
-        "INSERT INTO witness_runs VALUES (1, '2026-01-01T00:00:00Z', '{}', 'test')",
+        "INSERT INTO witness_runs (id, kind, created_utc, params_json, tool_version)
+         VALUES (1, 'witnesses', '2026-01-01T00:00:00Z', '{}', 'test'),
+                (2, 'vetoes', '2026-01-01T00:00:00Z', '{}', 'test')",
         [],
     )
     .unwrap();
     c.execute(
-        "INSERT INTO witness_stats VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 0.356, 0.52, 250.3)",
+        "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, snr_threshold, window_s, n_target,
+           n_coinc, n_aux, n_aux_used, vetoed_s, analysed_s, deadtime, efficiency, use_percentage,
+           expected, significance, efficiency_over_deadtime)
+         VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 35.6, 0.52, 250.3, 573.4)",
         [],
     )
     .unwrap();
     c.execute(
-        "INSERT INTO witness_lags VALUES (1, 1, 2, 8.0, 0.1, ?1, 'same frequency', 1.01)",
+        "INSERT INTO witness_lags (run_id, family_id, aux_channel_id, snr_threshold, window_s,
+           lag_hist_json, n_pairs, peak_lag_s, median_lag_s, freq_relation, freq_ratio_median)
+         VALUES (1, 1, 2, 8.0, 0.1, ?1, 300, 0.0, 0.0, 'same', 1.01)",
         params![r#"{"edges_s":[-0.1,-0.05,0.0,0.05,0.1],"counts":[3,40,250,7]}"#],
     )
     .unwrap();
     for (mode, fam) in [("family", Some(1)), ("all", None)] {
         c.execute(
-            "INSERT INTO veto_rounds VALUES (1, ?1, ?2, 1, 2, 8.0, 0.1, 0.625, 0.00109, 0.356, 250.3, 0.625, 0.00109, 0, 0.11, 1.0, 1, 1)",
+            "INSERT INTO veto_rounds (run_id, mode, family_id, round, aux_channel_id, snr_threshold,
+           window_s, n_target, n_coinc, efficiency, deadtime, use_percentage, expected, significance,
+           vetoed_s, cum_efficiency, cum_deadtime, n_inj, n_inj_vetoed, inj_expected, safety_p,
+           safety_p_binomial, safe, proposed)
+         VALUES (2, ?1, ?2, 1, 2, 8.0, 0.1, 480, 300, 0.625, 0.00109, 35.6, 0.52, 250.3, 90.0,
+           0.625, 0.00109, 100, 0, 0.11, 1.0, 1.0, 1, 1)",
             params![mode, fam],
         )
         .unwrap();

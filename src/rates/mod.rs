@@ -187,7 +187,7 @@ pub struct RateReport {
     pub span_end_gps: f64,
     /// Live time in the span \[s\].
     pub live_s: f64,
-    /// Whether the catalogue has family tables.
+    /// Whether the catalogue has families (a clustering run made some).
     pub has_families: bool,
     /// Parameters used.
     pub params: RateParams,
@@ -455,7 +455,11 @@ pub fn weighted_median(v: &[(f64, f64)]) -> f64 {
 pub fn rates(conn: &Connection, p: &RateParams) -> Result<RateReport> {
     p.check()?;
     let channel = resolve_channel(conn, p.channel.as_deref())?;
-    let has_families = table_exists(conn, "families")? && table_exists(conn, "family_members")?;
+    // Families exist once a clustering run has made some (the tables alone
+    // are there from the schema on).
+    let has_families = table_exists(conn, "families")?
+        && table_exists(conn, "family_members")?
+        && conn.query_row("SELECT EXISTS (SELECT 1 FROM families)", [], |r| r.get::<_, bool>(0))?;
     let families = if has_families {
         load_families(conn)?
     } else {

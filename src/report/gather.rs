@@ -354,11 +354,17 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     .all(|x| x);
     let (mut witnesses, mut lags, mut vetoes) = (Vec::new(), Vec::new(), Vec::new());
     if has_coupling {
-        let run: Option<i64> =
-            conn.query_row("SELECT max(id) FROM witness_runs", [], |r| r.get(0))?;
-        if let Some(run) = run {
+        // The latest `witnesses` run and the latest `vetoes` run are separate.
+        let latest = |table: &str| -> Result<Option<i64>> {
+            Ok(conn.query_row(&format!("SELECT max(run_id) FROM {table}"), [], |r| r.get(0))?)
+        };
+        if let Some(run) = latest("witness_stats")? {
             witnesses = read_witnesses(conn, run)?;
+        }
+        if let Some(run) = latest("witness_lags")? {
             lags = read_lags(conn, run)?;
+        }
+        if let Some(run) = latest("veto_rounds")? {
             vetoes = read_vetoes(conn, run)?;
         }
     }

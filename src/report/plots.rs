@@ -49,13 +49,15 @@ pub fn rate_plot(
     let root = SVGBackend::new(path, (900, 340)).into_drawing_area();
     root.fill(&WHITE).map_err(err)?;
     let h = |t: f64| (t - t0_gps) / 3600.0;
-    let ymax = s
+    // Scale to the binned limits: a burst's Bayesian block can be seconds
+    // long with a rate far above everything else, and is drawn clipped.
+    let bins_max = s
         .bins
         .iter()
         .filter_map(|b| b.upper_per_hour.filter(|_| !b.low_live))
-        .chain(s.blocks.iter().map(|b| b.rate_per_hour))
-        .fold(1.0_f64, f64::max)
-        * 1.1;
+        .fold(0.0_f64, f64::max);
+    let blocks_max = s.blocks.iter().map(|b| b.rate_per_hour).fold(0.0_f64, f64::max);
+    let ymax = if bins_max > 0.0 { bins_max * 1.3 } else { blocks_max.max(1.0) * 1.1 };
     let mut chart = ChartBuilder::on(&root)
         .caption(title, ("sans-serif", 18).into_font().color(&INK))
         .margin(12)
