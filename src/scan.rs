@@ -510,7 +510,11 @@ impl NpyChannel {
     /// # Errors
     /// As [`NpyReader::open`].
     pub fn open(spec: &ChannelSpec) -> Result<NpyChannel> {
-        Ok(NpyChannel { reader: NpyReader::open(&spec.file)?, rate_hz: spec.rate, start_gps: spec.start })
+        Ok(NpyChannel {
+            reader: NpyReader::open(&spec.file)?,
+            rate_hz: spec.rate,
+            start_gps: spec.start,
+        })
     }
 }
 
@@ -548,5 +552,11 @@ pub fn scan_channel(
     let (params, analysed, triggers, input_checksum) =
         scan_source(&src, params, (spec.fmin, spec.fmax), segments, progress)
             .with_context(|| format!("channel {}", spec.name))?;
-    Ok(ChannelScan { channel: spec.clone(), params, analysed, triggers, input_checksum })
+    Ok(ChannelScan {
+        channel: spec.clone(),
+        params,
+        analysed,
+        triggers,
+        input_checksum,
+    })
 }

@@ -8,8 +8,12 @@ use std::process::ExitCode;
 mod channels;
 mod check;
 mod import;
+mod rates;
+mod report;
 mod scan;
 mod triggers;
+mod vetoes;
+mod witnesses;
 
 /// glitchbook: find, sort, track and trace noise transients in
 /// gravitational-wave detector data.
@@ -67,6 +71,14 @@ pub enum Command {
     Channels(channels::ChannelsArgs),
     /// Check the catalogue's integrity (exit status 1 when a check fails).
     Check(check::CheckArgs),
+    /// Aux channels that witness target triggers (coincidence statistics).
+    Witnesses(witnesses::WitnessesArgs),
+    /// Propose vetoes (round-based, with a safety check against injections).
+    Vetoes(vetoes::VetoesArgs),
+    /// Trigger rates over live time with Poisson limits and change points.
+    Rates(rates::RatesArgs),
+    /// Write a static HTML report.
+    Report(report::ReportArgs),
 }
 
 /// Run one command.
@@ -78,6 +90,10 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Triggers(a) => triggers::run(g, a),
         Command::Channels(a) => channels::run(g, a),
         Command::Check(a) => check::run(g, a),
+        Command::Witnesses(a) => witnesses::run(g, a),
+        Command::Vetoes(a) => vetoes::run(g, a),
+        Command::Rates(a) => rates::run(g, a),
+        Command::Report(a) => report::run(g, a),
     }
 }
 
