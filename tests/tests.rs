@@ -33,9 +33,13 @@ mod cli_util;
 /// CLI behaviour of scan/import/triggers/channels/check on good input.
 mod cli_basic;
 
+/// witnesses/vetoes/rates/report through the binary on a planted-witness catalogue.
+mod cli_coupling_rates;
+
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 
+mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;
 /// Issue 6 reliability: two writers and a reader at once.
@@ -46,4 +50,3 @@ mod reliability_injection;
 mod reliability_kill;
 /// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
 mod reliability_upgrade;
-mod io_inputs;

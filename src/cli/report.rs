@@ -9,8 +9,8 @@ use rusqlite::Connection;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Write `DIR/index.html` and its images from the catalogue; prints the path
-/// of index.html. Witnesses and vetoes shown are those of the latest
+/// Write `DIR/index.html` and its images from the catalogue; prints the
+/// absolute path of index.html. Witnesses and vetoes shown are those of the latest
 /// `witnesses` and `vetoes` runs.
 #[derive(Debug, clap::Args)]
 #[command(allow_negative_numbers = true)]
@@ -94,6 +94,8 @@ pub fn run(g: &Global, args: ReportArgs) -> Result<ExitCode> {
     let data = gather(&conn, &params)?;
     let thumbs = thumbnails(&conn, &args.out)?;
     let index = write_report(&data, &args.out, &thumbs)?;
+    // Absolute, so it can be pasted into a browser from anywhere.
+    let index = std::path::absolute(&index).unwrap_or(index);
     println!("{}", index.display());
     Ok(ExitCode::SUCCESS)
 }
