@@ -348,6 +348,38 @@ fn report_escapes_channel_names_and_prints_index_path() {
 }
 
 #[test]
+fn tables_escape_control_characters_in_channel_names() {
+    let d = catalogue();
+    // An aux channel whose name would recolour the terminal and fake a line.
+    let name = "Z1:EVIL\x1b[31m\rred\ttab";
+    d.write("evil.csv", &csv(&[(target_time(3) + 0.001, 50.0, 40.0)]));
+    d.ok(&[
+        "import",
+        "evil.csv",
+        "--channel",
+        name,
+        "--role",
+        "aux",
+        "--segments",
+        "seg.txt",
+    ]);
+    // (vetoes and rates tables go through the same escaping; the evil
+    // channel is listed by witnesses only, being too weak for a veto.)
+    let out = d.ok(&["witnesses"]);
+    assert!(!out.contains('\x1b') && !out.contains('\r'), "{out:?}");
+    assert!(out.contains("Z1:EVIL\\u{1b}[31m\\rred\\ttab"), "{out}");
+    // JSON keeps the exact name (escaped by JSON itself).
+    let v = json(&d, &["witnesses", "--format", "json"]);
+    let names: Vec<&str> = v["witnesses"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|w| w["channel"].as_str().unwrap())
+        .collect();
+    assert!(names.contains(&name), "{names:?}");
+}
+
+#[test]
 fn bad_flags_are_one_error_line_and_change_nothing() {
     let d = catalogue();
     let before = d.checksum();

@@ -1,13 +1,13 @@
 //! `glitchbook rates`: trigger rates per hour of live time, with Poisson
 //! limits (Gehrels 1986) and change points (Bayesian blocks, Scargle et al.
 //! 2013), for all target triggers and each family.
+use super::witnesses::print_listing;
 use super::{finite, Global};
 use anyhow::Result;
 use glitchbook::catalogue;
 use glitchbook::output::Format;
 use glitchbook::rates::format::{self, render};
 use glitchbook::rates::{rates, RateParams};
-use std::io::Write;
 use std::process::ExitCode;
 
 /// Rates over live time (analysed time minus dropouts) in fixed bins, with
@@ -82,9 +82,7 @@ pub fn run(g: &Global, args: RatesArgs) -> Result<ExitCode> {
     let conn = catalogue::open_existing(&g.db)?;
     let report = rates(&conn, &p)?;
     let text = render(&report, rates_format(args.format))?;
-    let mut out = std::io::stdout().lock();
-    out.write_all(text.as_bytes())?;
-    out.flush()?;
+    print_listing(args.format, text.as_bytes())?;
     Ok(ExitCode::SUCCESS)
 }
 

@@ -1,6 +1,6 @@
 //! `glitchbook vetoes`: hierarchical veto rounds with a safety check against
 //! injections; proposals for the instrument team, never applied here.
-use super::witnesses::{coupling_format, GridArgs};
+use super::witnesses::{coupling_format, print_listing, GridArgs};
 use super::{warn, Global};
 use anyhow::{bail, Context, Result};
 use glitchbook::catalogue;
@@ -177,14 +177,15 @@ pub fn run(g: &Global, args: VetoesArgs) -> Result<ExitCode> {
     if report.n_injections.is_none() {
         warn("safety NOT CHECKED (no --injections): do not propose these vetoes without it");
     }
-    let mut out = std::io::stdout().lock();
+    let mut buf = Vec::new();
     match args.format {
-        Format::Csv => {
-            write_rows(&mut out, Format::Csv, &csv_rows(&report))?;
-            // An empty CSV has no row to carry the caution column.
-            eprintln!("glitchbook: caution: {VETO_CAUTION}");
-        }
-        f => write_vetoes(&report, coupling_format(f), &mut out)?,
+        Format::Csv => write_rows(&mut buf, Format::Csv, &csv_rows(&report))?,
+        f => write_vetoes(&report, coupling_format(f), &mut buf)?,
+    }
+    print_listing(args.format, &buf)?;
+    if args.format == Format::Csv {
+        // An empty CSV has no row to carry the caution column.
+        eprintln!("glitchbook: caution: {VETO_CAUTION}");
     }
     if let Some(dir) = &args.out {
         let files = write_veto_segments(&report, dir)?;

@@ -5,7 +5,8 @@ use super::{finite, warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
 use glitchbook::coupling::{self, run_witnesses, write_witnesses, Grid, WitnessParams};
-use glitchbook::output::Format;
+use glitchbook::output::{escape_control, Format};
+use std::io::Write;
 use std::process::ExitCode;
 
 /// Grid flags shared by `witnesses` and `vetoes`.
@@ -65,6 +66,23 @@ pub fn coupling_format(f: Format) -> coupling::Format {
     }
 }
 
+/// Write `text` to stdout; in table format each line goes through
+/// [`escape_control`] first, so user text (channel names, labels) cannot
+/// move the cursor or recolour the terminal (JSON and CSV keep exact bytes,
+/// as in `glitchbook::output`).
+pub fn print_listing(format: Format, text: &[u8]) -> Result<()> {
+    let mut out = std::io::stdout().lock();
+    if format == Format::Table {
+        for line in String::from_utf8_lossy(text).lines() {
+            writeln!(out, "{}", escape_control(line))?;
+        }
+    } else {
+        out.write_all(text)?;
+    }
+    out.flush()?;
+    Ok(())
+}
+
 /// Witness channels of the target triggers: coincidences, deadtime,
 /// efficiency, use percentage and Poisson significance for each aux channel
 /// (best threshold and window per channel), with the lag and frequency
@@ -112,12 +130,14 @@ pub fn run(g: &Global, args: WitnessesArgs) -> Result<ExitCode> {
     for w in &report.warnings {
         warn(w);
     }
+    let mut buf = Vec::new();
     write_witnesses(
         &report,
         coupling_format(args.format),
         args.all_rows,
-        &mut std::io::stdout().lock(),
+        &mut buf,
     )?;
+    print_listing(args.format, &buf)?;
     g.info(&format!(
         "witness run {} stored ({} grid rows)",
         report.run_id,
