@@ -419,3 +419,21 @@ fn bad_flags_are_one_error_line_and_change_nothing() {
     }
     assert!(!e.db().exists());
 }
+
+#[test]
+fn a_reader_that_stops_early_is_not_an_error() {
+    let d = catalogue();
+    // `glitchbook rates --bin 1 | head -0`: the read end is closed before
+    // the binary writes, so every write meets a broken pipe.
+    let mut child = d
+        .cmd(&["rates", "--bin", "1"])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    drop(child.stdout.take());
+    let out = child.wait_with_output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "{err}");
+    assert!(!err.contains("error"), "{err}");
+}

@@ -70,17 +70,23 @@ pub fn coupling_format(f: Format) -> coupling::Format {
 /// [`escape_control`] first, so user text (channel names, labels) cannot
 /// move the cursor or recolour the terminal (JSON and CSV keep exact bytes,
 /// as in `glitchbook::output`).
+/// A reader that stops early (`| head`) is not an error.
 pub fn print_listing(format: Format, text: &[u8]) -> Result<()> {
-    let mut out = std::io::stdout().lock();
-    if format == Format::Table {
-        for line in String::from_utf8_lossy(text).lines() {
-            writeln!(out, "{}", escape_control(line))?;
+    let write = || -> std::io::Result<()> {
+        let mut out = std::io::stdout().lock();
+        if format == Format::Table {
+            for line in String::from_utf8_lossy(text).lines() {
+                writeln!(out, "{}", escape_control(line))?;
+            }
+        } else {
+            out.write_all(text)?;
         }
-    } else {
-        out.write_all(text)?;
+        out.flush()
+    };
+    match write() {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(()),
     }
-    out.flush()?;
-    Ok(())
 }
 
 /// Witness channels of the target triggers: coincidences, deadtime,
