@@ -34,6 +34,9 @@ mod cli_util;
 /// CLI behaviour of scan/import/triggers/channels/check on good input.
 mod cli_basic;
 
+/// witnesses/vetoes/rates/report through the binary on a planted-witness catalogue.
+mod cli_coupling_rates;
+
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 

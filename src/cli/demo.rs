@@ -192,8 +192,7 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
     // 6. Report.
     let t = Instant::now();
     let report_dir = a.out.join("report");
-    let thumbs = families::render_family_thumbnails(&conn, &src, &report_dir.join("thumbs"), 3)?;
-    let thumbs = thumbnail_pairs(&thumbs);
+    let thumbs = super::report::thumbnails(&conn, &report_dir)?;
     let data = report::gather(
         &conn,
         &ReportParams {
@@ -214,23 +213,6 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
         db.display()
     ));
     Ok(ExitCode::SUCCESS)
-}
-
-/// (family id, path) pairs from `family_<id>_trigger_<t>.png` names.
-pub fn thumbnail_pairs(paths: &[PathBuf]) -> Vec<(i64, PathBuf)> {
-    paths
-        .iter()
-        .filter_map(|p| {
-            let stem = p.file_stem()?.to_str()?;
-            let id = stem
-                .strip_prefix("family_")?
-                .split('_')
-                .next()?
-                .parse()
-                .ok()?;
-            Some((id, p.clone()))
-        })
-        .collect()
 }
 
 /// Injected target glitches with SNR ≥ `min_snr` inside analysed time, and

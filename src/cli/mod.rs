@@ -10,8 +10,12 @@ mod check;
 mod demo;
 mod families;
 mod import;
+mod rates;
+mod report;
 mod scan;
 mod triggers;
+mod vetoes;
+mod witnesses;
 
 /// glitchbook: find, sort, track and trace noise transients in
 /// gravitational-wave detector data.
@@ -81,6 +85,14 @@ pub enum Command {
     Thumbnail(families::ThumbnailArgs),
     /// Write the invented demo scenario and run the whole loop on it.
     Demo(demo::DemoArgs),
+    /// Aux channels that witness target triggers (coincidence statistics).
+    Witnesses(witnesses::WitnessesArgs),
+    /// Propose vetoes (round-based, with a safety check against injections).
+    Vetoes(vetoes::VetoesArgs),
+    /// Trigger rates over live time with Poisson limits and change points.
+    Rates(rates::RatesArgs),
+    /// Write a static HTML report.
+    Report(report::ReportArgs),
 }
 
 /// Run one command.
@@ -98,6 +110,10 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Label(a) => families::run_label(g, a),
         Command::Thumbnail(a) => families::run_thumbnail(g, a),
         Command::Demo(a) => demo::run(g, a),
+        Command::Witnesses(a) => witnesses::run(g, a),
+        Command::Vetoes(a) => vetoes::run(g, a),
+        Command::Rates(a) => rates::run(g, a),
+        Command::Report(a) => report::run(g, a),
     }
 }
 

@@ -459,7 +459,9 @@ pub fn rates(conn: &Connection, p: &RateParams) -> Result<RateReport> {
     // are there from the schema on).
     let has_families = table_exists(conn, "families")?
         && table_exists(conn, "family_members")?
-        && conn.query_row("SELECT EXISTS (SELECT 1 FROM families)", [], |r| r.get::<_, bool>(0))?;
+        && conn.query_row("SELECT EXISTS (SELECT 1 FROM families)", [], |r| {
+            r.get::<_, bool>(0)
+        })?;
     let families = if has_families {
         load_families(conn)?
     } else {

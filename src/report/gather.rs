@@ -354,17 +354,19 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     .all(|x| x);
     let (mut witnesses, mut lags, mut vetoes) = (Vec::new(), Vec::new(), Vec::new());
     if has_coupling {
-        // The latest `witnesses` run and the latest `vetoes` run are separate.
-        let latest = |table: &str| -> Result<Option<i64>> {
-            Ok(conn.query_row(&format!("SELECT max(run_id) FROM {table}"), [], |r| r.get(0))?)
+        // `witnesses` and `vetoes` store separate runs: show the latest of each.
+        let latest = |kind: &str| -> Result<Option<i64>> {
+            Ok(conn.query_row(
+                "SELECT max(id) FROM witness_runs WHERE kind = ?1",
+                [kind],
+                |r| r.get(0),
+            )?)
         };
-        if let Some(run) = latest("witness_stats")? {
+        if let Some(run) = latest("witnesses")? {
             witnesses = read_witnesses(conn, run)?;
-        }
-        if let Some(run) = latest("witness_lags")? {
             lags = read_lags(conn, run)?;
         }
-        if let Some(run) = latest("veto_rounds")? {
+        if let Some(run) = latest("vetoes")? {
             vetoes = read_vetoes(conn, run)?;
         }
     }

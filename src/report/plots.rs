@@ -56,8 +56,16 @@ pub fn rate_plot(
         .iter()
         .filter_map(|b| b.upper_per_hour.filter(|_| !b.low_live))
         .fold(0.0_f64, f64::max);
-    let blocks_max = s.blocks.iter().map(|b| b.rate_per_hour).fold(0.0_f64, f64::max);
-    let ymax = if bins_max > 0.0 { bins_max * 1.3 } else { blocks_max.max(1.0) * 1.1 };
+    let blocks_max = s
+        .blocks
+        .iter()
+        .map(|b| b.rate_per_hour)
+        .fold(0.0_f64, f64::max);
+    let ymax = if bins_max > 0.0 {
+        bins_max * 1.3
+    } else {
+        blocks_max.max(1.0) * 1.1
+    };
     let mut chart = ChartBuilder::on(&root)
         .caption(title, ("sans-serif", 18).into_font().color(&INK))
         .margin(12)

@@ -1,0 +1,135 @@
+//! `glitchbook rates`: trigger rates per hour of live time, with Poisson
+//! limits (Gehrels 1986) and change points (Bayesian blocks, Scargle et al.
+//! 2013), for all target triggers and each family.
+use super::witnesses::print_listing;
+use super::{finite, Global};
+use anyhow::Result;
+use glitchbook::catalogue;
+use glitchbook::output::Format;
+use glitchbook::rates::format::{self, render};
+use glitchbook::rates::{rates, RateParams};
+use std::process::ExitCode;
+
+/// Rates over live time (analysed time minus dropouts) in fixed bins, with
+/// one-sided Poisson limits and Bayesian-blocks change points.
+#[derive(Debug, clap::Args)]
+#[command(allow_negative_numbers = true)]
+pub struct RatesArgs {
+    /// Only this family [default: all triggers, then every family].
+    #[arg(long, value_name = "ID")]
+    pub family: Option<i64>,
+    /// Count this channel's triggers [default: the target channel].
+    #[arg(long, value_name = "NAME")]
+    pub channel: Option<String>,
+    /// Bin width [s].
+    #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
+    pub bin: f64,
+    /// Start of the span [GPS s] [default: start of live time].
+    #[arg(long, value_name = "T")]
+    pub since: Option<f64>,
+    /// End of the span [GPS s] [default: end of live time].
+    #[arg(long, value_name = "T")]
+    pub until: Option<f64>,
+    /// Count only triggers with SNR at least X.
+    #[arg(long, value_name = "X", default_value_t = 0.0)]
+    pub min_snr: f64,
+    /// One-sided confidence level of the rate limits, in (0, 1).
+    #[arg(long, value_name = "C", default_value_t = 0.9)]
+    pub cl: f64,
+    /// False-positive probability of each Bayesian-blocks change point, in (0, 1).
+    #[arg(long, value_name = "P", default_value_t = 0.05)]
+    pub p0: f64,
+    /// Flag bins whose live time is below this fraction of their length.
+    #[arg(long, value_name = "F", default_value_t = 0.5)]
+    pub min_live_fraction: f64,
+    /// Output format (csv: one row per subject and bin).
+    #[arg(long, value_enum, default_value_t = Format::Table)]
+    pub format: Format,
+}
+
+impl RatesArgs {
+    /// Check the flags (no I/O).
+    pub fn validate(&self) -> Result<RateParams> {
+        let p = RateParams {
+            family: self.family,
+            channel: self.channel.clone(),
+            bin_s: self.bin,
+            since_gps: finite("since", self.since)?,
+            until_gps: finite("until", self.until)?,
+            min_snr: self.min_snr,
+            cl: self.cl,
+            p0: self.p0,
+            min_live_fraction: self.min_live_fraction,
+            ..RateParams::default()
+        };
+        p.check()?;
+        Ok(p)
+    }
+}
+
+/// The rates library's own format type for a CLI format.
+fn rates_format(f: Format) -> format::Format {
+    match f {
+        Format::Table => format::Format::Table,
+        Format::Json => format::Format::Json,
+        Format::Csv => format::Format::Csv,
+    }
+}
+
+/// Run the command.
+pub fn run(g: &Global, args: RatesArgs) -> Result<ExitCode> {
+    let p = args.validate()?;
+    let conn = catalogue::open_existing(&g.db)?;
+    let report = rates(&conn, &p)?;
+    let text = render(&report, rates_format(args.format))?;
+    print_listing(args.format, text.as_bytes())?;
+    Ok(ExitCode::SUCCESS)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::Parser;
+
+    #[derive(Parser)]
+    struct T {
+        #[command(flatten)]
+        a: RatesArgs,
+    }
+
+    fn parse(args: &[&str]) -> Result<RateParams> {
+        let mut v = vec!["t"];
+        v.extend_from_slice(args);
+        T::try_parse_from(v).unwrap().a.validate()
+    }
+
+    #[test]
+    fn defaults_match_the_library() {
+        assert_eq!(parse(&[]).unwrap(), RateParams::default());
+        let p = parse(&["--bin", "600", "--since", "10", "--until", "20"]).unwrap();
+        assert_eq!(
+            (p.bin_s, p.since_gps, p.until_gps),
+            (600.0, Some(10.0), Some(20.0))
+        );
+    }
+
+    #[test]
+    fn bad_flags_name_the_flag() {
+        for (args, flag) in [
+            (&["--bin", "0"][..], "--bin"),
+            (&["--bin", "-5"][..], "--bin"),
+            (&["--cl", "1"][..], "--cl"),
+            (&["--p0", "0"][..], "--p0"),
+            (&["--min-snr", "nan"][..], "--min-snr"),
+            (&["--since", "inf"][..], "--since"),
+            (&["--min-live-fraction", "2"][..], "--min-live-fraction"),
+        ] {
+            let e = parse(args).unwrap_err().to_string();
+            assert!(e.starts_with(flag), "{args:?}: {e}");
+        }
+        let e = parse(&["--since", "20", "--until", "10"])
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("--until") && e.contains("--since"), "{e}");
+    }
+}

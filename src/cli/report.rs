@@ -1,0 +1,161 @@
+//! `glitchbook report`: a static HTML report (no network, no JavaScript) of
+//! the catalogue: channels, families, rates, witnesses and veto proposals.
+use super::{finite, Global};
+use anyhow::{bail, Result};
+use glitchbook::catalogue;
+use glitchbook::rates::RateParams;
+use glitchbook::report::{gather, write_report, ReportParams};
+use rusqlite::Connection;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+/// Write `DIR/index.html` and its images from the catalogue; prints the
+/// absolute path of index.html. Witnesses and vetoes shown are those of the latest
+/// `witnesses` and `vetoes` runs.
+#[derive(Debug, clap::Args)]
+#[command(allow_negative_numbers = true)]
+pub struct ReportArgs {
+    /// Output directory (created if needed; existing files are overwritten).
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Start of the span [GPS s] [default: start of live time].
+    #[arg(long, value_name = "T")]
+    pub since: Option<f64>,
+    /// End of the span [GPS s] [default: end of live time].
+    #[arg(long, value_name = "T")]
+    pub until: Option<f64>,
+    /// Only triggers with SNR at least X.
+    #[arg(long, value_name = "X", default_value_t = 0.0)]
+    pub min_snr: f64,
+    /// Rate bin width [s].
+    #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
+    pub bin: f64,
+    /// One-sided confidence level of the rate limits, in (0, 1).
+    #[arg(long, value_name = "C", default_value_t = 0.9)]
+    pub cl: f64,
+    /// False-positive probability of each Bayesian-blocks change point, in (0, 1).
+    #[arg(long, value_name = "P", default_value_t = 0.05)]
+    pub p0: f64,
+    /// Loudest example triggers listed per family.
+    #[arg(long, value_name = "N", default_value_t = 5)]
+    pub examples: usize,
+}
+
+impl ReportArgs {
+    /// Check the flags (no I/O). `catalogue` names the catalogue on the pages.
+    pub fn validate(&self, catalogue: &str) -> Result<ReportParams> {
+        if self.out.as_os_str().is_empty() {
+            bail!("--out must not be empty");
+        }
+        // The span and rate options mean what they mean for `rates`.
+        RateParams {
+            bin_s: self.bin,
+            since_gps: finite("since", self.since)?,
+            until_gps: finite("until", self.until)?,
+            min_snr: self.min_snr,
+            cl: self.cl,
+            p0: self.p0,
+            ..RateParams::default()
+        }
+        .check()?;
+        Ok(ReportParams {
+            catalogue: catalogue.to_string(),
+            since_gps: self.since,
+            until_gps: self.until,
+            min_snr: self.min_snr,
+            bin_s: self.bin,
+            cl: self.cl,
+            p0: self.p0,
+            max_examples: self.examples,
+            ..ReportParams::default()
+        })
+    }
+}
+/// Spectrogram images of a few representative members of each family,
+/// computed from the scanned bundles, as (family id, PNG path). When the
+/// data can no longer be opened the report goes on without images (warned).
+pub fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<(i64, PathBuf)>> {
+    let src = match glitchbook::maps::BundleMaps::from_catalogue(conn) {
+        Ok(s) => s,
+        Err(e) => {
+            super::warn(&format!("no spectrogram images in the report: {e:#}"));
+            return Ok(Vec::new());
+        }
+    };
+    let paths =
+        glitchbook::families::render_family_thumbnails(conn, &src, &out_dir.join("thumbs"), 3)?;
+    Ok(paths
+        .iter()
+        .filter_map(|p| {
+            let stem = p.file_stem()?.to_str()?;
+            let id = stem
+                .strip_prefix("family_")?
+                .split('_')
+                .next()?
+                .parse()
+                .ok()?;
+            Some((id, p.clone()))
+        })
+        .collect())
+}
+
+/// Run the command.
+pub fn run(g: &Global, args: ReportArgs) -> Result<ExitCode> {
+    let params = args.validate(&g.db.display().to_string())?;
+    if args.out.exists() && !args.out.is_dir() {
+        bail!(
+            "--out {}: exists and is not a directory",
+            args.out.display()
+        );
+    }
+    let conn = catalogue::open_existing(&g.db)?;
+    let data = gather(&conn, &params)?;
+    let thumbs = thumbnails(&conn, &args.out)?;
+    let index = write_report(&data, &args.out, &thumbs)?;
+    // Absolute, so it can be pasted into a browser from anywhere.
+    let index = std::path::absolute(&index).unwrap_or(index);
+    println!("{}", index.display());
+    Ok(ExitCode::SUCCESS)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::Parser;
+
+    #[derive(Parser)]
+    struct T {
+        #[command(flatten)]
+        a: ReportArgs,
+    }
+
+    fn parse(args: &[&str]) -> Result<ReportParams> {
+        let mut v = vec!["t"];
+        v.extend_from_slice(args);
+        T::try_parse_from(v).unwrap().a.validate("c.db")
+    }
+
+    #[test]
+    fn flags_map_to_params() {
+        let p = parse(&["--out", "r", "--since", "5", "--examples", "2"]).unwrap();
+        assert_eq!((p.since_gps, p.max_examples), (Some(5.0), 2));
+        assert_eq!(p.catalogue, "c.db");
+        assert_eq!(p.bin_s, ReportParams::default().bin_s);
+    }
+
+    #[test]
+    fn bad_flags_name_the_flag() {
+        for (args, flag) in [
+            (&["--out", "r", "--bin", "0"][..], "--bin"),
+            (&["--out", "r", "--cl", "7"][..], "--cl"),
+            (&["--out", "r", "--until", "nan"][..], "--until"),
+        ] {
+            let e = parse(args).unwrap_err().to_string();
+            assert!(e.starts_with(flag), "{args:?}: {e}");
+        }
+        let e = parse(&["--out", "r", "--since", "9", "--until", "3"])
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("--until"), "{e}");
+    }
+}
