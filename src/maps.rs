@@ -197,7 +197,8 @@ impl EnergyMapSource for BundleMaps {
         let cd = self.channels.get(channel).ok_or_else(|| {
             anyhow!("no scanned data for channel {channel} (imported triggers have no data)")
         })?;
-        let q = q.clamp(cd.params.qmin.min(2.0).max(2.0), 128.0);
+        // Q below 2 loses its meaning as a tile shape (common practice).
+        let q = q.clamp(2.0, 128.0);
         let block = self.block_rows(channel, cd, t_center_gps, q, freqs_hz)?;
         let mut out = vec![0.0f32; n_times * freqs_hz.len()];
         let w = span_s / n_times as f64;
