@@ -8,6 +8,7 @@ use std::process::ExitCode;
 mod channels;
 mod check;
 mod import;
+mod plan;
 mod scan;
 mod triggers;
 
@@ -67,6 +68,18 @@ pub enum Command {
     Channels(channels::ChannelsArgs),
     /// Check the catalogue's integrity (exit status 1 when a check fails).
     Check(check::CheckArgs),
+    /// Split a scan into shards for a Slurm job array or `run-plan`; `plan status DIR`.
+    Plan(plan::PlanArgs),
+    /// Run the shards of a plan on this machine, J at a time.
+    RunPlan(plan::RunPlanArgs),
+    /// Merge the shard catalogues of a plan into one catalogue.
+    Merge(plan::MergeArgs),
+    /// Write the demo bundle (helper for end-to-end checks).
+    #[command(hide = true)]
+    DemoData(plan::DemoDataArgs),
+    /// Compare the triggers of two catalogues (helper for end-to-end checks).
+    #[command(hide = true)]
+    CompareCatalogues(plan::CompareArgs),
 }
 
 /// Run one command.
@@ -78,6 +91,11 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Triggers(a) => triggers::run(g, a),
         Command::Channels(a) => channels::run(g, a),
         Command::Check(a) => check::run(g, a),
+        Command::Plan(a) => plan::run(g, a),
+        Command::RunPlan(a) => plan::run_plan(g, a),
+        Command::Merge(a) => plan::run_merge(g, a),
+        Command::DemoData(a) => plan::run_demo_data(g, a),
+        Command::CompareCatalogues(a) => plan::run_compare(g, a),
     }
 }
 
