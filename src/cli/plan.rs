@@ -199,6 +199,13 @@ pub fn run(g: &Global, args: PlanArgs) -> Result<ExitCode> {
     let Some(out) = &args.out else {
         bail!("plan: --out DIR is required");
     };
+    if out.join("plan.json").exists() {
+        bail!(
+            "{}: already holds a plan (its shard catalogues would be mixed with the new \
+             plan's); choose another --out or remove it",
+            out.join("plan.json").display()
+        );
+    }
     let t0 = Instant::now();
     let p = plan::make_plan(&args.bundles, &opts, out)?;
     let dir = std::fs::canonicalize(out).unwrap_or_else(|_| out.clone());
