@@ -594,7 +594,7 @@ fn e2e_dir() -> std::path::PathBuf {
 }
 
 #[test]
-#[ignore = "run by .ci/slurm/e2e.sh"]
+#[ignore = "manual library-level stand-in; .ci/slurm/e2e.sh now runs the real binary"]
 fn plan_e2e_make() {
     let o = PlanOptions {
         shards: Some(E2E_SHARDS),
@@ -611,7 +611,7 @@ fn plan_e2e_make() {
 }
 
 #[test]
-#[ignore = "run by .ci/slurm/e2e.sh"]
+#[ignore = "manual library-level stand-in; .ci/slurm/e2e.sh now runs the real binary"]
 fn plan_e2e_shard() {
     let k: usize = std::env::var("GB_E2E_SHARD").unwrap().parse().unwrap();
     let chans = e2e_chans();
@@ -624,7 +624,7 @@ fn plan_e2e_shard() {
 }
 
 #[test]
-#[ignore = "run by .ci/slurm/e2e.sh"]
+#[ignore = "manual library-level stand-in; .ci/slurm/e2e.sh now runs the real binary"]
 fn plan_e2e_merge_compare() {
     let dir = e2e_dir();
     let st = status(&dir).unwrap();
@@ -698,8 +698,11 @@ fn plan_merge_folds_edge_twins_into_the_louder() {
             trig(e + 0.04, 110.0, 8.0, 7.0, 0.03),  // other frequency: its own transient
             trig(e + 30.0, 50.0, 8.0, 20.0, 0.05),  // far from the edge
         ];
-        plan::write_shard_catalogue(dir.path(), &p.plan_id, 0, &[scan(0, left)]).unwrap();
-        plan::write_shard_catalogue(dir.path(), &p.plan_id, 1, &[scan(1, right)]).unwrap();
+        let bundle = || std::path::PathBuf::from("bundle");
+        plan::write_shard_catalogue(dir.path(), &p.plan_id, 0, &[(scan(0, left), bundle())])
+            .unwrap();
+        plan::write_shard_catalogue(dir.path(), &p.plan_id, 1, &[(scan(1, right), bundle())])
+            .unwrap();
         let db = dir.path().join(format!("m{snr_l}.db"));
         let rep = merge(dir.path(), &db, false).unwrap();
         assert_eq!(rep.n_triggers_in, 4);

@@ -2,6 +2,8 @@
 
 // Scan: conditioning, Q tiling and triggers against SciPy, Chatterji et al.
 // (2004) and analytic matched-filter SNRs.
+/// Scale-out CLI end to end on the demo (plan, run-plan, merge vs one scan).
+mod plan_cli;
 mod plan_shards;
 mod scan_reference;
 

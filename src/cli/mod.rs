@@ -10,6 +10,7 @@ mod check;
 mod demo;
 mod families;
 mod import;
+mod plan;
 mod rates;
 mod report;
 mod scan;
@@ -93,6 +94,18 @@ pub enum Command {
     Rates(rates::RatesArgs),
     /// Write a static HTML report.
     Report(report::ReportArgs),
+    /// Split a scan into shards for a Slurm job array or `run-plan`; `plan status DIR`.
+    Plan(plan::PlanArgs),
+    /// Run the shards of a plan on this machine, J at a time.
+    RunPlan(plan::RunPlanArgs),
+    /// Merge the shard catalogues of a plan into one catalogue.
+    Merge(plan::MergeArgs),
+    /// Write the demo bundle (helper for end-to-end checks).
+    #[command(hide = true)]
+    DemoData(plan::DemoDataArgs),
+    /// Compare the triggers of two catalogues (helper for end-to-end checks).
+    #[command(hide = true)]
+    CompareCatalogues(plan::CompareArgs),
 }
 
 /// Run one command.
@@ -114,6 +127,11 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Vetoes(a) => vetoes::run(g, a),
         Command::Rates(a) => rates::run(g, a),
         Command::Report(a) => report::run(g, a),
+        Command::Plan(a) => plan::run(g, a),
+        Command::RunPlan(a) => plan::run_plan(g, a),
+        Command::Merge(a) => plan::run_merge(g, a),
+        Command::DemoData(a) => plan::run_demo_data(g, a),
+        Command::CompareCatalogues(a) => plan::run_compare(g, a),
     }
 }
 

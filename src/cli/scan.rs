@@ -14,7 +14,8 @@ use std::process::ExitCode;
 #[command(allow_negative_numbers = true)]
 pub struct ScanArgs {
     /// The bundle directory.
-    pub bundle: PathBuf,
+    #[arg(required_unless_present = "plan")]
+    pub bundle: Option<PathBuf>,
     /// Scan only this channel (repeatable) [default: every channel].
     #[arg(long = "channel", value_name = "NAME")]
     pub channels: Vec<String>,
@@ -42,6 +43,13 @@ pub struct ScanArgs {
     /// Block length [s] [default: derived from the padding, at least 32 s].
     #[arg(long, value_name = "S")]
     pub block_s: Option<f64>,
+    /// Scan shard K of the plan in --plan DIR into DIR/shards/shard-K.db
+    /// (everything else comes from the plan).
+    #[arg(long, value_name = "K", requires = "plan", conflicts_with_all = ["bundle", "channels", "segments", "snr_threshold", "fmin", "fmax", "qmin", "qmax", "mismatch", "block_s"])]
+    pub shard: Option<usize>,
+    /// Work directory written by `plan` (with --shard).
+    #[arg(long, value_name = "DIR", requires = "shard")]
+    pub plan: Option<PathBuf>,
 }
 
 impl ScanArgs {
@@ -134,10 +142,16 @@ fn progress_bar(g: &Global, name: &str) -> indicatif::ProgressBar {
 /// Run the command. Channels are scanned one after another (each scan uses
 /// every core); all results are written in one transaction at the end.
 pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
+    if let (Some(k), Some(dir)) = (args.shard, &args.plan) {
+        return super::plan::run_shard(g, k, dir);
+    }
     let params = args.validate()?;
-    let bundle = Bundle::open(&args.bundle)?;
+    let Some(bundle_arg) = args.bundle.clone() else {
+        bail!("scan: give a BUNDLE directory (or --shard K --plan DIR)");
+    };
+    let bundle = Bundle::open(&bundle_arg)?;
     // Record the absolute path: later commands (cluster, thumbnails) reopen the data.
-    let bundle_dir = std::fs::canonicalize(&args.bundle).unwrap_or_else(|_| args.bundle.clone());
+    let bundle_dir = std::fs::canonicalize(&bundle_arg).unwrap_or(bundle_arg);
     let chosen = select(&bundle, &args.channels)?;
     let segments = match &args.segments {
         Some(p) => {

@@ -20,9 +20,12 @@
 //! keep span holds its `t_peak` (so it appears once). [`merge`] still folds
 //! edge twins (a chain of tiles longer than the margin) into one.
 
+mod compare;
 mod merge;
 mod run;
 mod slurm;
+
+pub use compare::{compare_catalogues, ChannelComparison, Comparison};
 
 pub use merge::{merge, MergeReport};
 pub use run::{
@@ -222,6 +225,8 @@ pub fn make_plan(bundles: &[PathBuf], opts: &PlanOptions, out_dir: &Path) -> Res
     let mut channels = Vec::new();
     for dir in bundles {
         let bundle = crate::io::Bundle::open(dir)?;
+        // Absolute, so shards can run from any working directory.
+        let dir = &std::fs::canonicalize(dir).unwrap_or_else(|_| dir.clone());
         for spec in &bundle.channels {
             let src = crate::scan::NpyChannel::open(spec)?;
             let (valid, _) = src.survey()?;

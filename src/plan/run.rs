@@ -1,8 +1,6 @@
 //! Running shards: one shard in this process, all shards on a workstation,
 //! the per-shard catalogue, and `plan status`.
 use super::{load_plan, now_utc, shard_job_of, ShardChannelJob, TOOL_VERSION};
-use crate::catalogue::to_ns;
-use crate::io::Role;
 use crate::scan::ChannelScan;
 use crate::segments::SegmentList;
 use anyhow::{bail, Context, Result};
@@ -32,10 +30,10 @@ pub fn clip_to_shard(mut scan: ChannelScan, keep: &SegmentList) -> ChannelScan {
 
 /// Write the scans of shard `k` to `DIR/shards/shard-K.db` atomically (a
 /// temporary file renamed into place), replacing an older one: re-running a
-/// shard is safe.
-///
-/// Minimal insert code for the 0001 tables; to be replaced by the
-/// catalogue insert layer at integration.
+/// shard is safe. Each scan comes with its bundle directory, recorded as the
+/// scan's source path (later commands reopen the data from there). Rows are
+/// written by [`crate::catalogue::insert_channel_scan`], as `scan` does, plus
+/// one `shard_runs` row naming the plan and shard.
 ///
 /// # Errors
 /// An unwritable directory or SQLite errors.
@@ -43,7 +41,7 @@ pub fn write_shard_catalogue(
     plan_dir: &Path,
     plan_id: &str,
     k: usize,
-    scans: &[ChannelScan],
+    scans: &[(ChannelScan, PathBuf)],
 ) -> Result<PathBuf> {
     let db = shard_db_path(plan_dir, k);
     let tmp = db.with_extension("db.tmp");
@@ -57,81 +55,12 @@ pub fn write_shard_catalogue(
     {
         let mut conn = crate::catalogue::open(&tmp)?;
         let tx = conn.transaction()?;
-        let created = now_utc();
-        for s in scans {
-            let role = match s.channel.role {
-                Role::Target => "target",
-                Role::Aux => "aux",
-            };
-            tx.execute(
-                "INSERT OR IGNORE INTO channels(name, role, rate_hz) VALUES (?1, ?2, ?3)",
-                params![s.channel.name, role, s.channel.rate],
-            )?;
-            let ch_id: i64 = tx.query_row(
-                "SELECT id FROM channels WHERE name = ?1",
-                [&s.channel.name],
-                |r| r.get(0),
-            )?;
-            let params_json = serde_json::to_string(&s.params)?;
-            let run_key = format!(
-                "{:032x}",
-                xxhash_rust::xxh3::xxh3_128(
-                    format!(
-                        "{plan_id}|{k}|{}|{}|{params_json}",
-                        s.channel.name, s.input_checksum
-                    )
-                    .as_bytes()
-                )
-            );
-            let span = s.analysed.extent();
-            tx.execute(
-                "INSERT INTO scans(channel_id, kind, run_key, source_path, input_checksum, \
-                 params_json, tool_version, created_utc, span_start_ns, span_end_ns, n_triggers) \
-                 VALUES (?1, 'scan', ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
-                params![
-                    ch_id,
-                    run_key,
-                    s.channel.file.display().to_string(),
-                    s.input_checksum,
-                    params_json,
-                    TOOL_VERSION,
-                    created,
-                    span.map_or(0, |g| to_ns(g.start)),
-                    span.map_or(0, |g| to_ns(g.end)),
-                    s.triggers.len() as i64
-                ],
-            )?;
-            let scan_id = tx.last_insert_rowid();
-            let mut ins_seg = tx.prepare_cached(
-                "INSERT INTO analysed_segments(scan_id, start_ns, end_ns) VALUES (?1, ?2, ?3)",
-            )?;
-            for g in s.analysed.segments() {
-                ins_seg.execute(params![scan_id, to_ns(g.start), to_ns(g.end)])?;
-            }
-            let mut ins = tx.prepare_cached(
-                "INSERT INTO triggers(scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, \
-                 f_peak_hz, f_low_hz, f_high_hz, snr, q, energy) \
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
-            )?;
-            for t in &s.triggers {
-                ins.execute(params![
-                    scan_id,
-                    ch_id,
-                    to_ns(t.t_peak),
-                    to_ns(t.t_start),
-                    to_ns(t.t_end),
-                    t.f_peak,
-                    t.f_low,
-                    t.f_high,
-                    t.snr,
-                    t.q,
-                    t.energy
-                ])?;
-            }
+        for (s, bundle) in scans {
+            crate::catalogue::insert_channel_scan(&tx, s, bundle)?;
         }
         tx.execute(
             "INSERT INTO shard_runs(plan_id, shard, tool_version, created_utc) VALUES (?1, ?2, ?3, ?4)",
-            params![plan_id, k as i64, TOOL_VERSION, created],
+            params![plan_id, k as i64, TOOL_VERSION, now_utc()],
         )?;
         tx.commit()?;
         // Fold the WAL back so the renamed file is self-contained.
@@ -166,7 +95,7 @@ pub fn run_shard_with(
                     c.channel.bundle.display()
                 )
             })?;
-            out.push(clip_to_shard(s, &c.keep));
+            out.push((clip_to_shard(s, &c.keep), c.channel.bundle.clone()));
         }
         write_shard_catalogue(plan_dir, &plan.plan_id, k, &out)
     })();
