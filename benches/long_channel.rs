@@ -35,12 +35,12 @@ fn main() {
     let path = dir.path().join("long.npy");
     let t = Instant::now();
     {
-        let mut header =
-            format!("{{'descr': '<f4', 'fortran_order': False, 'shape': ({n},), }}");
+        let mut header = format!("{{'descr': '<f4', 'fortran_order': False, 'shape': ({n},), }}");
         let unpadded = 10 + header.len() + 1;
         header.push_str(&" ".repeat((64 - unpadded % 64) % 64));
         header.push('\n');
-        let mut w = std::io::BufWriter::with_capacity(1 << 22, std::fs::File::create(&path).unwrap());
+        let mut w =
+            std::io::BufWriter::with_capacity(1 << 22, std::fs::File::create(&path).unwrap());
         w.write_all(b"\x93NUMPY\x01\x00").unwrap();
         w.write_all(&(header.len() as u16).to_le_bytes()).unwrap();
         w.write_all(header.as_bytes()).unwrap();

@@ -48,7 +48,6 @@ fn unknown_channel_named_in_error() {
 }
 
 #[test]
-#[ignore = "needs scan::scan_channel over .npy files (still bails in main at 8097b97)"]
 fn scan_finds_glitch_and_rerun_is_skipped() {
     let d = Dir::new();
     bundle(&d);
