@@ -111,14 +111,17 @@ pub trait SampleSource: Sync {
         let (fs, t0) = (self.rate_hz(), self.start_gps());
         let mut hasher = xxhash_rust::xxh3::Xxh3::new();
         let mut buf = vec![0.0f64; CHUNK];
+        let mut bytes: Vec<u8> = Vec::with_capacity(CHUNK * 8);
         let mut segs = Vec::new();
         let mut run_start: Option<usize> = None;
         let mut pos = 0;
         while pos < self.len() {
             let n = CHUNK.min(self.len() - pos);
             self.read(pos, &mut buf[..n])?;
+            bytes.clear();
+            bytes.extend(buf[..n].iter().flat_map(|x| x.to_le_bytes()));
+            hasher.update(&bytes);
             for (i, &x) in buf[..n].iter().enumerate() {
-                hasher.update(&x.to_le_bytes());
                 match (x.is_finite(), run_start) {
                     (true, None) => run_start = Some(pos + i),
                     (false, Some(s)) => {

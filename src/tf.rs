@@ -181,7 +181,7 @@ pub struct QPlan {
 pub struct Workspace {
     buf: Vec<Complex<f32>>,
     scratch: Vec<Complex<f32>>,
-    med: Vec<f32>,
+    med: Vec<u32>,
 }
 
 /// A significant tile.
@@ -397,12 +397,18 @@ impl QPlan {
         const MEDIAN_SAMPLES: usize = 4096;
         let independent = ((hi - lo) * row.window.len() / row.n_t).max(1);
         let stride = ((hi - lo) / independent.min(MEDIAN_SAMPLES)).max(1);
+        // Energies are ≥ 0, so their IEEE bit patterns sort like the values:
+        // selecting on u32 is cheaper than a float comparison.
         ws.med.clear();
-        ws.med
-            .extend(ws.buf[lo..hi].iter().step_by(stride).map(|y| y.norm_sqr()));
+        ws.med.extend(
+            ws.buf[lo..hi]
+                .iter()
+                .step_by(stride)
+                .map(|y| y.norm_sqr().to_bits()),
+        );
         let mid = ws.med.len() / 2;
-        let (_, m, _) = ws.med.select_nth_unstable_by(mid, f32::total_cmp);
-        let median = *m as f64;
+        let (_, m, _) = ws.med.select_nth_unstable(mid);
+        let median = f32::from_bits(*m) as f64;
         (median > 0.0 && median.is_finite()).then(|| std::f64::consts::LN_2 / median)
     }
 
