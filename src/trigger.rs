@@ -42,13 +42,19 @@ pub fn energy_from_snr(snr: f64) -> f64 {
 
 use crate::tf::Tile;
 
+/// Largest gap \[s\] between the time extents of kept tiles that still
+/// makes them one trigger (common practice: a loud transient's tiles at
+/// different Q abut with millisecond gaps).
+pub const CLUSTER_GAP_S: f64 = 0.1;
+
 /// Cluster significant tiles into triggers, one per transient.
 ///
 /// 1. Most significant first, keep a tile only if it overlaps no kept tile in
 ///    both time (`t ± Q/(2πf)`) and frequency (`f ± 2f/Q`); this removes the
 ///    cloud of overlapping tiles of other Q planes and neighbouring rows.
-/// 2. Kept tiles whose time extents overlap are one trigger: its peak is the
-///    loudest kept tile, its extent the union of the kept tiles' extents.
+/// 2. Kept tiles whose time extents overlap, or leave gaps shorter than
+///    [`CLUSTER_GAP_S`], are one trigger: its peak is the loudest kept tile,
+///    its extent the union of the kept tiles' extents.
 ///
 /// Returns triggers sorted by `t_peak`.
 pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
@@ -83,7 +89,7 @@ pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
     let mut group: Vec<Tile> = Vec::new();
     let mut group_end = f64::NEG_INFINITY;
     for tile in kept {
-        if !group.is_empty() && tile.t_gps - tile.half_duration() > group_end {
+        if !group.is_empty() && tile.t_gps - tile.half_duration() > group_end + CLUSTER_GAP_S {
             out.push(trigger_of(&group));
             group.clear();
         }
@@ -147,6 +153,8 @@ mod tests {
             tile(100.001, 190.0, 5.6, 20.0),
             // Far away in time: a second transient.
             tile(105.0, 60.0, 8.0, 20.0),
+            // Abutting the first (a 5 ms gap) at another frequency: same transient.
+            tile(100.025, 600.0, 8.0, 12.0),
         ];
         let trig = cluster_tiles(tiles);
         assert_eq!(trig.len(), 2);

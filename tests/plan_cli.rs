@@ -12,17 +12,7 @@ use std::path::Path;
 /// Triggers per channel, by peak time.
 fn triggers_by_channel(db: &Path) -> BTreeMap<String, Vec<TriggerRow>> {
     let conn = open_existing(db).unwrap();
-    let all = query_triggers(
-        &conn,
-        &TriggerQuery {
-            channel: None,
-            min_snr: None,
-            since: None,
-            until: None,
-            limit: None,
-        },
-    )
-    .unwrap();
+    let all = query_triggers(&conn, &TriggerQuery::default()).unwrap();
     let mut out: BTreeMap<String, Vec<TriggerRow>> = BTreeMap::new();
     for t in all {
         out.entry(t.channel.clone()).or_default().push(t);

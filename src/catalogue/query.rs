@@ -101,6 +101,8 @@ pub struct TriggerQuery {
     pub until: Option<f64>,
     /// At most this many rows (earliest first).
     pub limit: Option<usize>,
+    /// Only members of this family (0 = the triggers marked novel).
+    pub family: Option<i64>,
 }
 
 /// The SQL and bound values of a trigger query (public to the crate so a
@@ -130,6 +132,25 @@ pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String
     if let Some(s) = q.min_snr {
         vals.push(Value::Real(s));
         sql.push_str(&format!(" AND t.snr >= ?{}", vals.len()));
+    }
+    if let Some(f) = q.family {
+        if f == 0 {
+            sql.push_str(" AND t.id IN (SELECT trigger_id FROM family_members WHERE novel = 1)");
+        } else {
+            let known: bool = conn.query_row(
+                "SELECT EXISTS (SELECT 1 FROM families WHERE id = ?1)",
+                [f],
+                |r| r.get(0),
+            )?;
+            if !known {
+                bail!("no family {f} in the catalogue (see `glitchbook families`)");
+            }
+            vals.push(Value::Integer(f));
+            sql.push_str(&format!(
+                " AND t.id IN (SELECT trigger_id FROM family_members WHERE family_id = ?{})",
+                vals.len()
+            ));
+        }
     }
     sql.push_str(" ORDER BY t.t_peak_ns, t.id");
     if let Some(n) = q.limit {

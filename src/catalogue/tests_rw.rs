@@ -228,6 +228,7 @@ fn channel_time_query_uses_index() {
             until: Some(5.0),
             min_snr: Some(6.0),
             limit: Some(10),
+            family: None,
         },
     )
     .unwrap();

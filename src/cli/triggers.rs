@@ -21,6 +21,9 @@ pub struct TriggersArgs {
     /// Only triggers peaking before T [GPS s].
     #[arg(long, value_name = "T")]
     pub until: Option<f64>,
+    /// Only members of this family (0 = novel triggers).
+    #[arg(long, value_name = "ID")]
+    pub family: Option<i64>,
     /// At most N rows.
     #[arg(long, value_name = "N")]
     pub limit: Option<usize>,
@@ -46,6 +49,7 @@ impl TriggersArgs {
             since,
             until,
             limit: self.limit,
+            family: self.family,
         })
     }
 }

@@ -105,10 +105,7 @@ pub fn compare_catalogues(a: &Path, b: &Path) -> Result<Comparison> {
     for name in names {
         let q = TriggerQuery {
             channel: Some(name.clone()),
-            min_snr: None,
-            since: None,
-            until: None,
-            limit: None,
+            ..TriggerQuery::default()
         };
         let get = |c: &rusqlite::Connection| -> Result<Vec<TriggerRow>> {
             // A channel missing from one catalogue has no triggers there.
