@@ -1208,6 +1208,60 @@ mod tests {
     }
 
     #[test]
+    fn q_planes_are_detected_and_dequantised() {
+        // Q planes a factor 2 apart: step ln 2 in ln Q.
+        let planes: Vec<f64> = [5.66f64, 11.31, 22.63, 45.25, 11.31, 5.66]
+            .iter()
+            .map(|q| q.ln())
+            .collect();
+        let step = quantisation_step(&planes);
+        assert!((step - 2f64.ln()).abs() < 1e-3, "step {step}");
+        // A continuous column (> 32 distinct values) is left alone.
+        let cont: Vec<f64> = (0..100).map(|i| (i as f64 * 0.37).sin()).collect();
+        assert_eq!(quantisation_step(&cont), 0.0);
+        // Offsets stay within half a step, repeat for the same key, and
+        // spread over the cell (mean offset near 0, range near the step).
+        let offs: Vec<f64> = (0..2000u32)
+            .map(|i| dequantise(1.0, step, &i.to_le_bytes(), 4) - 1.0)
+            .collect();
+        assert!(offs.iter().all(|o| o.abs() <= 0.5 * step));
+        let mean = offs.iter().sum::<f64>() / offs.len() as f64;
+        assert!(mean.abs() < 0.02, "mean offset {mean}");
+        let (lo, hi) = offs
+            .iter()
+            .fold((f64::MAX, f64::MIN), |(a, b), &o| (a.min(o), b.max(o)));
+        assert!(hi - lo > 0.95 * step);
+        assert_eq!(
+            dequantise(1.0, step, b"k", 4),
+            dequantise(1.0, step, b"k", 4)
+        );
+        assert_eq!(dequantise(1.0, 0.0, b"k", 4), 1.0);
+    }
+
+    #[test]
+    fn pooled_maps_do_not_depend_on_loudness() {
+        // The same shape at two amplitudes (a peak-normalised blob over a
+        // flat background of exactly 1) gives the same pooled map wherever
+        // the blob is above the floor.
+        let mk = |a: f32| -> Vec<f32> {
+            (0..SPANS_S.len() * MAP_LEN)
+                .map(|i| {
+                    let (t, f) = ((i % MAP_LEN) / N_FREQS, i % N_FREQS);
+                    let r2 = ((t as f32 - 7.5).powi(2) + (f as f32 - 7.5).powi(2)) / 4.0;
+                    1.0 + a * (-r2).exp()
+                })
+                .collect()
+        };
+        let (quiet, loud) = (pooled_log_maps(&mk(400.0)), pooled_log_maps(&mk(4000.0)));
+        for (q, l) in quiet.iter().zip(&loud) {
+            assert!(*q <= 0.0 && *q >= REL_LN_FLOOR);
+            if *q > -2.0 {
+                assert!((q - l).abs() < 0.05, "{q} vs {l}");
+            }
+        }
+    }
+
+    #[test]
     fn quantile_interpolates() {
         // NumPy 2.4.6 np.quantile([1, 2, 3, 4], 0.25) = 1.75 (linear method).
         assert!((quantile(&[4.0, 1.0, 3.0, 2.0], 0.25) - 1.75).abs() < 1e-12);
