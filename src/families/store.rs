@@ -95,6 +95,9 @@ pub struct FamilyModel {
     /// [`quantisation_step`] and [`dequantise`].
     #[serde(default)]
     pub dequant_step: Vec<f64>,
+    /// Map PCA made on peak-normalised maps (false for models made before).
+    #[serde(default)]
+    pub map_peak_norm: bool,
 }
 
 fn all_scalars() -> Vec<usize> {
@@ -157,7 +160,9 @@ const REL_LN_FLOOR: f64 = -3.0;
 /// 256 × 256), per span, floored at [`REL_LN_FLOOR`]: the shape of the
 /// transient, independent of its loudness (raw ln Z maps grow in extent
 /// with SNR and split one morphology into loud and quiet families).
-fn pooled_log_maps(maps: &[f32]) -> Vec<f64> {
+/// With `peak_norm` false: plain pooled ln Z (models made before the
+/// peak normalisation, kept readable for `assign`).
+fn pooled_log_maps(maps: &[f32], peak_norm: bool) -> Vec<f64> {
     let mut out = Vec::with_capacity(POOLED_LEN);
     for s in 0..SPANS_S.len() {
         let first = out.len();
@@ -170,6 +175,9 @@ fn pooled_log_maps(maps: &[f32]) -> Vec<f64> {
                     + m[(t + 1) * N_FREQS + f + 1];
                 out.push((0.25 * v as f64).max(1e-3).ln());
             }
+        }
+        if !peak_norm {
+            continue;
         }
         let peak = out[first..]
             .iter()
@@ -193,7 +201,7 @@ impl FamilyModel {
             .zip(fps.par_iter())
             .for_each(|(mut row, (maps, sc))| {
                 if nm > 0 {
-                    let p = ndarray::Array1::from(pooled_log_maps(maps));
+                    let p = ndarray::Array1::from(pooled_log_maps(maps, self.map_peak_norm));
                     let s = self.map_pca.transform_row(p.view());
                     for (j, v) in s.iter().enumerate() {
                         row[j] = v / self.map_scale;
@@ -547,7 +555,7 @@ pub fn fit_model(
     } else {
         let mut pm = Array2::zeros((idx.len(), POOLED_LEN));
         for (r, &i) in idx.iter().enumerate() {
-            for (j, v) in pooled_log_maps(&fps[i].0).into_iter().enumerate() {
+            for (j, v) in pooled_log_maps(&fps[i].0, true).into_iter().enumerate() {
                 pm[[r, j]] = v;
             }
         }
@@ -579,6 +587,7 @@ pub fn fit_model(
         component_family: vec![],
         scalar_cols,
         dequant_step,
+        map_peak_norm: true,
     };
     let sc = Array2::from_shape_fn((n, model.scalar_cols.len()), |(i, j)| {
         model.raw_scalars(&fps[i].1)[j]
@@ -1252,7 +1261,10 @@ mod tests {
                 })
                 .collect()
         };
-        let (quiet, loud) = (pooled_log_maps(&mk(400.0)), pooled_log_maps(&mk(4000.0)));
+        let (quiet, loud) = (
+            pooled_log_maps(&mk(400.0), true),
+            pooled_log_maps(&mk(4000.0), true),
+        );
         for (q, l) in quiet.iter().zip(&loud) {
             assert!(*q <= 0.0 && *q >= REL_LN_FLOOR);
             if *q > -2.0 {
