@@ -27,6 +27,8 @@ mod report_html;
 mod demo_scenario;
 /// Families clustering core against scikit-learn / Iris references.
 mod families_core;
+/// Families on the demo scenario: ground truth and stable ids (issue 3).
+mod families_demo;
 /// Families in a catalogue: cluster, stable ids, labels, assignment.
 mod families_store;
 

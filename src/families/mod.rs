@@ -16,12 +16,15 @@
 //! - `label`: [`label`]`(&mut conn, id, name, note, &`[`default_author`]`())`.
 //! - images: [`render_trigger_thumbnail`], [`render_family_thumbnails`].
 //!
-//! Clustering vector (24 dims): 15 PCA scores of the pooled ln Z maps
-//! (scaled by the first axis' standard deviation) + 9 standardised scalars.
-//! k is chosen by the BIC of full-covariance mixtures (on ≤ 20,000 rows),
-//! then mixture components whose memberships overlap are grouped into one
-//! family ([`store::component_groups`]). Novelty: log-likelihood below the
-//! 0.5 % quantile of the fit data's.
+//! Clustering vector: log2 peak frequency and ln Q of the trigger
+//! ([`store::CLUSTER_SCALARS`]; ln Q dequantised, since trigger Q comes from
+//! a few Q planes), z-scored; optionally PCA scores of the peak-normalised
+//! maps ([`ClusterParams::n_map_components`], default 0). SNR is not in the
+//! vector: loudness does not make a family. k is chosen by the BIC of
+//! full-covariance mixtures (on ≤ 20,000 rows), then mixture components
+//! whose memberships overlap by ≥ 0.5 are grouped into one family
+//! ([`store::component_groups`]). Novelty: log-likelihood below the 0.5 %
+//! quantile of the fit data's.
 
 pub mod features;
 pub mod gmm;
