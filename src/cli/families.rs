@@ -30,8 +30,10 @@ pub struct ClusterArgs {
     /// Largest number of mixture components tried.
     #[arg(long, default_value_t = 12, value_name = "K")]
     pub k_max: usize,
-    /// PCA components kept from the fingerprint maps.
-    #[arg(long, default_value_t = 15, value_name = "N")]
+    /// PCA components of the peak-normalised fingerprint maps added to the
+    /// clustering vector (default 0: peak frequency and Q only; see
+    /// `families::ClusterParams`).
+    #[arg(long, default_value_t = 0, value_name = "N")]
     pub map_components: usize,
     /// Choose the number of families with diagonal-covariance mixtures
     /// (steadier for small catalogues; the final mixture is full).

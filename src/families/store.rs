@@ -391,7 +391,7 @@ fn ensure_features(
             tx.prepare("SELECT version, maps, scalars FROM features WHERE trigger_id = ?1")?;
         for r in rows {
             let got: Option<(i64, Vec<u8>, Vec<u8>)> = st
-                .query_row([r.id], |q| Ok((q.get(0)?, q.get(1)?, q.get(2)?)))
+                .query_row([r.id], |row| Ok((row.get(0)?, row.get(1)?, row.get(2)?)))
                 .optional()?;
             have.push(match got {
                 Some((v, m, s)) if v == FEATURE_VERSION => {
