@@ -1110,17 +1110,74 @@ pub fn family_member_ids(conn: &Connection, family: i64, limit: usize) -> Result
     Ok(v)
 }
 
-/// Write a PNG thumbnail (1 s map, see [`super::thumbnail`]) of one target
-/// trigger to `path`, from its stored fingerprint or, if missing, from `src`.
+/// The trigger with `id` and its channel name, if any.
+fn trigger_row(conn: &Connection, trigger_id: i64) -> Result<Option<Row>> {
+    let mut st = conn.prepare(
+        "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
+         t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id \
+         WHERE t.id = ?1",
+    )?;
+    st.query_row([trigger_id], |r| {
+        Ok(Row {
+            id: r.get(0)?,
+            channel: r.get(1)?,
+            trig: Trigger {
+                t_peak: from_ns(r.get(2)?),
+                t_start: from_ns(r.get(3)?),
+                t_end: from_ns(r.get(4)?),
+                f_peak: r.get(5)?,
+                f_low: r.get(6)?,
+                f_high: r.get(7)?,
+                snr: r.get(8)?,
+                q: r.get::<_, Option<f64>>(9)?.unwrap_or(f64::NAN),
+                energy: r.get(10)?,
+            },
+        })
+    })
+    .optional()
+    .map_err(Into::into)
+}
+
+/// Spectrogram image of one trigger: a 2 s normalised-energy map at the
+/// trigger's Q, 128 times × 64 log-frequencies (16–2048 Hz), 4 × 4 px cells.
+pub const IMAGE_SPAN_S: f64 = 2.0;
+const IMAGE_TIMES: usize = 128;
+const IMAGE_FREQS: usize = 64;
+
+/// Write a PNG spectrogram image of one target trigger to `path`: a fresh
+/// high-resolution map from `src` (see [`IMAGE_SPAN_S`]), or, when the data
+/// cannot be read any more, the stored 1 s fingerprint map.
 ///
 /// # Errors
-/// Unknown trigger id, or the map cannot be computed or written.
+/// Unknown trigger id, or no map can be computed or written.
 pub fn render_trigger_thumbnail(
     conn: &Connection,
     trigger_id: i64,
     src: &dyn EnergyMapSource,
     path: &std::path::Path,
 ) -> Result<()> {
+    if let Ok(Some(row)) = trigger_row(conn, trigger_id) {
+        let f = super::features::F_MIN_HZ;
+        let r = (super::features::F_MAX_HZ / f).ln();
+        let freqs: Vec<f64> = (0..IMAGE_FREQS)
+            .map(|i| f * (r * i as f64 / (IMAGE_FREQS - 1) as f64).exp())
+            .collect();
+        let q = if row.trig.q.is_finite() && row.trig.q > 0.0 {
+            row.trig.q
+        } else {
+            8.0
+        };
+        if let Ok(map) = src.energy_map(
+            &row.channel,
+            row.trig.t_peak,
+            IMAGE_SPAN_S,
+            q,
+            &freqs,
+            IMAGE_TIMES,
+        ) {
+            return super::thumbnail::render_map(&map, IMAGE_TIMES, IMAGE_FREQS, (4, 4), path);
+        }
+    }
     let stored: Option<(i64, Vec<u8>)> = conn
         .query_row(
             "SELECT version, maps FROM features WHERE trigger_id = ?1",
@@ -1131,30 +1188,7 @@ pub fn render_trigger_thumbnail(
     let maps = match stored {
         Some((v, m)) if v == FEATURE_VERSION => blob_to_f32(&m)?,
         _ => {
-            let row: Option<Row> = {
-                let mut st = conn.prepare(
-                    "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
-                     t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id WHERE t.id = ?1",
-                )?;
-                st.query_row([trigger_id], |r| {
-                    Ok(Row {
-                        id: r.get(0)?,
-                        channel: r.get(1)?,
-                        trig: Trigger {
-                            t_peak: from_ns(r.get(2)?),
-                            t_start: from_ns(r.get(3)?),
-                            t_end: from_ns(r.get(4)?),
-                            f_peak: r.get(5)?,
-                            f_low: r.get(6)?,
-                            f_high: r.get(7)?,
-                            snr: r.get(8)?,
-                            q: r.get::<_, Option<f64>>(9)?.unwrap_or(f64::NAN),
-                            energy: r.get(10)?,
-                        },
-                    })
-                })
-                .optional()?
-            };
+            let row = trigger_row(conn, trigger_id)?;
             let Some(row) = row else {
                 bail!("thumbnail: no trigger with id {trigger_id}");
             };

@@ -116,7 +116,23 @@ pub fn colour(t: f64) -> [u8; 3] {
 /// # Errors
 /// Map size mismatch, or the file cannot be written.
 pub fn render_thumbnail(map: &[f32], n_times: usize, n_freqs: usize, path: &Path) -> Result<()> {
-    if map.len() != n_times * n_freqs || map.is_empty() {
+    render_map(map, n_times, n_freqs, (CELL_PX, CELL_PX), path)
+}
+
+/// Render a `[time][freq]` map as a PNG with cells of `cell_px` (width,
+/// height) pixels, time left to right and frequency bottom to top, on the
+/// fixed colour map and energy scale.
+///
+/// # Errors
+/// A map whose length is not `n_times × n_freqs`, or a failed write.
+pub fn render_map(
+    map: &[f32],
+    n_times: usize,
+    n_freqs: usize,
+    cell_px: (u32, u32),
+    path: &Path,
+) -> Result<()> {
+    if map.len() != n_times * n_freqs || map.is_empty() || cell_px.0 == 0 || cell_px.1 == 0 {
         bail!(
             "thumbnail {}: map has {} values, expected {n_times} × {n_freqs}",
             path.display(),
@@ -124,10 +140,10 @@ pub fn render_thumbnail(map: &[f32], n_times: usize, n_freqs: usize, path: &Path
         );
     }
     let lut: Vec<[u8; 3]> = (0..256).map(|i| colour(i as f64 / 255.0)).collect();
-    let (w, h) = (n_times as u32 * CELL_PX, n_freqs as u32 * CELL_PX);
+    let (w, h) = (n_times as u32 * cell_px.0, n_freqs as u32 * cell_px.1);
     let img = image::RgbImage::from_fn(w, h, |x, y| {
-        let t = (x / CELL_PX) as usize;
-        let f = n_freqs - 1 - (y / CELL_PX) as usize;
+        let t = (x / cell_px.0) as usize;
+        let f = n_freqs - 1 - (y / cell_px.1) as usize;
         let z = map[t * n_freqs + f];
         let u = ((z - Z_MIN) / (Z_MAX - Z_MIN)).clamp(0.0, 1.0);
         image::Rgb(lut[(u * 255.0).round() as usize])
