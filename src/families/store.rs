@@ -114,6 +114,20 @@ fn all_scalars() -> Vec<usize> {
 /// (Chatterji et al. 2004), so they add no information.
 pub const CLUSTER_SCALARS: [usize; 2] = [3, 4];
 
+/// Scalar column of log2 peak frequency \[log2 Hz\].
+const SCALAR_LOG2_F: usize = 3;
+/// Scalar column of ln Q.
+const SCALAR_LN_Q: usize = 4;
+
+/// Spacing \[log2 Hz\] of the frequency rows of the Q plane `exp(ln_q)` in
+/// the default tiling (maximum mismatch 0.2): rows are geometric with ratio
+/// `exp(2 s / sqrt(2 + Q²))`, `s` the mismatch step (Chatterji et al. 2004).
+/// Peak frequencies sit on these rows, so they are dequantised by it like Q.
+pub fn log2_row_spacing(ln_q: f64) -> f64 {
+    let q = ln_q.exp();
+    2.0 * crate::tf::mismatch_step(0.2) / (2.0 + q * q).sqrt() / std::f64::consts::LN_2
+}
+
 /// Columns with at most this many distinct values are treated as quantised.
 const MAX_QUANTISED_LEVELS: usize = 32;
 
@@ -223,7 +237,11 @@ impl FamilyModel {
             .iter()
             .enumerate()
             .map(|(j, &c)| {
-                let step = self.dequant_step.get(j).copied().unwrap_or(0.0);
+                let step = if c == SCALAR_LOG2_F && sc.len() > SCALAR_LN_Q {
+                    log2_row_spacing(sc[SCALAR_LN_Q] as f64)
+                } else {
+                    self.dequant_step.get(j).copied().unwrap_or(0.0)
+                };
                 dequantise(sc[c] as f64, step, &key, c)
             })
             .collect()
