@@ -53,5 +53,7 @@ mod reliability_concurrency;
 mod reliability_injection;
 /// Issue 6 reliability: SIGKILL during writes (ignored; run by .ci/run).
 mod reliability_kill;
+/// Issue 6 reliability: SIGKILL during scan, cluster and label (ignored; run by .ci/run).
+mod reliability_kill_pipeline;
 /// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
 mod reliability_upgrade;
