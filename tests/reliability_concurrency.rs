@@ -84,3 +84,85 @@ fn two_writers_and_a_reader() {
     assert_eq!(distinct, total);
     assert!(!d.ok(&["check"]).contains("FAILED"));
 }
+
+/// Two `scan` processes on different demo bundles (their channels renamed
+/// apart) into one catalogue, plus a reader looping `families`: all succeed,
+/// and the catalogue holds exactly the triggers of the two scans run alone.
+#[test]
+fn two_scans_and_a_families_reader() {
+    let d = Arc::new(Dir::new());
+    let mut bundles = Vec::new();
+    for (seed, prefix) in [(1, "AV1:"), (2, "BW2:")] {
+        let dir = d.path().join(format!("demo{seed}"));
+        d.ok(&[
+            "--quiet",
+            "demo-data",
+            "--out",
+            dir.to_str().unwrap(),
+            "--hours",
+            "0.05",
+            "--seed",
+            &seed.to_string(),
+        ]);
+        // Rename the channels so the two bundles are different instruments.
+        let toml = dir.join("bundle.toml");
+        let text = std::fs::read_to_string(&toml)
+            .unwrap()
+            .replace("AV1:", prefix);
+        std::fs::write(&toml, text).unwrap();
+        bundles.push(dir.to_str().unwrap().to_string());
+    }
+    // Reference counts: each bundle scanned alone.
+    let mut expected = 0;
+    for b in &bundles {
+        let r = Dir::new();
+        r.ok(&["--quiet", "scan", b]);
+        expected += count(&r.db(), "triggers");
+    }
+    let done = Arc::new(AtomicBool::new(false));
+    let reader = {
+        let d = Arc::clone(&d);
+        let done = Arc::clone(&done);
+        std::thread::spawn(move || {
+            let mut reads = 0;
+            while !done.load(Ordering::SeqCst) {
+                if !d.db().exists() {
+                    std::thread::sleep(std::time::Duration::from_millis(5));
+                    continue;
+                }
+                let out = d.run(&["families", "--format", "json"]);
+                assert!(
+                    out.status.success(),
+                    "reader failed: {}",
+                    String::from_utf8_lossy(&out.stderr)
+                );
+                reads += 1;
+            }
+            reads
+        })
+    };
+    let writers: Vec<_> = bundles
+        .iter()
+        .map(|b| {
+            let d = Arc::clone(&d);
+            let b = b.clone();
+            std::thread::spawn(move || d.ok(&["--quiet", "scan", &b]))
+        })
+        .collect();
+    for w in writers {
+        w.join().unwrap();
+    }
+    done.store(true, Ordering::SeqCst);
+    let reads = reader.join().unwrap();
+    assert!(reads > 0);
+    assert_eq!(
+        count(&d.db(), "triggers"),
+        expected,
+        "lost or duplicated triggers"
+    );
+    assert_eq!(
+        count(&d.db(), "scans"),
+        16,
+        "8 channels in each bundle, scanned once"
+    );
+}
