@@ -137,6 +137,8 @@ struct Table<'a> {
     bytes: &'a [u8],
     reader: csv::Reader<&'a [u8]>,
     columns: HashMap<String, usize>,
+    /// (byte offset, newlines before it) of the last [`Table::line_at`] call.
+    newlines_upto: (usize, u64),
 }
 
 impl<'a> Table<'a> {
@@ -168,6 +170,7 @@ impl<'a> Table<'a> {
             bytes,
             reader,
             columns,
+            newlines_upto: (0, 0),
         })
     }
 
@@ -183,9 +186,23 @@ impl<'a> Table<'a> {
     /// 1-based line of the record starting at byte `offset`. The CSV reader's
     /// own line count skips comment lines, so count newlines here, then step
     /// over the blank and `#` lines the reader skips before a record.
-    fn line_at(&self, offset: u64) -> u64 {
+    ///
+    /// Records come in increasing offsets, so the newline count resumes from
+    /// the previous call (`newlines_upto`): linear in the file, not quadratic.
+    fn line_at(&mut self, offset: u64) -> u64 {
         let mut off = (offset as usize).min(self.bytes.len());
-        let mut line = 1 + self.bytes[..off].iter().filter(|&&b| b == b'\n').count() as u64;
+        let (from, count) = if self.newlines_upto.0 <= off {
+            self.newlines_upto
+        } else {
+            (0, 0)
+        };
+        let count = count
+            + self.bytes[from..off]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count() as u64;
+        self.newlines_upto = (off, count);
+        let mut line = 1 + count;
         while let Some(rest) = self.bytes.get(off..).filter(|r| !r.is_empty()) {
             let skipped = matches!(rest[0], b'#' | b'\n') || rest.starts_with(b"\r\n");
             if !skipped {
