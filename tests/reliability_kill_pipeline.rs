@@ -79,7 +79,7 @@ fn kill_loop(d: &Dir, args: &dyn Fn(usize) -> Vec<String>, seed: &mut u64) -> us
     d.ok(&refs);
     let full = t.elapsed().as_secs_f64();
     let (mut killed, mut attempts) = (0, 0);
-    while killed < N_KILLS && attempts < 4 * N_KILLS {
+    while killed < N_KILLS && attempts < 10 * N_KILLS {
         attempts += 1;
         let a = args(attempts);
         let refs: Vec<&str> = a.iter().map(String::as_str).collect();
@@ -88,7 +88,7 @@ fn kill_loop(d: &Dir, args: &dyn Fn(usize) -> Vec<String>, seed: &mut u64) -> us
             .stdout(std::process::Stdio::null())
             .spawn()
             .unwrap();
-        std::thread::sleep(Duration::from_secs_f64(full * next(seed)));
+        std::thread::sleep(Duration::from_secs_f64(0.8 * full * next(seed)));
         if child.try_wait().unwrap().is_none() {
             child.kill().unwrap(); // SIGKILL on Unix
             killed += 1;
