@@ -9,6 +9,7 @@ use super::gmm::{fit_auto_k, seeded_subset, Gmm, GmmParams};
 use super::hungarian;
 use super::pca::{PcaModel, Scaler};
 use crate::catalogue::from_ns;
+use crate::catalogue::now_utc;
 use crate::trigger::Trigger;
 use anyhow::{bail, Context, Result};
 use ndarray::{Array2, Axis};
@@ -320,31 +321,6 @@ pub struct AssignReport {
     pub n_assigned: usize,
     /// Triggers marked novel.
     pub n_novel: usize,
-}
-
-/// Current UTC time as `YYYY-MM-DDTHH:MM:SSZ`.
-pub fn now_utc() -> String {
-    let secs = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map(|d| d.as_secs() as i64)
-        .unwrap_or(0);
-    let (days, rem) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
-    // Civil date from days since 1970-01-01 (Hinnant's algorithm).
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = doy - (153 * mp + 2) / 5 + 1;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = yoe + era * 400 + i64::from(m <= 2);
-    format!(
-        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
-        rem / 3600,
-        (rem / 60) % 60,
-        rem % 60
-    )
 }
 
 /// Author for label history: `$USER`, or "unknown".

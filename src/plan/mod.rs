@@ -34,6 +34,7 @@ pub use run::{
 };
 pub use slurm::{slurm_script, SlurmOptions};
 
+use crate::catalogue::now_utc;
 use crate::io::Role;
 use crate::scan::{resolve_params, ResolvedParams, SampleSource, ScanParams};
 use crate::segments::{Segment, SegmentList};
@@ -189,31 +190,6 @@ pub(crate) fn to_pairs(s: &SegmentList) -> Vec<[f64; 2]> {
 
 pub(crate) fn from_pairs(p: &[[f64; 2]]) -> SegmentList {
     SegmentList::from_segments(p.iter().map(|x| Segment::new(x[0], x[1])).collect())
-}
-
-/// Current UTC time as ISO 8601 (`YYYY-MM-DDTHH:MM:SSZ`).
-pub fn now_utc() -> String {
-    let secs = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map(|d| d.as_secs() as i64)
-        .unwrap_or(0);
-    // Civil date from days since 1970-01-01 (H. Hinnant's algorithm, from memory).
-    let (days, sod) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = doy - (153 * mp + 2) / 5 + 1;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = yoe + era * 400 + i64::from(m <= 2);
-    format!(
-        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
-        sod / 3600,
-        sod % 3600 / 60,
-        sod % 60
-    )
 }
 
 /// Survey the channels of `bundles` (reads every sample once for dropouts)
