@@ -71,7 +71,7 @@ impl TriggerRow {
 
     /// Row mapping for `SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns,
     /// t.t_end_ns, t.f_peak_hz, t.f_low_hz, t.f_high_hz, t.snr, t.q, t.energy`.
-    fn from_row(r: &Row) -> rusqlite::Result<TriggerRow> {
+    pub(crate) fn from_row(r: &Row) -> rusqlite::Result<TriggerRow> {
         Ok(TriggerRow {
             id: r.get(0)?,
             channel: r.get(1)?,

@@ -339,6 +339,19 @@ struct Row {
     trig: Trigger,
 }
 
+impl Row {
+    /// The catalogue's trigger row mapping (`catalogue::TriggerRow`), for
+    /// `SELECT t.id, c.name, t.t_peak_ns, ... t.energy`.
+    fn from_sql(r: &rusqlite::Row) -> rusqlite::Result<Row> {
+        let t = crate::catalogue::TriggerRow::from_row(r)?;
+        Ok(Row {
+            id: t.id,
+            trig: t.to_trigger(),
+            channel: t.channel,
+        })
+    }
+}
+
 fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Result<Vec<Row>> {
     let sql = format!(
         "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
@@ -351,23 +364,7 @@ fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Re
         }
     );
     let mut st = conn.prepare(&sql)?;
-    let rows = st.query_map([min_snr], |r| {
-        Ok(Row {
-            id: r.get(0)?,
-            channel: r.get(1)?,
-            trig: Trigger {
-                t_peak: from_ns(r.get(2)?),
-                t_start: from_ns(r.get(3)?),
-                t_end: from_ns(r.get(4)?),
-                f_peak: r.get(5)?,
-                f_low: r.get(6)?,
-                f_high: r.get(7)?,
-                snr: r.get(8)?,
-                q: r.get::<_, Option<f64>>(9)?.unwrap_or(f64::NAN),
-                energy: r.get(10)?,
-            },
-        })
-    })?;
+    let rows = st.query_map([min_snr], Row::from_sql)?;
     Ok(rows.collect::<rusqlite::Result<_>>()?)
 }
 
@@ -1111,25 +1108,9 @@ fn trigger_row(conn: &Connection, trigger_id: i64) -> Result<Option<Row>> {
          t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id \
          WHERE t.id = ?1",
     )?;
-    st.query_row([trigger_id], |r| {
-        Ok(Row {
-            id: r.get(0)?,
-            channel: r.get(1)?,
-            trig: Trigger {
-                t_peak: from_ns(r.get(2)?),
-                t_start: from_ns(r.get(3)?),
-                t_end: from_ns(r.get(4)?),
-                f_peak: r.get(5)?,
-                f_low: r.get(6)?,
-                f_high: r.get(7)?,
-                snr: r.get(8)?,
-                q: r.get::<_, Option<f64>>(9)?.unwrap_or(f64::NAN),
-                energy: r.get(10)?,
-            },
-        })
-    })
-    .optional()
-    .map_err(Into::into)
+    st.query_row([trigger_id], Row::from_sql)
+        .optional()
+        .map_err(Into::into)
 }
 
 /// Spectrogram image of one trigger: a 2 s normalised-energy map at the
