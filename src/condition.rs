@@ -108,11 +108,37 @@ impl Welch {
         })
     }
 
+    /// Buffers for [`Welch::estimate_with`], sized for this plan.
+    pub fn buffers(&self) -> WelchBuffers {
+        WelchBuffers {
+            input: self.fft.make_input_vec(),
+            spec: self.fft.make_output_vec(),
+            scratch: self.fft.make_scratch_vec(),
+            per_seg: Vec::new(),
+            column: Vec::new(),
+            density: Vec::new(),
+        }
+    }
+
     /// The median-averaged PSD of `x` sampled at `fs_hz`.
     ///
     /// # Errors
     /// Fewer samples than one segment.
     pub fn estimate(&self, x: &[f64], fs_hz: f64) -> Result<Psd> {
+        let mut b = self.buffers();
+        let df_hz = self.estimate_with(x, fs_hz, &mut b)?;
+        Ok(Psd {
+            df_hz,
+            density: b.density,
+        })
+    }
+
+    /// As [`Welch::estimate`], into `b.density` (bin spacing returned), with
+    /// no allocation once the buffers have grown to size.
+    ///
+    /// # Errors
+    /// Fewer samples than one segment.
+    pub fn estimate_with(&self, x: &[f64], fs_hz: f64, b: &mut WelchBuffers) -> Result<f64> {
         let nperseg = self.nperseg;
         if x.len() < nperseg {
             bail!(
@@ -123,42 +149,82 @@ impl Welch {
         let step = nperseg - self.noverlap;
         let nseg = (x.len() - nperseg) / step + 1;
         let nfreq = nperseg / 2 + 1;
-        let mut input = self.fft.make_input_vec();
-        let mut spec = self.fft.make_output_vec();
-        let mut scratch = self.fft.make_scratch_vec();
-        // per_bin[k * nseg + s]: periodogram of segment s at bin k.
-        let mut per_bin = vec![0.0f64; nfreq * nseg];
-        for s in 0..nseg {
+        // per_seg[s * nfreq + k]: periodogram of segment s at bin k, stored
+        // as IEEE bits: values are ≥ 0, so the bits order like the values
+        // (and like f64::total_cmp), and integer selection is cheaper.
+        b.per_seg.resize(nfreq * nseg, 0);
+        for (s, row) in b.per_seg.chunks_exact_mut(nfreq).enumerate() {
             let seg = &x[s * step..s * step + nperseg];
-            let mean = seg.iter().sum::<f64>() / nperseg as f64;
-            for ((o, &v), &w) in input.iter_mut().zip(seg).zip(&self.win) {
+            let mean = sum(seg) / nperseg as f64;
+            for ((o, &v), &w) in b.input.iter_mut().zip(seg).zip(&self.win) {
                 *o = (v - mean) * w;
             }
             self.fft
-                .process_with_scratch(&mut input, &mut spec, &mut scratch)
+                .process_with_scratch(&mut b.input, &mut b.spec, &mut b.scratch)
                 .expect("buffer sizes come from the plan");
-            for (k, c) in spec.iter().enumerate() {
-                per_bin[k * nseg + s] = c.norm_sqr();
+            for (o, c) in row.iter_mut().zip(&b.spec) {
+                *o = c.norm_sqr().to_bits();
             }
         }
         let scale = 1.0 / (fs_hz * self.win_ss);
         let bias = median_bias(nseg);
-        let density = per_bin
-            .chunks_mut(nseg)
-            .enumerate()
-            .map(|(k, vals)| {
-                let one_sided = if k == 0 || (nperseg.is_multiple_of(2) && k == nfreq - 1) {
-                    1.0
-                } else {
-                    2.0
-                };
-                median(vals) * scale * one_sided / bias
-            })
-            .collect();
-        Ok(Psd {
-            df_hz: fs_hz / nperseg as f64,
-            density,
-        })
+        b.density.clear();
+        b.column.resize(nseg, 0);
+        for k in 0..nfreq {
+            // Gathering a column touches nseg cache lines that the next
+            // bins reuse, so it stays in L1.
+            for (o, row) in b.column.iter_mut().zip(b.per_seg.chunks_exact(nfreq)) {
+                *o = row[k];
+            }
+            let one_sided = if k == 0 || (nperseg.is_multiple_of(2) && k == nfreq - 1) {
+                1.0
+            } else {
+                2.0
+            };
+            b.density
+                .push(median_of_bits(&mut b.column) * scale * one_sided / bias);
+        }
+        Ok(fs_hz / nperseg as f64)
+    }
+}
+
+/// Reusable buffers of a [`Welch`] estimate (one per worker).
+pub struct WelchBuffers {
+    input: Vec<f64>,
+    spec: Vec<Complex<f64>>,
+    scratch: Vec<Complex<f64>>,
+    per_seg: Vec<u64>,
+    column: Vec<u64>,
+    /// The last estimate: one-sided density per bin \[unit²/Hz\].
+    pub density: Vec<f64>,
+}
+
+/// Sum of `x` with eight running partial sums (vectorises; the rounding
+/// differs from a left-to-right sum only in the last bits).
+pub fn sum(x: &[f64]) -> f64 {
+    let mut acc = [0.0f64; 8];
+    let chunks = x.chunks_exact(8);
+    let tail: f64 = chunks.remainder().iter().sum();
+    for c in chunks {
+        for (a, v) in acc.iter_mut().zip(c) {
+            *a += v;
+        }
+    }
+    acc.iter().sum::<f64>() + tail
+}
+
+/// Median (numpy's: mean of the two middle values for even length) of
+/// non-negative f64 values given by their IEEE bits. Reorders `v`.
+fn median_of_bits(v: &mut [u64]) -> f64 {
+    let n = v.len();
+    assert!(n > 0, "median of an empty slice");
+    let (lo_part, hi, _) = v.select_nth_unstable(n / 2);
+    let hi = f64::from_bits(*hi);
+    if n % 2 == 1 {
+        hi
+    } else {
+        let lo = f64::from_bits(*lo_part.iter().max().expect("n ≥ 2"));
+        0.5 * (lo + hi)
     }
 }
 
@@ -206,38 +272,56 @@ pub fn tukey(n: usize, taper: usize) -> Vec<f64> {
         .collect()
 }
 
-/// Whiten a block spectrum in place.
+/// Whiten a block spectrum.
 ///
 /// `spec` is the unnormalised real FFT (N/2+1 bins) of N samples at `fs_hz`
 /// that were multiplied by a window whose mean square is `win_ms`. Each bin is
 /// divided by `sqrt(N fs S(f) / 2 · win_ms)` and multiplied by the high-pass
-/// gain `hp(f)`, so stationary Gaussian noise with PSD `S` becomes unit
-/// variance per bin. Bins where the PSD is not positive and finite, or the
-/// value is not finite, are set to zero. Returns the whitened bins as f32
-/// (magnitudes clamped to 1e12 so absurd inputs cannot overflow).
+/// gain `hp_gain[k]` (one per bin, see [`highpass_gain`]), so stationary
+/// Gaussian noise with PSD `S` becomes unit variance per bin. Between the
+/// bins of `psd` the factor `1/sqrt(S)` is interpolated linearly (computed
+/// once per PSD bin, not per block bin). PSD bins that are not positive and
+/// finite give factor 0, and so do values that are not finite. Writes the
+/// whitened bins as f32 to `out` (magnitudes clamped to 1e12 so absurd
+/// inputs cannot overflow); `inv_amp` is scratch.
+#[allow(clippy::too_many_arguments)]
 pub fn whiten(
     spec: &[Complex<f64>],
     n: usize,
     fs_hz: f64,
     win_ms: f64,
     psd: &Psd,
-    hp: impl Fn(f64) -> f64,
+    hp_gain: &[f64],
+    inv_amp: &mut Vec<f64>,
     out: &mut [Complex<f32>],
 ) {
-    let df = fs_hz / n as f64;
+    const CAP: f64 = 1e12;
     let norm = n as f64 * fs_hz * 0.5 * win_ms;
-    for (k, (o, x)) in out.iter_mut().zip(spec).enumerate() {
-        let f = k as f64 * df;
-        let s = psd.at(f);
-        let g = hp(f);
-        *o = if s > 0.0 && s.is_finite() && g > 0.0 {
-            let w = x * (g / (norm * s).sqrt());
-            if w.re.is_finite() && w.im.is_finite() {
-                const CAP: f64 = 1e12;
-                Complex::new(w.re.clamp(-CAP, CAP) as f32, w.im.clamp(-CAP, CAP) as f32)
-            } else {
-                Complex::new(0.0, 0.0)
-            }
+    inv_amp.clear();
+    inv_amp.extend(psd.density.iter().map(|&s| {
+        if s > 0.0 && s < f64::INFINITY {
+            1.0 / (norm * s).sqrt()
+        } else {
+            0.0
+        }
+    }));
+    // Bin k of the block sits at PSD bin k · ratio.
+    let ratio = fs_hz / n as f64 / psd.df_hz;
+    let a = &inv_amp[..];
+    let last = a.len().saturating_sub(1);
+    for (k, ((o, x), &g)) in out.iter_mut().zip(spec).zip(hp_gain).enumerate() {
+        let pos = k as f64 * ratio;
+        let i = (pos as usize).min(last); // truncation = floor for pos ≥ 0
+        let amp = if i < last {
+            let w = pos - i as f64;
+            a[i] * (1.0 - w) + a[i + 1] * w
+        } else {
+            a[last]
+        };
+        let f = amp * g;
+        let (re, im) = (x.re * f, x.im * f);
+        *o = if re.is_finite() && im.is_finite() {
+            Complex::new(re.clamp(-CAP, CAP) as f32, im.clamp(-CAP, CAP) as f32)
         } else {
             Complex::new(0.0, 0.0)
         };

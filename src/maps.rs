@@ -153,7 +153,7 @@ impl BundleMaps {
             return Ok(hit.clone());
         }
         let hp = (0.5 * p.fmin, 0.9 * p.fmin);
-        let cond = Conditioner::new(n, pad, welch_n, hp)?;
+        let cond = Conditioner::new(n, fs, pad, welch_n, hp)?;
         let whitened = cond.whiten_block(src, i0)?;
         let plan = QPlan::single_plane(
             fs,

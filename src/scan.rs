@@ -1,7 +1,7 @@
 //! Scanning one channel: split into valid stretches (analysis segments minus
 //! NaN dropouts), condition and tile each stretch in overlapping blocks, and
 //! cluster significant tiles into triggers.
-use crate::condition::{highpass_gain, tukey, whiten, Welch};
+use crate::condition::{highpass_gain, tukey, whiten, Psd, Welch, WelchBuffers};
 use crate::io::{ChannelSpec, NpyReader};
 use crate::segments::{Segment, SegmentList};
 use crate::tf::{QPlan, Tile, Tiling, Workspace};
@@ -386,7 +386,7 @@ pub fn scan_source(
         if let std::collections::hash_map::Entry::Vacant(e) = plans.entry(b.n) {
             e.insert((
                 QPlan::new(fs, b.n, &tiling, highpass, &mut planner)?,
-                Conditioner::new(b.n, pad, welch_n, highpass)?,
+                Conditioner::new(b.n, fs, pad, welch_n, highpass)?,
             ));
         }
     }
@@ -395,13 +395,22 @@ pub fn scan_source(
     let total = blocks.len();
     let results: Vec<Result<Vec<Tile>>> = blocks
         .par_iter()
-        .map_init(HashMap::<usize, Workspace>::new, |wss, b| {
+        .map_init(HashMap::<usize, (Workspace, CondBuffers)>::new, |wss, b| {
             let (plan, conditioner) = &plans[&b.n];
-            let ws = wss.entry(b.n).or_insert_with(|| plan.workspace());
+            let (ws, cb) = wss
+                .entry(b.n)
+                .or_insert_with(|| (plan.workspace(), conditioner.buffers()));
             let keep = (t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs);
             let mut tiles = Vec::new();
-            let block = conditioner.whiten_block(src, b.i0)?;
-            plan.transform(&block, t0 + b.i0 as f64 / fs, keep, z_thr, ws, &mut tiles);
+            conditioner.whiten_block_with(src, b.i0, cb)?;
+            plan.transform(
+                &cb.whitened,
+                t0 + b.i0 as f64 / fs,
+                keep,
+                z_thr,
+                ws,
+                &mut tiles,
+            );
             progress(
                 done.fetch_add(1, Ordering::Relaxed) as f64 / total as f64 + 1.0 / total as f64,
             );
@@ -419,35 +428,68 @@ pub fn scan_source(
     Ok((rp, analysed, cluster_tiles(tiles), checksum))
 }
 
-/// Conditioning of blocks of one length: Welch estimator, taper and FFT
-/// plan made once and shared by all workers.
+/// Conditioning of blocks of one length: Welch estimator, taper, high-pass
+/// gains and FFT plan made once and shared by all workers.
 pub struct Conditioner {
     n: usize,
     welch: Welch,
     taper: Vec<f64>,
     taper_ms: f64,
     fft: Arc<dyn realfft::RealToComplex<f64>>,
-    highpass: (f64, f64),
+    /// High-pass gain of each block bin.
+    hp_gain: Vec<f64>,
+}
+
+/// Per-worker buffers of a [`Conditioner`]: nothing is allocated per block.
+pub struct CondBuffers {
+    x: Vec<f64>,
+    spec: Vec<Complex<f64>>,
+    scratch: Vec<Complex<f64>>,
+    welch: WelchBuffers,
+    inv_amp: Vec<f64>,
+    /// The last whitened block (`n/2 + 1` bins).
+    pub whitened: Vec<Complex<f32>>,
 }
 
 impl Conditioner {
-    /// Plan for blocks of `n` samples with `pad` samples of padding (half
-    /// of it tapered), Welch segments of `welch_n` samples (50% overlap) and
-    /// the high-pass `(stop, pass)` edges \[Hz\].
+    /// Plan for blocks of `n` samples at `fs_hz` with `pad` samples of
+    /// padding (half of it tapered), Welch segments of `welch_n` samples (50%
+    /// overlap) and the high-pass `(stop, pass)` edges \[Hz\].
     ///
     /// # Errors
     /// A Welch segment shorter than 2 samples.
-    pub fn new(n: usize, pad: usize, welch_n: usize, highpass: (f64, f64)) -> Result<Conditioner> {
+    pub fn new(
+        n: usize,
+        fs_hz: f64,
+        pad: usize,
+        welch_n: usize,
+        highpass: (f64, f64),
+    ) -> Result<Conditioner> {
         let taper = tukey(n, pad / 2);
         let taper_ms = taper.iter().map(|w| w * w).sum::<f64>() / n as f64;
+        let df = fs_hz / n as f64;
         Ok(Conditioner {
             n,
             welch: Welch::new(welch_n, welch_n / 2)?,
             taper,
             taper_ms,
             fft: realfft::RealFftPlanner::<f64>::new().plan_fft_forward(n),
-            highpass,
+            hp_gain: (0..n / 2 + 1)
+                .map(|k| highpass_gain(k as f64 * df, highpass.0, highpass.1))
+                .collect(),
         })
+    }
+
+    /// Buffers for one worker.
+    pub fn buffers(&self) -> CondBuffers {
+        CondBuffers {
+            x: vec![0.0; self.n],
+            spec: self.fft.make_output_vec(),
+            scratch: self.fft.make_scratch_vec(),
+            welch: self.welch.buffers(),
+            inv_amp: Vec::new(),
+            whitened: vec![Complex::new(0.0, 0.0); self.n / 2 + 1],
+        }
     }
 
     /// Read a block from sample `i0`, estimate its PSD (Welch, median), taper
@@ -457,30 +499,47 @@ impl Conditioner {
     /// # Errors
     /// Read errors of the source.
     pub fn whiten_block(&self, src: &dyn SampleSource, i0: usize) -> Result<Vec<Complex<f32>>> {
+        let mut b = self.buffers();
+        self.whiten_block_with(src, i0, &mut b)?;
+        Ok(b.whitened)
+    }
+
+    /// As [`Conditioner::whiten_block`], into `b.whitened`.
+    ///
+    /// # Errors
+    /// Read errors of the source.
+    pub fn whiten_block_with(
+        &self,
+        src: &dyn SampleSource,
+        i0: usize,
+        b: &mut CondBuffers,
+    ) -> Result<()> {
         let (n, fs) = (self.n, src.rate_hz());
-        let mut x = vec![0.0f64; n];
-        src.read(i0, &mut x)?;
-        let psd = self.welch.estimate(&x, fs)?;
-        let mean = x.iter().sum::<f64>() / n as f64;
-        for (v, w) in x.iter_mut().zip(&self.taper) {
+        src.read(i0, &mut b.x)?;
+        let df_psd = self.welch.estimate_with(&b.x, fs, &mut b.welch)?;
+        let mean = crate::condition::sum(&b.x) / n as f64;
+        for (v, w) in b.x.iter_mut().zip(&self.taper) {
             *v = (*v - mean) * w;
         }
-        let mut spec = self.fft.make_output_vec();
         self.fft
-            .process(&mut x, &mut spec)
+            .process_with_scratch(&mut b.x, &mut b.spec, &mut b.scratch)
             .map_err(|e| anyhow!("FFT: {e}"))?;
-        let mut out = vec![Complex::new(0.0f32, 0.0); n / 2 + 1];
-        let hp = self.highpass;
+        let psd = Psd {
+            df_hz: df_psd,
+            density: std::mem::take(&mut b.welch.density),
+        };
         whiten(
-            &spec,
+            &b.spec,
             n,
             fs,
             self.taper_ms,
             &psd,
-            |f| highpass_gain(f, hp.0, hp.1),
-            &mut out,
+            &self.hp_gain,
+            &mut b.inv_amp,
+            &mut b.whitened,
         );
-        Ok(out)
+        b.welch.density = psd.density;
+        Ok(())
     }
 }
 
@@ -497,7 +556,7 @@ pub fn read_and_whiten(
     welch_n: usize,
     highpass: (f64, f64),
 ) -> Result<Vec<Complex<f32>>> {
-    Conditioner::new(n, pad, welch_n, highpass)?.whiten_block(src, i0)
+    Conditioner::new(n, src.rate_hz(), pad, welch_n, highpass)?.whiten_block(src, i0)
 }
 
 /// A bundle channel's `.npy` file as a [`SampleSource`].
