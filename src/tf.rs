@@ -91,6 +91,21 @@ pub struct Tiling {
     pub mismatch: f64,
 }
 
+/// Kept tiles are screened for significant ones in chunks of this many.
+const CHUNK: usize = 64;
+
+/// The bisquare window `(1 − ν²)²` for `|ν| < 1`, else 0.
+fn bisquare(nu: f64) -> f64 {
+    let a = (1.0 - nu * nu).max(0.0);
+    a * a
+}
+
+/// [`bisquare`] in single precision (the row loops).
+fn bisquare32(nu: f32) -> f32 {
+    let a = (1.0 - nu * nu).max(0.0);
+    a * a
+}
+
 /// One frequency row of a plane, planned for a block length.
 pub struct Row {
     /// Centre frequency \[Hz\].
@@ -99,8 +114,15 @@ pub struct Row {
     bin_lo: usize,
     /// Block bin nearest the centre frequency (baseband shift).
     bin_center: usize,
-    /// Window values for bins `bin_lo..bin_lo + window.len()`.
-    window: Vec<f32>,
+    /// Number of bins in the window (`bin_lo..bin_lo + len`).
+    len: usize,
+    /// Bisquare argument ν at `bin_lo` and its step per bin: the window is
+    /// computed as it is applied, which is cheaper than streaming a stored
+    /// copy of every row's window through the cache.
+    nu0: f32,
+    dnu: f32,
+    /// Expected `|y|²` of whitened Gaussian noise: `Σ_j W_j² g_j²`.
+    norm: f64,
     /// Tiles across the block (inverse FFT length).
     pub n_t: usize,
     ifft: Arc<dyn Fft<f32>>,
@@ -127,27 +149,31 @@ impl Row {
         if hi < lo {
             return None;
         }
-        let mut window = Vec::with_capacity(hi - lo + 1);
         let mut norm = 0.0f64;
         for k in lo..=hi {
             let nu = (k as f64 / t_block - f_hz) / half_width_hz;
-            let w = (1.0 - nu * nu).max(0.0).powi(2);
+            let w = bisquare(nu);
             let g = highpass_gain(k as f64 / t_block, highpass_hz.0, highpass_hz.1);
             norm += w * w * g * g;
-            window.push(w as f32);
         }
         if norm <= 0.0 {
             return None;
         }
+        let len = hi - lo + 1;
         let dtau = step * q / (2.0 * std::f64::consts::PI * f_hz);
         let n_t = ((t_block / dtau).ceil() as usize)
-            .max(window.len())
+            .max(len)
             .next_power_of_two();
         Some(Row {
             f_hz,
             bin_lo: lo,
-            bin_center: (f_hz * t_block).round() as usize,
-            window,
+            // Any bin of the window serves as the baseband shift (it only
+            // changes the phase of the row output); keep the nearest one.
+            bin_center: ((f_hz * t_block).round() as usize).clamp(lo, hi),
+            len,
+            nu0: ((lo as f64 / t_block - f_hz) / half_width_hz) as f32,
+            dnu: (1.0 / (t_block * half_width_hz)) as f32,
+            norm,
             n_t,
             ifft: planner.plan_fft_inverse(n_t),
         })
@@ -182,6 +208,7 @@ pub struct Workspace {
     buf: Vec<Complex<f32>>,
     scratch: Vec<Complex<f32>>,
     med: Vec<u32>,
+    hot: Vec<u32>,
 }
 
 /// A significant tile.
@@ -296,6 +323,7 @@ impl QPlan {
             buf: vec![Complex::new(0.0, 0.0); self.max_n_t],
             scratch: vec![Complex::new(0.0, 0.0); self.max_scratch],
             med: Vec::with_capacity(self.max_n_t),
+            hot: Vec::with_capacity(self.max_n_t / CHUNK + 1),
         }
     }
 
@@ -309,16 +337,26 @@ impl QPlan {
     }
 
     /// Compute one row's baseband inverse FFT into `ws.buf`.
+    ///
+    /// Window bin `k` goes to index `k − c` modulo `n_t` (`c` the centre
+    /// bin): bins from the centre up fill `buf[0..]`, bins below it fill the
+    /// top of `buf`, and only the gap between them is zeroed.
     fn row_transform(&self, row: &Row, whitened: &[Complex<f32>], ws: &mut Workspace) {
         let n_t = row.n_t;
         let buf = &mut ws.buf[..n_t];
-        buf.fill(Complex::new(0.0, 0.0));
-        let c = row.bin_center as isize;
-        let spec = &whitened[row.bin_lo..row.bin_lo + row.window.len()];
-        for (j, (&x, &w)) in spec.iter().zip(&row.window).enumerate() {
-            let d = (row.bin_lo + j) as isize - c;
-            let idx = d.rem_euclid(n_t as isize) as usize;
-            buf[idx] = x * w;
+        let (lo, c, len) = (row.bin_lo, row.bin_center, row.len);
+        let spec = &whitened[lo..lo + len];
+        // Row::new keeps c within [lo, lo + len) and len ≤ n_t.
+        let below = c - lo;
+        let (spec_neg, spec_pos) = spec.split_at(below);
+        let above = len - below;
+        let weigh = |j: usize, x: &Complex<f32>| x * bisquare32(row.nu0 + j as f32 * row.dnu);
+        for (j, (o, x)) in buf[..above].iter_mut().zip(spec_pos).enumerate() {
+            *o = weigh(below + j, x);
+        }
+        buf[above..n_t - below].fill(Complex::new(0.0, 0.0));
+        for (j, (o, x)) in buf[n_t - below..].iter_mut().zip(spec_neg).enumerate() {
+            *o = weigh(j, x);
         }
         row.ifft
             .process_with_scratch(buf, &mut ws.scratch[..row.ifft.get_inplace_scratch_len()]);
@@ -329,9 +367,9 @@ impl QPlan {
     /// tile with normalised energy ≥ `z_threshold` whose centre lies in
     /// `[keep.0, keep.1)` (GPS s) to `out`.
     ///
-    /// Each row is normalised by the median of its energies over the kept
-    /// part divided by ln 2 (the median of an exponential with mean one), so a
-    /// short transient hardly moves it and errors of the PSD estimate cancel.
+    /// Each row is normalised by its own robust scale over the kept part
+    /// (see [`QPlan::row_scale`]), so a short transient hardly moves it and
+    /// errors of the PSD estimate cancel.
     pub fn transform(
         &self,
         whitened: &[Complex<f32>],
@@ -342,23 +380,42 @@ impl QPlan {
         out: &mut Vec<Tile>,
     ) {
         assert_eq!(whitened.len(), self.n / 2 + 1, "whitened spectrum length");
+        // Chunks are flagged while the scale is measured if they hold a tile
+        // above SCREEN × the threshold in units of the row's expected mean.
+        const SCREEN: f64 = 0.5;
         for (p, plane) in self.planes.iter().enumerate() {
             for (r, row) in plane.rows.iter().enumerate() {
                 let (i_lo, i_hi, dt) = self.kept_range(row, t0_gps, keep);
-                let Some(scale) = self.normalised_row(p, r, whitened, (i_lo, i_hi), ws) else {
+                let screen = SCREEN * z_threshold * row.norm;
+                let Some(scale) = self.row_scale(p, r, whitened, (i_lo, i_hi), screen, ws) else {
                     continue;
                 };
                 // Compare |y|² against the threshold in raw units: no division in the loop.
-                let raw_thr = (z_threshold / scale) as f32;
-                for (i, y) in ws.buf[i_lo..i_hi].iter().enumerate() {
-                    let e = y.norm_sqr();
-                    if e >= raw_thr {
-                        out.push(Tile {
-                            t_gps: t0_gps + (i_lo + i) as f64 * dt,
-                            f_hz: row.f_hz,
-                            q: plane.q,
-                            energy: e as f64 * scale,
-                        });
+                let raw_thr = z_threshold / scale;
+                let n_chunks = (i_hi - i_lo).div_ceil(CHUNK);
+                // When the threshold lies above the screen, only flagged
+                // chunks can hold a significant tile (the usual case: the
+                // scale is within a factor 2 of the expected mean).
+                let all: Vec<u32>;
+                let chunks: &[u32] = if raw_thr >= screen {
+                    &ws.hot
+                } else {
+                    all = (0..n_chunks as u32).collect();
+                    &all
+                };
+                let raw_thr = raw_thr as f32;
+                for &c in chunks {
+                    let first = i_lo + c as usize * CHUNK;
+                    for (i, y) in ws.buf[first..(first + CHUNK).min(i_hi)].iter().enumerate() {
+                        let e = y.norm_sqr();
+                        if e >= raw_thr {
+                            out.push(Tile {
+                                t_gps: t0_gps + (first + i) as f64 * dt,
+                                f_hz: row.f_hz,
+                                q: plane.q,
+                                energy: e as f64 * scale,
+                            });
+                        }
                     }
                 }
             }
@@ -375,27 +432,67 @@ impl QPlan {
     }
 
     /// Transform row `r` of plane `p` into `ws.buf` and return the factor
-    /// that turns `|y|²` into normalised energy: ln 2 over the median of
-    /// `|y|²` in `kept` (sampled at about one value per independent tile).
-    /// None for a row with no power (e.g. removed by the high-pass).
-    fn normalised_row(
+    /// that turns `|y|²` into normalised energy, `1/μ̂`, with μ̂ the row's
+    /// robust scale over the tiles in `kept`. None for a row with no power
+    /// (e.g. removed by the high-pass).
+    ///
+    /// Gaussian noise makes `|y|²` exponential with mean μ, so the fraction
+    /// F of tiles below a level `g` is `1 − e^{−g/μ}` and `μ̂ = −g / ln(1 − F̂)`.
+    /// With `g = ln 2 ×` the row's expected mean this is the median
+    /// estimator (median / ln 2) evaluated by counting instead of selecting:
+    /// one pass, as robust to a loud transient (which moves F̂ by the
+    /// fraction of tiles it covers), and using every kept tile. When F̂ is
+    /// far from one half (the scale is off its expectation by more than a
+    /// factor of about 4) the median of the tiles is used instead.
+    ///
+    /// The same pass records in `ws.hot` the chunks of [`CHUNK`] kept tiles
+    /// holding a tile with `|y|² ≥ screen`.
+    fn row_scale(
         &self,
         p: usize,
         r: usize,
         whitened: &[Complex<f32>],
         kept: (usize, usize),
+        screen: f64,
         ws: &mut Workspace,
     ) -> Option<f64> {
         let row = &self.planes[p].rows[r];
         self.row_transform(row, whitened, ws);
         let (lo, hi) = kept;
+        ws.hot.clear();
         if hi <= lo {
             return None;
         }
-        // Tiles oversample the row by about n_t / window bins: take one value
-        // per independent tile, at most MEDIAN_SAMPLES of them.
+        let g = (std::f64::consts::LN_2 * row.norm) as f32;
+        let screen = screen as f32;
+        let mut below = 0usize;
+        for (c, chunk) in ws.buf[lo..hi].chunks(CHUNK).enumerate() {
+            let (mut n, mut hot) = (0u32, false);
+            for y in chunk {
+                let e = y.norm_sqr();
+                n += u32::from(e < g);
+                hot |= e >= screen;
+            }
+            below += n as usize;
+            if hot {
+                ws.hot.push(c as u32);
+            }
+        }
+        let f = below as f64 / (hi - lo) as f64;
+        let mu = if (0.05..=0.95).contains(&f) {
+            -f64::from(g) / (1.0 - f).ln()
+        } else {
+            self.median_scale(row, (lo, hi), ws) / std::f64::consts::LN_2
+        };
+        (mu > 0.0 && mu.is_finite()).then(|| 1.0 / mu)
+    }
+
+    /// Median of `|y|²` over the kept tiles of the row in `ws.buf`, sampled
+    /// at about one value per independent tile (at most 4096 of them).
+    fn median_scale(&self, row: &Row, kept: (usize, usize), ws: &mut Workspace) -> f64 {
         const MEDIAN_SAMPLES: usize = 4096;
-        let independent = ((hi - lo) * row.window.len() / row.n_t).max(1);
+        let (lo, hi) = kept;
+        let independent = ((hi - lo) * row.len / row.n_t).max(1);
         let stride = ((hi - lo) / independent.min(MEDIAN_SAMPLES)).max(1);
         // Energies are ≥ 0, so their IEEE bit patterns sort like the values:
         // selecting on u32 is cheaper than a float comparison.
@@ -408,8 +505,7 @@ impl QPlan {
         );
         let mid = ws.med.len() / 2;
         let (_, m, _) = ws.med.select_nth_unstable(mid);
-        let median = f32::from_bits(*m) as f64;
-        (median > 0.0 && median.is_finite()).then(|| std::f64::consts::LN_2 / median)
+        f64::from(f32::from_bits(*m))
     }
 
     /// Normalised energies of one row over the block (for maps and tests),
@@ -427,7 +523,7 @@ impl QPlan {
         let r = &self.planes[plane].rows[row];
         let (lo, hi, dt) = self.kept_range(r, t0_gps, keep);
         let scale = self
-            .normalised_row(plane, row, whitened, (lo, hi), ws)
+            .row_scale(plane, row, whitened, (lo, hi), f64::INFINITY, ws)
             .unwrap_or(0.0) as f32;
         let z = ws.buf[..r.n_t]
             .iter()
