@@ -22,8 +22,9 @@
 //!   `y_i = Σ_j W_j X̃_{c+j} e^{2πi j i / n_t}` (baseband, unnormalised inverse
 //!   FFT). Gaussian noise makes `|y_i|²` exponential with mean
 //!   `Σ_j W_j² g_j²` (`g` the high-pass gain); the normalised energy divides
-//!   by the row's median over the block's kept part times 1/ln 2, a robust
-//!   estimate of that mean, so Z is exponential with mean 1.
+//!   by a robust estimate of the row's actual mean over the block's kept part
+//!   (the median estimator, median / ln 2, evaluated by counting: see
+//!   [`QPlan::transform`]), so Z is exponential with mean 1.
 //!   Tile `i` of a row sits at `t0 + i T / n_t` (tile centre).
 //! - Row arithmetic is single precision; everything that feeds it is already
 //!   of order one.
@@ -368,7 +369,7 @@ impl QPlan {
     /// `[keep.0, keep.1)` (GPS s) to `out`.
     ///
     /// Each row is normalised by its own robust scale over the kept part
-    /// (see [`QPlan::row_scale`]), so a short transient hardly moves it and
+    /// (estimated as the private `row_scale` describes: the median estimator evaluated by counting), so a short transient hardly moves it and
     /// errors of the PSD estimate cancel.
     pub fn transform(
         &self,

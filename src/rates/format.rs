@@ -1,4 +1,4 @@
-//! Text renderings of a [`RateReport`](super::RateReport): `table` (for
+//! Text renderings of a [`RateReport`]: `table` (for
 //! people), `json` (the full record) and `csv` (one row per bin).
 
 use super::{RateReport, RateSeries};
