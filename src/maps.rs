@@ -2,10 +2,22 @@
 //! scans were made from: the [`EnergyMapSource`] behind fingerprints and
 //! spectrogram images.
 //!
-//! A map is computed exactly as the scan computes tiles (same conditioning,
-//! same bisquare rows, same median normalisation over a block's kept part),
-//! but at one Q and on a caller's frequency grid. Whitened blocks and their
-//! rows are cached, so many triggers in one block cost one whitening.
+//! A map uses the scan's conditioning (Welch median PSD of a block around
+//! the time, whitening, high-pass) and its bisquare rows, at one Q on a
+//! caller's frequency grid:
+//! 1. The block holding the time is whitened once and kept, as a time
+//!    series, in a cache: many triggers in one block cost one whitening.
+//!    The series has unit spectral level in band, so the FFT of `m` of its
+//!    samples under a taper `u` has `E|Y_k|² = Σ u²` per in-band bin.
+//! 2. Per map, a short window around the time (the longest span, plus three
+//!    tile durations at the lowest row and a taper each side, rounded up to
+//!    a power of two) is tapered, FFT'd, scaled to unit power per bin, and
+//!    each row is transformed over the window only.
+//! 3. Z is `|y|²` over the row's expected mean `Σ W² g²` (exact for the
+//!    whitened data up to the PSD estimate's error). The scan instead
+//!    estimates each row's scale over a whole block; a map's window is too
+//!    short to do so without the transient itself biasing it.
+//!
 //! Rows that do not fit the channel (above its usable band) are returned as
 //! zero energy.
 
@@ -13,18 +25,23 @@ use crate::families::EnergyMapSource;
 use crate::io::Bundle;
 use crate::scan::{Conditioner, NpyChannel, ResolvedParams, SampleSource};
 use crate::segments::SegmentList;
-use crate::tf::{mismatch_step, QPlan};
+use crate::tf::{mismatch_step, sigma_t, QPlan};
 use anyhow::{anyhow, bail, Context, Result};
+use realfft::{ComplexToReal, RealFftPlanner, RealToComplex};
 use rusqlite::{Connection, OptionalExtension};
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex, OnceLock};
 
-/// Extra padding beyond the scan's, so the longest map span (4 s) fits
+/// Extra padding beyond the scan's, so the longest map window (16 s) fits
 /// inside a block's kept part \[s\].
-const MAP_MARGIN_S: f64 = 2.0;
+const MAP_MARGIN_S: f64 = 8.0;
+/// Raised-cosine taper at each end of a map window \[s\].
+const TAPER_S: f64 = 0.5;
 /// Whitened blocks kept in memory.
 const CACHE_BLOCKS: usize = 48;
+/// Planned windows (one per channel, Q and window length) kept in memory.
+const CACHE_PLANS: usize = 64;
 
 /// One channel's data and scan parameters.
 struct ChannelData {
@@ -33,19 +50,34 @@ struct ChannelData {
     valid: OnceLock<SegmentList>,
 }
 
-/// Rows of one block at one Q: `(Z_i, dt)` per requested frequency (None
-/// where the row does not fit), tile `i` at `t0 + i dt`.
-struct BlockRows {
-    t0: f64,
-    rows: Vec<Option<(Vec<f32>, f64)>>,
+/// A whitened block as a time series with unit spectral level in band.
+struct WhiteBlock {
+    /// First sample (index in the channel).
+    i0: usize,
+    x: Vec<f32>,
 }
 
-type CacheKey = (String, usize, usize, u64);
+/// The plans of a map window: taper, forward FFT and the rows at one Q.
+struct WindowPlan {
+    taper: Vec<f32>,
+    /// `1 / sqrt(Σ u²)`: scales the window's FFT to unit power per bin.
+    unit: f32,
+    fft: Arc<dyn RealToComplex<f32>>,
+    rows: QPlan,
+}
+
+type BlockKey = (String, usize, usize);
+/// A block conditioner and the inverse FFT back to a time series.
+type BlockPlan = (Conditioner, Arc<dyn ComplexToReal<f32>>);
+type PlanKey = (String, u64, usize);
 
 /// Energy maps from the bundles recorded in a catalogue's scans.
 pub struct BundleMaps {
     channels: HashMap<String, ChannelData>,
-    cache: Mutex<HashMap<CacheKey, Arc<BlockRows>>>,
+    blocks: Mutex<HashMap<BlockKey, Arc<WhiteBlock>>>,
+    /// Block conditioners and inverse FFTs per block length.
+    conditioners: Mutex<HashMap<(String, usize), Arc<BlockPlan>>>,
+    plans: Mutex<HashMap<PlanKey, Arc<WindowPlan>>>,
 }
 
 impl BundleMaps {
@@ -94,7 +126,9 @@ impl BundleMaps {
         }
         Ok(BundleMaps {
             channels,
-            cache: Mutex::new(HashMap::new()),
+            blocks: Mutex::new(HashMap::new()),
+            conditioners: Mutex::new(HashMap::new()),
+            plans: Mutex::new(HashMap::new()),
         })
     }
 
@@ -105,14 +139,13 @@ impl BundleMaps {
         v
     }
 
-    fn block_rows(
+    /// The whitened block whose kept part holds GPS `t_center` (cached).
+    fn white_block(
         &self,
         channel: &str,
         cd: &ChannelData,
         t_center: f64,
-        q: f64,
-        freqs: &[f64],
-    ) -> Result<Arc<BlockRows>> {
+    ) -> Result<Arc<WhiteBlock>> {
         let src = &cd.src;
         let fs = src.rate_hz();
         let t0 = src.start_gps();
@@ -135,7 +168,7 @@ impl BundleMaps {
             n = b - a;
         }
         let welch_n = (p.welch_s * fs).round() as usize;
-        if n < 2 * pad + welch_n {
+        if n < 2 * welch_n || n <= 2 * pad {
             bail!("{channel}: the valid stretch around GPS {t_center} is too short for a map");
         }
         // Blocks on a grid from the stretch start stepping by the kept length.
@@ -143,44 +176,100 @@ impl BundleMaps {
         let ic = ((t_center - t0) * fs) as usize;
         let k = ic.saturating_sub(a + pad) / step;
         let i0 = (a + k * step).min(b - n);
-        let key = (
-            channel.to_string(),
-            i0,
-            n,
-            q.to_bits() ^ (freqs.len() as u64).rotate_left(32),
-        );
-        if let Some(hit) = self.cache.lock().expect("cache lock").get(&key) {
+        let key = (channel.to_string(), i0, n);
+        if let Some(hit) = self.blocks.lock().expect("cache lock").get(&key) {
             return Ok(hit.clone());
         }
-        let hp = (0.5 * p.fmin, 0.9 * p.fmin);
-        let cond = Conditioner::new(n, fs, pad, welch_n, hp)?;
-        let whitened = cond.whiten_block(src, i0)?;
-        let plan = QPlan::single_plane(
-            fs,
-            n,
-            q,
-            freqs,
-            mismatch_step(p.mismatch),
-            hp,
-            &mut rustfft::FftPlanner::new(),
-        );
-        let mut ws = plan.workspace();
-        let tb0 = t0 + i0 as f64 / fs;
-        let keep = (tb0 + pad as f64 / fs, tb0 + (n - pad) as f64 / fs);
-        let plane_rows = &plan.planes[0].rows;
-        let mut rows: Vec<Option<(Vec<f32>, f64)>> = vec![None; freqs.len()];
-        for (r, row) in plane_rows.iter().enumerate() {
-            if let Some(j) = freqs.iter().position(|&f| f == row.f_hz) {
-                rows[j] = Some(plan.row_energies(0, r, &whitened, tb0, keep, &mut ws));
+        let cond = {
+            let mut c = self.conditioners.lock().expect("cache lock");
+            match c.get(&(channel.to_string(), n)) {
+                Some(hit) => hit.clone(),
+                None => {
+                    let hp = (0.5 * p.fmin, 0.9 * p.fmin);
+                    let made = Arc::new((
+                        // Taper the scan's padding (the conditioner tapers half its `pad`).
+                        Conditioner::new(
+                            n,
+                            fs,
+                            (2.0 * p.pad_s * fs).round() as usize,
+                            welch_n,
+                            hp,
+                        )?,
+                        RealFftPlanner::<f32>::new().plan_fft_inverse(n),
+                    ));
+                    c.insert((channel.to_string(), n), made.clone());
+                    made
+                }
             }
+        };
+        let (conditioner, inverse) = (&cond.0, &cond.1);
+        let mut spec = conditioner.whiten_block(src, i0)?;
+        // A real series has real DC and Nyquist bins.
+        spec[0].im = 0.0;
+        if let Some(last) = spec.last_mut() {
+            last.im = 0.0;
         }
-        let out = Arc::new(BlockRows { t0: tb0, rows });
-        let mut cache = self.cache.lock().expect("cache lock");
+        let mut x = inverse.make_output_vec();
+        inverse
+            .process(&mut spec, &mut x)
+            .map_err(|e| anyhow!("{channel}: inverse FFT: {e}"))?;
+        // Unnormalised inverse of unit-power bins: spectral level n; scale to 1.
+        let scale = 1.0 / (n as f32).sqrt();
+        x.iter_mut().for_each(|v| *v *= scale);
+        let out = Arc::new(WhiteBlock { i0, x });
+        let mut cache = self.blocks.lock().expect("cache lock");
         if cache.len() >= CACHE_BLOCKS {
             cache.clear();
         }
         cache.insert(key, out.clone());
         Ok(out)
+    }
+
+    /// The taper, FFT and rows for windows of `m` samples at quality `q` on
+    /// `freqs` (cached per channel, Q and length).
+    fn window_plan(
+        &self,
+        channel: &str,
+        cd: &ChannelData,
+        q: f64,
+        m: usize,
+        freqs: &[f64],
+    ) -> Arc<WindowPlan> {
+        let key = (
+            channel.to_string(),
+            q.to_bits() ^ (freqs.len() as u64).rotate_left(32),
+            m,
+        );
+        if let Some(hit) = self.plans.lock().expect("cache lock").get(&key) {
+            return hit.clone();
+        }
+        let fs = cd.src.rate_hz();
+        let p = &cd.params;
+        let taper: Vec<f32> = crate::condition::tukey(m, (TAPER_S * fs).round() as usize)
+            .into_iter()
+            .map(|v| v as f32)
+            .collect();
+        let unit = 1.0 / taper.iter().map(|u| u * u).sum::<f32>().sqrt();
+        let plan = Arc::new(WindowPlan {
+            taper,
+            unit,
+            fft: RealFftPlanner::<f32>::new().plan_fft_forward(m),
+            rows: QPlan::single_plane(
+                fs,
+                m,
+                q,
+                freqs,
+                mismatch_step(p.mismatch),
+                (0.5 * p.fmin, 0.9 * p.fmin),
+                &mut rustfft::FftPlanner::new(),
+            ),
+        });
+        let mut cache = self.plans.lock().expect("cache lock");
+        if cache.len() >= CACHE_PLANS {
+            cache.clear();
+        }
+        cache.insert(key, plan.clone());
+        plan
     }
 }
 
@@ -194,34 +283,96 @@ impl EnergyMapSource for BundleMaps {
         freqs_hz: &[f64],
         n_times: usize,
     ) -> Result<Vec<f32>> {
+        let mut maps = self.energy_maps(channel, t_center_gps, &[span_s], q, freqs_hz, n_times)?;
+        Ok(maps.pop().expect("one span"))
+    }
+
+    fn energy_maps(
+        &self,
+        channel: &str,
+        t_center_gps: f64,
+        spans_s: &[f64],
+        q: f64,
+        freqs_hz: &[f64],
+        n_times: usize,
+    ) -> Result<Vec<Vec<f32>>> {
         let cd = self.channels.get(channel).ok_or_else(|| {
             anyhow!("no scanned data for channel {channel} (imported triggers have no data)")
         })?;
         // Q below 2 loses its meaning as a tile shape (common practice).
         let q = q.clamp(2.0, 128.0);
-        let block = self.block_rows(channel, cd, t_center_gps, q, freqs_hz)?;
-        let mut out = vec![0.0f32; n_times * freqs_hz.len()];
-        let w = span_s / n_times as f64;
-        let start = t_center_gps - 0.5 * span_s;
-        for (j, row) in block.rows.iter().enumerate() {
-            let Some((z, dt)) = row else { continue };
-            for b in 0..n_times {
-                let (lo, hi) = (start + b as f64 * w, start + (b + 1) as f64 * w);
-                let i_lo = ((lo - block.t0) / dt).ceil().max(0.0) as usize;
-                let i_hi = (((hi - block.t0) / dt).ceil().max(0.0) as usize).min(z.len());
-                // Max over the tiles centred in the bin; the nearest tile when
-                // the bin is narrower than the tile spacing.
-                let v = if i_hi > i_lo {
-                    z[i_lo..i_hi].iter().copied().fold(0.0f32, f32::max)
-                } else {
-                    let i = (((lo + hi) * 0.5 - block.t0) / dt).round().max(0.0) as usize;
-                    z.get(i).copied().unwrap_or(0.0)
-                };
-                out[b * freqs_hz.len() + j] = v;
+        let fs = cd.src.rate_hz();
+        let block = self.white_block(channel, cd, t_center_gps)?;
+        // Window: the longest span, three tile durations at the lowest row
+        // analysed, and the taper, each side; a power of two of samples.
+        let f_low = freqs_hz
+            .iter()
+            .copied()
+            .fold(f64::INFINITY, f64::min)
+            .max(cd.params.fmin);
+        let span_max = spans_s.iter().copied().fold(0.0, f64::max);
+        let half_s = 0.5 * span_max + 3.0 * sigma_t(q, f_low) + TAPER_S;
+        let m = (((2.0 * half_s * fs).ceil() as usize).next_power_of_two()).min(block.x.len());
+        let plan = self.window_plan(channel, cd, q, m, freqs_hz);
+        let t0 = cd.src.start_gps();
+        let ic = ((t_center_gps - t0) * fs).round() as usize;
+        let w0 = ic
+            .saturating_sub(m / 2)
+            .clamp(block.i0, block.i0 + block.x.len() - m);
+        let xs = &block.x[w0 - block.i0..w0 - block.i0 + m];
+        let mut input: Vec<f32> = xs.iter().zip(&plan.taper).map(|(x, u)| x * u).collect();
+        let mut spec = plan.fft.make_output_vec();
+        plan.fft
+            .process(&mut input, &mut spec)
+            .map_err(|e| anyhow!("{channel}: FFT: {e}"))?;
+        spec.iter_mut().for_each(|c| *c *= plan.unit);
+        let tw0 = t0 + w0 as f64 / fs;
+        let mut ws = plan.rows.workspace();
+        let plane_rows = &plan.rows.planes[0].rows;
+        let mut rows: Vec<Option<(Vec<f32>, f64)>> = vec![None; freqs_hz.len()];
+        for (r, row) in plane_rows.iter().enumerate() {
+            if let Some(j) = freqs_hz.iter().position(|&f| f == row.f_hz) {
+                rows[j] = Some(plan.rows.row_energies_expected(0, r, &spec, &mut ws));
             }
         }
-        Ok(out)
+        Ok(spans_s
+            .iter()
+            .map(|&span| bin_rows(&rows, tw0, t_center_gps, span, n_times))
+            .collect())
     }
+}
+
+/// Bin row energies `(Z_i, dt)` (tile i at `t0 + i dt`) into `n_times`
+/// equal time bins of `span` centred on `t_center`, row-major
+/// `[time][freq]`: the max over the tiles centred in a bin, or the nearest
+/// tile when the bin is narrower than the tile spacing.
+fn bin_rows(
+    rows: &[Option<(Vec<f32>, f64)>],
+    t0: f64,
+    t_center: f64,
+    span: f64,
+    n_times: usize,
+) -> Vec<f32> {
+    let n_freqs = rows.len();
+    let mut out = vec![0.0f32; n_times * n_freqs];
+    let w = span / n_times as f64;
+    let start = t_center - 0.5 * span;
+    for (j, row) in rows.iter().enumerate() {
+        let Some((z, dt)) = row else { continue };
+        for b in 0..n_times {
+            let (lo, hi) = (start + b as f64 * w, start + (b + 1) as f64 * w);
+            let i_lo = ((lo - t0) / dt).ceil().max(0.0) as usize;
+            let i_hi = (((hi - t0) / dt).ceil().max(0.0) as usize).min(z.len());
+            let v = if i_hi > i_lo {
+                z[i_lo..i_hi].iter().copied().fold(0.0f32, f32::max)
+            } else {
+                let i = (((lo + hi) * 0.5 - t0) / dt).round().max(0.0) as usize;
+                z.get(i).copied().unwrap_or(0.0)
+            };
+            out[b * n_freqs + j] = v;
+        }
+    }
+    out
 }
 
 /// The bundle directory a channel's latest scan read (absolute when the

@@ -533,6 +533,30 @@ impl QPlan {
         (z, dt)
     }
 
+    /// Energies of one row over the whole of a spectrum whitened to unit
+    /// power per bin (see [`crate::condition::whiten`]), normalised by the
+    /// row's expected mean `Σ W² g²` rather than measured: `(Z_i, dt)` with
+    /// tile `i` at `i dt` from the start of the data. For short stretches
+    /// (energy maps), where a measured scale would be biased by the
+    /// transient itself.
+    pub fn row_energies_expected(
+        &self,
+        plane: usize,
+        row: usize,
+        whitened: &[Complex<f32>],
+        ws: &mut Workspace,
+    ) -> (Vec<f32>, f64) {
+        let r = &self.planes[plane].rows[row];
+        self.row_transform(r, whitened, ws);
+        let scale = (1.0 / r.norm) as f32;
+        let dt = self.n as f64 / self.fs_hz / r.n_t as f64;
+        let z = ws.buf[..r.n_t]
+            .iter()
+            .map(|y| y.norm_sqr() * scale)
+            .collect();
+        (z, dt)
+    }
+
     /// Run only the inverse FFTs of every row (the plan's FFT-only cost, for
     /// benchmarks).
     pub fn ffts_only(&self, ws: &mut Workspace) {

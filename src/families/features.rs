@@ -8,7 +8,7 @@ use anyhow::{bail, Result};
 
 /// Bump when the fingerprint definition changes; stored features of another
 /// version are recomputed.
-pub const FEATURE_VERSION: i64 = 1;
+pub const FEATURE_VERSION: i64 = 2;
 /// Time spans of the maps, centred on the trigger peak \[s\].
 pub const SPANS_S: [f64; 4] = [0.5, 1.0, 2.0, 4.0];
 /// Frequencies per map (log-spaced, [`F_MIN_HZ`] to [`F_MAX_HZ`]).
@@ -53,6 +53,23 @@ pub trait EnergyMapSource: Sync {
         freqs_hz: &[f64],
         n_times: usize,
     ) -> Result<Vec<f32>>;
+
+    /// Maps at several spans around one time (same Q, grid and bins);
+    /// sources that share work between spans override this.
+    fn energy_maps(
+        &self,
+        channel: &str,
+        t_center_gps: f64,
+        spans_s: &[f64],
+        q: f64,
+        freqs_hz: &[f64],
+        n_times: usize,
+    ) -> Result<Vec<Vec<f32>>> {
+        spans_s
+            .iter()
+            .map(|&span| self.energy_map(channel, t_center_gps, span, q, freqs_hz, n_times))
+            .collect()
+    }
 }
 
 /// The fixed log-frequency grid of the maps \[Hz\].
@@ -102,8 +119,7 @@ pub fn fingerprint(
         8.0
     };
     let mut maps = Vec::with_capacity(SPANS_S.len() * MAP_LEN);
-    for &span in &SPANS_S {
-        let m = src.energy_map(channel, trigger.t_peak, span, q, &freqs, N_TIMES)?;
+    for m in src.energy_maps(channel, trigger.t_peak, &SPANS_S, q, &freqs, N_TIMES)? {
         if m.len() != MAP_LEN {
             bail!(
                 "energy map for {channel} at GPS {:.3}: {} values, expected {MAP_LEN}",
