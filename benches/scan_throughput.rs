@@ -89,7 +89,9 @@ fn main() {
     // Conditioning alone (read, Welch PSD, taper, FFT, whitening) for the same blocks.
     let pad = (rp.pad_s * fs) as usize;
     let welch_n = (rp.welch_s * fs) as usize;
-    let cond = Conditioner::new(block_n, fs, pad, welch_n, (8.0, 14.4)).unwrap();
+    let cond = Conditioner::new(block_n, fs, pad, welch_n, (8.0, 14.4))
+        .unwrap()
+        .with_top(plan.top_hz());
     let mut bufs = cond.buffers();
     let cond_s = best_of_3(|| {
         let mut i0 = 0;

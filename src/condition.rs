@@ -139,6 +139,22 @@ impl Welch {
     /// # Errors
     /// Fewer samples than one segment.
     pub fn estimate_with(&self, x: &[f64], fs_hz: f64, b: &mut WelchBuffers) -> Result<f64> {
+        self.estimate_band(x, fs_hz, f64::INFINITY, b)
+    }
+
+    /// As [`Welch::estimate_with`], but only bins up to `f_top_hz` (plus
+    /// one, for interpolation) are estimated; the density above is 0. A
+    /// scan that never looks above `f_top_hz` skips the rest of the medians.
+    ///
+    /// # Errors
+    /// Fewer samples than one segment.
+    pub fn estimate_band(
+        &self,
+        x: &[f64],
+        fs_hz: f64,
+        f_top_hz: f64,
+        b: &mut WelchBuffers,
+    ) -> Result<f64> {
         let nperseg = self.nperseg;
         if x.len() < nperseg {
             bail!(
@@ -149,11 +165,18 @@ impl Welch {
         let step = nperseg - self.noverlap;
         let nseg = (x.len() - nperseg) / step + 1;
         let nfreq = nperseg / 2 + 1;
-        // per_seg[s * nfreq + k]: periodogram of segment s at bin k, stored
+        let df = fs_hz / nperseg as f64;
+        // Bins 0..width are estimated.
+        let width = if f_top_hz.is_finite() {
+            ((f_top_hz / df).ceil() as usize + 2).min(nfreq)
+        } else {
+            nfreq
+        };
+        // per_seg[s * width + k]: periodogram of segment s at bin k, stored
         // as IEEE bits: values are ≥ 0, so the bits order like the values
         // (and like f64::total_cmp), and integer selection is cheaper.
-        b.per_seg.resize(nfreq * nseg, 0);
-        for (s, row) in b.per_seg.chunks_exact_mut(nfreq).enumerate() {
+        b.per_seg.resize(width * nseg, 0);
+        for (s, row) in b.per_seg.chunks_exact_mut(width).enumerate() {
             let seg = &x[s * step..s * step + nperseg];
             let mean = sum(seg) / nperseg as f64;
             for ((o, &v), &w) in b.input.iter_mut().zip(seg).zip(&self.win) {
@@ -170,10 +193,10 @@ impl Welch {
         let bias = median_bias(nseg);
         b.density.clear();
         b.column.resize(nseg, 0);
-        for k in 0..nfreq {
+        for k in 0..width {
             // Gathering a column touches nseg cache lines that the next
             // bins reuse, so it stays in L1.
-            for (o, row) in b.column.iter_mut().zip(b.per_seg.chunks_exact(nfreq)) {
+            for (o, row) in b.column.iter_mut().zip(b.per_seg.chunks_exact(width)) {
                 *o = row[k];
             }
             let one_sided = if k == 0 || (nperseg.is_multiple_of(2) && k == nfreq - 1) {
@@ -184,7 +207,8 @@ impl Welch {
             b.density
                 .push(median_of_bits(&mut b.column) * scale * one_sided / bias);
         }
-        Ok(fs_hz / nperseg as f64)
+        b.density.resize(nfreq, 0.0);
+        Ok(df)
     }
 }
 

@@ -384,9 +384,11 @@ pub fn scan_source(
     let mut plans: HashMap<usize, (QPlan, Conditioner)> = HashMap::new();
     for b in &blocks {
         if let std::collections::hash_map::Entry::Vacant(e) = plans.entry(b.n) {
+            let plan = QPlan::new(fs, b.n, &tiling, highpass, &mut planner)?;
+            let top = plan.top_hz();
             e.insert((
-                QPlan::new(fs, b.n, &tiling, highpass, &mut planner)?,
-                Conditioner::new(b.n, fs, pad, welch_n, highpass)?,
+                plan,
+                Conditioner::new(b.n, fs, pad, welch_n, highpass)?.with_top(top),
             ));
         }
     }
@@ -438,6 +440,8 @@ pub struct Conditioner {
     fft: Arc<dyn realfft::RealToComplex<f64>>,
     /// High-pass gain of each block bin.
     hp_gain: Vec<f64>,
+    /// Highest frequency whitened \[Hz\] (bins above are left at 0).
+    f_top_hz: f64,
 }
 
 /// Per-worker buffers of a [`Conditioner`]: nothing is allocated per block.
@@ -477,7 +481,16 @@ impl Conditioner {
             hp_gain: (0..n / 2 + 1)
                 .map(|k| highpass_gain(k as f64 * df, highpass.0, highpass.1))
                 .collect(),
+            f_top_hz: f64::INFINITY,
         })
+    }
+
+    /// Whiten only up to `f_top_hz` (the highest frequency any row of the
+    /// plan reads): the PSD medians and whitening above are skipped and
+    /// those bins left at 0.
+    pub fn with_top(mut self, f_top_hz: f64) -> Conditioner {
+        self.f_top_hz = f_top_hz;
+        self
     }
 
     /// Buffers for one worker.
@@ -516,7 +529,9 @@ impl Conditioner {
     ) -> Result<()> {
         let (n, fs) = (self.n, src.rate_hz());
         src.read(i0, &mut b.x)?;
-        let df_psd = self.welch.estimate_with(&b.x, fs, &mut b.welch)?;
+        let df_psd = self
+            .welch
+            .estimate_band(&b.x, fs, self.f_top_hz, &mut b.welch)?;
         let mean = crate::condition::sum(&b.x) / n as f64;
         for (v, w) in b.x.iter_mut().zip(&self.taper) {
             *v = (*v - mean) * w;
@@ -528,16 +543,23 @@ impl Conditioner {
             df_hz: df_psd,
             density: std::mem::take(&mut b.welch.density),
         };
+        // Bins above the top are not read by the plan: leave them at 0.
+        let top = if self.f_top_hz.is_finite() {
+            ((self.f_top_hz * n as f64 / fs).ceil() as usize + 1).min(n / 2 + 1)
+        } else {
+            n / 2 + 1
+        };
         whiten(
-            &b.spec,
+            &b.spec[..top],
             n,
             fs,
             self.taper_ms,
             &psd,
-            &self.hp_gain,
+            &self.hp_gain[..top],
             &mut b.inv_amp,
-            &mut b.whitened,
+            &mut b.whitened[..top],
         );
+        b.whitened[top..].fill(Complex::new(0.0, 0.0));
         b.welch.density = psd.density;
         Ok(())
     }

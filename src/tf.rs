@@ -318,6 +318,16 @@ impl QPlan {
         }
     }
 
+    /// Highest frequency any row's window reads \[Hz\].
+    pub fn top_hz(&self) -> f64 {
+        let t_block = self.n as f64 / self.fs_hz;
+        self.planes
+            .iter()
+            .flat_map(|p| &p.rows)
+            .map(|r| (r.bin_lo + r.len - 1) as f64 / t_block)
+            .fold(0.0, f64::max)
+    }
+
     /// Buffers for one worker.
     pub fn workspace(&self) -> Workspace {
         Workspace {
