@@ -1,11 +1,10 @@
 //! Scale-out commands: `plan` (and `plan status`), `run-plan`, `merge`,
 //! `scan --shard K --plan DIR`, and two hidden helpers for the end-to-end
 //! check (`demo-data`, `compare-catalogues`).
-use super::scan::ScanArgs;
+use super::scan::ScanFlags;
 use super::{warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::plan::{self, PlanOptions, ShardState, SlurmOptions};
-use glitchbook::scan::ScanParams;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 use std::time::Instant;
@@ -43,7 +42,7 @@ pub struct PlanArgs {
     pub segments: Option<PathBuf>,
     /// Scan parameters (as in `scan`).
     #[command(flatten)]
-    pub scan: PlanScanFlags,
+    pub scan: ScanFlags,
     /// Slurm partition [default: the cluster's default].
     #[arg(long, value_name = "P")]
     pub partition: Option<String>,
@@ -62,54 +61,6 @@ pub struct PlanArgs {
     /// glitchbook executable the batch script runs [default: this one].
     #[arg(long, value_name = "PATH")]
     pub exe: Option<PathBuf>,
-}
-
-/// The scan parameter flags of `scan`, repeated for `plan` (same names,
-/// defaults and checks: they are validated through [`ScanArgs::validate`]).
-#[derive(Debug, Clone, clap::Args)]
-pub struct PlanScanFlags {
-    /// SNR threshold of a significant tile.
-    #[arg(long, value_name = "X", default_value_t = 5.5)]
-    pub snr_threshold: f64,
-    /// Lowest analysed frequency [Hz] [default: per channel].
-    #[arg(long, value_name = "F")]
-    pub fmin: Option<f64>,
-    /// Highest analysed frequency [Hz] [default: per channel].
-    #[arg(long, value_name = "F")]
-    pub fmax: Option<f64>,
-    /// Smallest Q (at least 2).
-    #[arg(long, value_name = "Q", default_value_t = 4.0)]
-    pub qmin: f64,
-    /// Largest Q.
-    #[arg(long, value_name = "Q", default_value_t = 64.0)]
-    pub qmax: f64,
-    /// Maximum fractional energy mismatch between neighbouring tiles.
-    #[arg(long, value_name = "M", default_value_t = 0.2)]
-    pub mismatch: f64,
-    /// Block length [s] [default: derived from the padding, at least 32 s].
-    #[arg(long, value_name = "S")]
-    pub block_s: Option<f64>,
-}
-
-impl PlanScanFlags {
-    /// Check through `scan`'s own validation.
-    pub fn validate(&self) -> Result<ScanParams> {
-        ScanArgs {
-            bundle: None,
-            channels: Vec::new(),
-            segments: None,
-            snr_threshold: self.snr_threshold,
-            fmin: self.fmin,
-            fmax: self.fmax,
-            qmin: self.qmin,
-            qmax: self.qmax,
-            mismatch: self.mismatch,
-            block_s: self.block_s,
-            shard: None,
-            plan: None,
-        }
-        .validate()
-    }
 }
 
 /// Subcommands of `plan`.

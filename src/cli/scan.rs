@@ -22,6 +22,22 @@ pub struct ScanArgs {
     /// Analysis segments file (`start end` lines, GPS s) [default: all valid data].
     #[arg(long, value_name = "FILE")]
     pub segments: Option<PathBuf>,
+    /// Scan parameters.
+    #[command(flatten)]
+    pub params: ScanFlags,
+    /// Scan shard K of the plan in --plan DIR into DIR/shards/shard-K.db
+    /// (everything else comes from the plan).
+    #[arg(long, value_name = "K", requires = "plan", conflicts_with_all = ["bundle", "channels", "segments", "snr_threshold", "fmin", "fmax", "qmin", "qmax", "mismatch", "block_s"])]
+    pub shard: Option<usize>,
+    /// Work directory written by `plan` (with --shard).
+    #[arg(long, value_name = "DIR", requires = "shard")]
+    pub plan: Option<PathBuf>,
+}
+
+/// The scan parameter flags, shared by `scan` and `plan` (same names,
+/// defaults and checks).
+#[derive(Debug, Clone, clap::Args)]
+pub struct ScanFlags {
     /// SNR threshold of a significant tile.
     #[arg(long, value_name = "X", default_value_t = 5.5)]
     pub snr_threshold: f64,
@@ -43,16 +59,9 @@ pub struct ScanArgs {
     /// Block length [s] [default: derived from the padding, at least 32 s].
     #[arg(long, value_name = "S")]
     pub block_s: Option<f64>,
-    /// Scan shard K of the plan in --plan DIR into DIR/shards/shard-K.db
-    /// (everything else comes from the plan).
-    #[arg(long, value_name = "K", requires = "plan", conflicts_with_all = ["bundle", "channels", "segments", "snr_threshold", "fmin", "fmax", "qmin", "qmax", "mismatch", "block_s"])]
-    pub shard: Option<usize>,
-    /// Work directory written by `plan` (with --shard).
-    #[arg(long, value_name = "DIR", requires = "shard")]
-    pub plan: Option<PathBuf>,
 }
 
-impl ScanArgs {
+impl ScanFlags {
     /// Check the flags (no I/O) and build the scan parameters.
     pub fn validate(&self) -> Result<ScanParams> {
         let pos = |name: &str, x: f64| -> Result<f64> {
@@ -99,6 +108,13 @@ impl ScanArgs {
                 .map(|b| pos("block-s", b))
                 .transpose()?,
         })
+    }
+}
+
+impl ScanArgs {
+    /// Check the flags (no I/O) and build the scan parameters.
+    pub fn validate(&self) -> Result<ScanParams> {
+        self.params.validate()
     }
 }
 
