@@ -6,7 +6,7 @@ use super::{finite, Global};
 use anyhow::Result;
 use glitchbook::catalogue;
 use glitchbook::output::Format;
-use glitchbook::rates::format::{self, render};
+use glitchbook::rates::format::render;
 use glitchbook::rates::{rates, RateParams};
 use std::process::ExitCode;
 
@@ -67,21 +67,12 @@ impl RatesArgs {
     }
 }
 
-/// The rates library's own format type for a CLI format.
-fn rates_format(f: Format) -> format::Format {
-    match f {
-        Format::Table => format::Format::Table,
-        Format::Json => format::Format::Json,
-        Format::Csv => format::Format::Csv,
-    }
-}
-
 /// Run the command.
 pub fn run(g: &Global, args: RatesArgs) -> Result<ExitCode> {
     let p = args.validate()?;
     let conn = catalogue::open_existing(&g.db)?;
     let report = rates(&conn, &p)?;
-    let text = render(&report, rates_format(args.format))?;
+    let text = render(&report, args.format)?;
     print_listing(args.format, text.as_bytes())?;
     Ok(ExitCode::SUCCESS)
 }

@@ -1,6 +1,6 @@
 //! `glitchbook vetoes`: hierarchical veto rounds with a safety check against
 //! injections; proposals for the instrument team, never applied here.
-use super::witnesses::{coupling_format, print_listing, GridArgs};
+use super::witnesses::{print_listing, GridArgs};
 use super::{warn, Global};
 use anyhow::{bail, Context, Result};
 use glitchbook::catalogue;
@@ -180,7 +180,7 @@ pub fn run(g: &Global, args: VetoesArgs) -> Result<ExitCode> {
     let mut buf = Vec::new();
     match args.format {
         Format::Csv => write_rows(&mut buf, Format::Csv, &csv_rows(&report))?,
-        f => write_vetoes(&report, coupling_format(f), &mut buf)?,
+        f => write_vetoes(&report, f, &mut buf)?,
     }
     print_listing(args.format, &buf)?;
     if args.format == Format::Csv {

@@ -4,7 +4,7 @@
 use super::{finite, warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
-use glitchbook::coupling::{self, run_witnesses, write_witnesses, Grid, WitnessParams};
+use glitchbook::coupling::{run_witnesses, write_witnesses, Grid, WitnessParams};
 use glitchbook::output::{escape_control, Format};
 use std::io::Write;
 use std::process::ExitCode;
@@ -55,15 +55,6 @@ fn sorted_unique(v: &[f64]) -> Vec<f64> {
     v.sort_by(f64::total_cmp);
     v.dedup();
     v
-}
-
-/// The coupling library's own format type for a CLI format.
-pub fn coupling_format(f: Format) -> coupling::Format {
-    match f {
-        Format::Table => coupling::Format::Table,
-        Format::Json => coupling::Format::Json,
-        Format::Csv => coupling::Format::Csv,
-    }
 }
 
 /// Write `text` to stdout; in table format each line goes through
@@ -137,12 +128,7 @@ pub fn run(g: &Global, args: WitnessesArgs) -> Result<ExitCode> {
         warn(w);
     }
     let mut buf = Vec::new();
-    write_witnesses(
-        &report,
-        coupling_format(args.format),
-        args.all_rows,
-        &mut buf,
-    )?;
+    write_witnesses(&report, args.format, args.all_rows, &mut buf)?;
     print_listing(args.format, &buf)?;
     g.info(&format!(
         "witness run {} stored ({} grid rows)",

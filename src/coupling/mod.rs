@@ -299,8 +299,6 @@ mod tests {
             ..veto::VetoParams::default()
         };
         assert!(p.check().unwrap_err().to_string().starts_with("safety_p"));
-        let e = "yaml".parse::<output::Format>().unwrap_err().to_string();
-        assert!(e.contains("--format"), "{e}");
     }
 
     // Touching windows merge (counted once), nested analysed segments clip:

@@ -5,32 +5,11 @@
 use super::db::WitnessReport;
 use super::veto::{VetoReport, VetoRound};
 use super::{WitnessStat, VETO_CAUTION};
-use anyhow::{bail, Context, Result};
+use anyhow::{Context, Result};
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
-/// Output format of listing commands.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Format {
-    /// Aligned text table.
-    Table,
-    /// JSON document.
-    Json,
-    /// CSV with a header row.
-    Csv,
-}
-
-impl std::str::FromStr for Format {
-    type Err = anyhow::Error;
-    fn from_str(s: &str) -> Result<Self> {
-        match s {
-            "table" => Ok(Format::Table),
-            "json" => Ok(Format::Json),
-            "csv" => Ok(Format::Csv),
-            other => bail!("--format: unknown format '{other}' (use table, json or csv)"),
-        }
-    }
-}
+pub use crate::output::Format;
 
 fn set_name(f: Option<i64>) -> String {
     f.map_or_else(|| "all".to_string(), |f| format!("family {f}"))

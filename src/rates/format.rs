@@ -5,28 +5,7 @@ use super::{RateReport, RateSeries};
 use anyhow::Result;
 use std::fmt::Write;
 
-/// Output formats of listing commands.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Format {
-    /// Aligned text for a terminal.
-    Table,
-    /// Pretty JSON of the whole report.
-    Json,
-    /// CSV, one row per (subject, bin).
-    Csv,
-}
-
-impl std::str::FromStr for Format {
-    type Err = anyhow::Error;
-    fn from_str(s: &str) -> Result<Self> {
-        match s {
-            "table" => Ok(Format::Table),
-            "json" => Ok(Format::Json),
-            "csv" => Ok(Format::Csv),
-            _ => anyhow::bail!("--format must be table, json or csv, got {s:?}"),
-        }
-    }
-}
+pub use crate::output::Format;
 
 /// Render a report in the chosen format.
 ///
