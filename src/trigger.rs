@@ -24,7 +24,9 @@ pub struct Trigger {
     pub f_high: f64,
     /// Signal-to-noise ratio of the loudest tile, `sqrt(2 (Z - 1))`.
     pub snr: f64,
-    /// Quality factor of the loudest tile.
+    /// Quality factor: estimated between the Q planes from the loudest
+    /// tile of each plane at the peak (see [`cluster_tiles`]); the loudest
+    /// tile's own Q when only its plane is significant.
     pub q: f64,
     /// Normalised energy Z of the loudest tile.
     pub energy: f64,
@@ -51,10 +53,18 @@ pub const CLUSTER_GAP_S: f64 = 0.1;
 ///
 /// 1. Most significant first, keep a tile only if it overlaps no kept tile in
 ///    both time (`t ± Q/(2πf)`) and frequency (`f ± 2f/Q`); this removes the
-///    cloud of overlapping tiles of other Q planes and neighbouring rows.
+///    cloud of overlapping tiles of other Q planes and neighbouring rows. The
+///    loudest tile of each Q plane that a kept tile removes is remembered.
 /// 2. Kept tiles whose time extents overlap, or leave gaps shorter than
 ///    [`CLUSTER_GAP_S`], are one trigger: its peak is the loudest kept tile,
 ///    its extent the union of the kept tiles' extents.
+/// 3. The trigger's Q is estimated between the planes: the excess energy
+///    `Z − 1` of the loudest tile of each plane at the peak is fitted with
+///    `A sech(ln Q − ln Q̂)`, the energy a tile of quality Q keeps of a
+///    sine-Gaussian of quality Q̂ (for Gaussian windows the overlap is
+///    `sqrt(2 Q Q̂ / (Q² + Q̂²))`, whose square is that sech; Chatterji et
+///    al. 2004 give its second-order form, the mismatch metric). ln Q̂ is
+///    searched within one plane step of the observed planes.
 ///
 /// Returns triggers sorted by `t_peak`.
 pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
@@ -65,30 +75,42 @@ pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
     let max_half = tiles.iter().map(Tile::half_duration).fold(0.0, f64::max);
     // Kept tiles indexed by centre time (ns) for range queries.
     let mut kept_by_time: std::collections::BTreeMap<i64, Vec<usize>> = Default::default();
-    let mut kept: Vec<Tile> = Vec::new();
+    let mut kept: Vec<(Tile, PlanePeaks)> = Vec::new();
     let key = |t: f64| (t * 1e9).round() as i64;
     for tile in tiles {
         let (hd, hb) = (tile.half_duration(), tile.half_bandwidth());
         let lo = key(tile.t_gps - hd - max_half);
         let hi = key(tile.t_gps + hd + max_half);
-        let overlaps = kept_by_time.range(lo..=hi).flat_map(|(_, v)| v).any(|&j| {
-            let k = &kept[j];
-            (k.t_gps - tile.t_gps).abs() < hd + k.half_duration()
-                && (k.f_hz - tile.f_hz).abs() < hb + k.half_bandwidth()
-        });
-        if !overlaps {
-            kept_by_time
-                .entry(key(tile.t_gps))
-                .or_default()
-                .push(kept.len());
-            kept.push(tile);
+        let over = kept_by_time
+            .range(lo..=hi)
+            .flat_map(|(_, v)| v)
+            .copied()
+            .find(|&j| {
+                let k = &kept[j].0;
+                (k.t_gps - tile.t_gps).abs() < hd + k.half_duration()
+                    && (k.f_hz - tile.f_hz).abs() < hb + k.half_bandwidth()
+            });
+        match over {
+            // Tiles come loudest first: the first of a plane is its loudest.
+            Some(j) => kept[j].1.note(&tile),
+            None => {
+                kept_by_time
+                    .entry(key(tile.t_gps))
+                    .or_default()
+                    .push(kept.len());
+                let mut peaks = PlanePeaks::default();
+                peaks.note(&tile);
+                kept.push((tile, peaks));
+            }
         }
     }
-    kept.sort_by(|a, b| (a.t_gps - a.half_duration()).total_cmp(&(b.t_gps - b.half_duration())));
+    kept.sort_by(|a, b| {
+        (a.0.t_gps - a.0.half_duration()).total_cmp(&(b.0.t_gps - b.0.half_duration()))
+    });
     let mut out = Vec::new();
-    let mut group: Vec<Tile> = Vec::new();
+    let mut group: Vec<(Tile, PlanePeaks)> = Vec::new();
     let mut group_end = f64::NEG_INFINITY;
-    for tile in kept {
+    for (tile, peaks) in kept {
         if !group.is_empty() && tile.t_gps - tile.half_duration() > group_end + CLUSTER_GAP_S {
             out.push(trigger_of(&group));
             group.clear();
@@ -98,20 +120,71 @@ pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
         } else {
             group_end.max(tile.t_gps + tile.half_duration())
         };
-        group.push(tile);
+        group.push((tile, peaks));
     }
     out.push(trigger_of(&group));
     out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
     out
 }
 
-fn trigger_of(group: &[Tile]) -> Trigger {
-    let peak = group
+/// The loudest tile energy of each Q plane around a kept tile.
+#[derive(Debug, Default, Clone)]
+struct PlanePeaks(Vec<(f64, f64)>);
+
+impl PlanePeaks {
+    /// Remember `tile` if its plane has no louder tile yet.
+    fn note(&mut self, tile: &Tile) {
+        if !self.0.iter().any(|&(q, _)| q == tile.q) {
+            self.0.push((tile.q, tile.energy));
+        }
+    }
+
+    /// Q̂ from the plane peaks (see [`cluster_tiles`]), or `q0` when only
+    /// one plane is significant.
+    fn estimate_q(&self, q0: f64) -> f64 {
+        if self.0.len() < 2 {
+            return q0;
+        }
+        let pts: Vec<(f64, f64)> = self
+            .0
+            .iter()
+            .map(|&(q, z)| (q.ln(), (z - 1.0).max(0.0)))
+            .collect();
+        let mut lnq: Vec<f64> = pts.iter().map(|p| p.0).collect();
+        lnq.sort_by(f64::total_cmp);
+        let step = lnq
+            .windows(2)
+            .map(|w| w[1] - w[0])
+            .fold(f64::INFINITY, f64::min);
+        let (lo, hi) = (lnq[0] - step, lnq[lnq.len() - 1] + step);
+        // Least squares in A for each trial ln Q̂ (closed form), grid in ln Q̂.
+        const GRID: usize = 400;
+        let mut best = (f64::INFINITY, q0.ln());
+        for i in 0..=GRID {
+            let u = lo + (hi - lo) * i as f64 / GRID as f64;
+            let (mut se, mut ss, mut ee) = (0.0, 0.0, 0.0);
+            for &(x, e) in &pts {
+                let s = 1.0 / (x - u).cosh();
+                se += s * e;
+                ss += s * s;
+                ee += e * e;
+            }
+            let resid = ee - se * se / ss;
+            if resid < best.0 {
+                best = (resid, u);
+            }
+        }
+        best.1.exp()
+    }
+}
+
+fn trigger_of(group: &[(Tile, PlanePeaks)]) -> Trigger {
+    let (peak, peaks) = group
         .iter()
-        .max_by(|a, b| a.energy.total_cmp(&b.energy))
+        .max_by(|a, b| a.0.energy.total_cmp(&b.0.energy))
         .expect("non-empty group");
     let fold = |f: fn(&Tile) -> f64, init: f64, pick: fn(f64, f64) -> f64| {
-        group.iter().map(f).fold(init, pick)
+        group.iter().map(|g| f(&g.0)).fold(init, pick)
     };
     Trigger {
         t_peak: peak.t_gps,
@@ -125,7 +198,7 @@ fn trigger_of(group: &[Tile]) -> Trigger {
         ),
         f_high: fold(|t| t.f_hz + t.half_bandwidth(), f64::NEG_INFINITY, f64::max),
         snr: snr_from_energy(peak.energy),
-        q: peak.q,
+        q: peaks.estimate_q(peak.q),
         energy: peak.energy,
     }
 }
@@ -163,6 +236,25 @@ mod tests {
         assert!((trig[0].snr - (2.0f64 * 49.0).sqrt()).abs() < 1e-12);
         assert!(trig[0].t_start < 100.0 && trig[0].t_end > 100.0);
         assert_eq!(trig[1].f_peak, 60.0);
+    }
+
+    #[test]
+    fn q_between_planes_follows_the_sech_overlap() {
+        // Plane peaks of a Q = 8 transient with excess energy 100 at the
+        // best Q: Z − 1 = 100 sech(ln Q − ln 8) on the standard planes.
+        for q_true in [4.5, 8.0, 15.0, 30.0] {
+            let mut peaks = PlanePeaks::default();
+            for q in [5.657, 11.314, 22.627, 45.255] {
+                let z = 1.0 + 100.0 / (f64::ln(q / q_true)).cosh();
+                peaks.note(&tile(0.0, 100.0, q, z));
+            }
+            let q = peaks.estimate_q(5.657);
+            assert!((q / q_true).ln().abs() < 0.01, "{q} vs {q_true}");
+        }
+        // One significant plane: its Q.
+        let mut one = PlanePeaks::default();
+        one.note(&tile(0.0, 100.0, 11.314, 30.0));
+        assert_eq!(one.estimate_q(11.314), 11.314);
     }
 
     #[test]

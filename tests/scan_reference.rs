@@ -313,7 +313,15 @@ fn check_recovery(coloured: bool) {
             "SNR {} vs {target_snr}",
             best.snr
         );
-        // One row: adjacent rows of the recovered plane differ by the factor
+        // Q is estimated between planes a factor 2 apart (sech fit of the
+        // planes' peak energies): within 30% of the injected Q.
+        assert!(
+            (best.q / inj.q).ln().abs() < 1.3f64.ln(),
+            "Q {} vs injected {}",
+            best.q,
+            inj.q
+        );
+        // One row: adjacent rows at the recovered Q differ by the factor
         // exp(2 s / sqrt(2 + Q²)) (the row spacing of the tiling).
         let row_ratio = (2.0 * step / (2.0 + best.q * best.q).sqrt()).exp();
         assert!(
@@ -333,7 +341,7 @@ fn check_recovery(coloured: bool) {
 
 /// Sine-Gaussians of known matched-filter SNR in white noise are recovered
 /// with SNR within 15% (the mismatch of 0.2 bounds the energy loss), f_peak
-/// within one row and t_peak within one tile.
+/// within one row, t_peak within one tile and Q within 30%.
 #[test]
 fn sine_gaussians_recovered_in_white_noise() {
     check_recovery(false);
