@@ -136,10 +136,10 @@ fn scenario(
 /// Issue 3 acceptance on the demo scenario as `demo` makes it (2 h, seed 1):
 /// ARI ≥ 0.8 against the ground truth over matched triggers and dominant
 /// share ≥ 85 % per scenario family. Pebble (100–300 Hz, Q 3–6) and moth
-/// (60–120 Hz, Q 6–10) overlap in peak frequency and tile Q, and BIC sits
-/// between 3 and 4 families: with the scan of this version it prefers 3 by
-/// 4 units and merges moth into pebble (ARI 0.83, every share 100 %); an
-/// earlier scan whose triggers differed by a few tiles found 4 (ARI 0.94).
+/// (60–120 Hz, Q 6–10) overlap in peak frequency and Q and form one
+/// elongated cloud in (log f, ln Q): BIC prefers 3 families to 4 by 8 units
+/// and merges moth into pebble (ARI 0.82, shares 98–100 %); an earlier scan
+/// whose triggers differed by a few tiles found 4 (ARI 0.94).
 #[test]
 fn demo_families_match_ground_truth() {
     let (d, _sc, truth, segments) = scenario("families_demo_truth");
