@@ -6,7 +6,8 @@
 //! the minimum is the figure least disturbed by other load).
 //!
 //! Run: `cargo bench --bench scan_throughput` (set GLITCHBOOK_BENCH_SECONDS
-//! to change the span, default 3600).
+//! to change the span, default 3600, and GLITCHBOOK_BENCH_BLOCK_S to set
+//! the block length instead of the default).
 
 use glitchbook::scan::{resolve_params, scan_source, Conditioner, InMemory, ScanParams};
 use glitchbook::tf::{QPlan, Tiling};
@@ -33,11 +34,15 @@ fn main() {
         rate_hz: fs,
         start_gps: 1_400_000_000.0,
     };
+    let block_s: Option<f64> = std::env::var("GLITCHBOOK_BENCH_BLOCK_S")
+        .ok()
+        .and_then(|s| s.parse().ok());
     let params = ScanParams {
         fmin: Some(16.0),
         fmax: Some(1024.0),
         qmin: 4.0,
         qmax: 64.0,
+        block_s,
         ..ScanParams::default()
     };
     let rp = resolve_params(&params, fs, None, None).unwrap();
