@@ -299,7 +299,8 @@ pub fn tukey(n: usize, taper: usize) -> Vec<f64> {
 /// Whiten a block spectrum.
 ///
 /// `spec` is the unnormalised real FFT (N/2+1 bins) of N samples at `fs_hz`
-/// that were multiplied by a window whose mean square is `win_ms`. Each bin is
+/// that were multiplied by a window whose mean square is `win_ms`; `psd` is
+/// the one-sided density `S` on bins `k · psd_df_hz`. Each bin is
 /// divided by `sqrt(N fs S(f) / 2 · win_ms)` and multiplied by the high-pass
 /// gain `hp_gain[k]` (one per bin, see [`highpass_gain`]), so stationary
 /// Gaussian noise with PSD `S` becomes unit variance per bin. Between the
@@ -314,7 +315,8 @@ pub fn whiten(
     n: usize,
     fs_hz: f64,
     win_ms: f64,
-    psd: &Psd,
+    psd_df_hz: f64,
+    psd: &[f64],
     hp_gain: &[f64],
     inv_amp: &mut Vec<f64>,
     out: &mut [Complex<f32>],
@@ -322,7 +324,7 @@ pub fn whiten(
     const CAP: f64 = 1e12;
     let norm = n as f64 * fs_hz * 0.5 * win_ms;
     inv_amp.clear();
-    inv_amp.extend(psd.density.iter().map(|&s| {
+    inv_amp.extend(psd.iter().map(|&s| {
         if s > 0.0 && s < f64::INFINITY {
             1.0 / (norm * s).sqrt()
         } else {
@@ -330,7 +332,7 @@ pub fn whiten(
         }
     }));
     // Bin k of the block sits at PSD bin k · ratio.
-    let ratio = fs_hz / n as f64 / psd.df_hz;
+    let ratio = fs_hz / n as f64 / psd_df_hz;
     let a = &inv_amp[..];
     let last = a.len().saturating_sub(1);
     for (k, ((o, x), &g)) in out.iter_mut().zip(spec).zip(hp_gain).enumerate() {

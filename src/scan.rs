@@ -1,7 +1,7 @@
 //! Scanning one channel: split into valid stretches (analysis segments minus
 //! NaN dropouts), condition and tile each stretch in overlapping blocks, and
 //! cluster significant tiles into triggers.
-use crate::condition::{highpass_gain, tukey, whiten, Psd, Welch, WelchBuffers};
+use crate::condition::{highpass_gain, tukey, whiten, Welch, WelchBuffers};
 use crate::io::{ChannelSpec, NpyReader};
 use crate::segments::{Segment, SegmentList};
 use crate::tf::{QPlan, Tile, Tiling, Workspace};
@@ -539,10 +539,6 @@ impl Conditioner {
         self.fft
             .process_with_scratch(&mut b.x, &mut b.spec, &mut b.scratch)
             .map_err(|e| anyhow!("FFT: {e}"))?;
-        let psd = Psd {
-            df_hz: df_psd,
-            density: std::mem::take(&mut b.welch.density),
-        };
         // Bins above the top are not read by the plan: leave them at 0.
         let top = if self.f_top_hz.is_finite() {
             ((self.f_top_hz * n as f64 / fs).ceil() as usize + 1).min(n / 2 + 1)
@@ -554,13 +550,13 @@ impl Conditioner {
             n,
             fs,
             self.taper_ms,
-            &psd,
+            df_psd,
+            &b.welch.density,
             &self.hp_gain[..top],
             &mut b.inv_amp,
             &mut b.whitened[..top],
         );
         b.whitened[top..].fill(Complex::new(0.0, 0.0));
-        b.welch.density = psd.density;
         Ok(())
     }
 }
