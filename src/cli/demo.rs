@@ -127,8 +127,8 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
         t.elapsed().as_secs_f64()
     ));
     let names = family_check(&conn, &truth, &say)?;
-    // Name each family after the scenario family most of its members come
-    // from, to show labels; in real use people name families.
+    // Name each family after the scenario families it holds most of, to
+    // show labels; in real use people name families.
     for (fam, name) in &names {
         families::label(
             &mut conn,
@@ -172,7 +172,10 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
             ..RateParams::default()
         },
     )?;
-    if let Some((fam, _)) = names.iter().find(|(_, n)| n == "moth") {
+    if let Some((fam, label)) = names
+        .iter()
+        .find(|(_, n)| n.split('+').any(|part| part == "moth"))
+    {
         if let Some(series) = rr.series.iter().find(|s| s.family_id == Some(*fam)) {
             let nearest = series.change_times_gps.iter().min_by(|x, y| {
                 (*x - sc.late_family_start_gps)
@@ -181,7 +184,7 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
             });
             match nearest {
                 Some(c) => say(format!(
-                    "5. rates: the late family (moth, family {fam}) has a change point {:+.0} s from its true start",
+                    "5. rates: the family holding the late scenario family moth (family {fam}, {label}) has a change point {:+.0} s from moth's true start",
                     c - sc.late_family_start_gps
                 )),
                 None => say(format!("5. rates: no change point found for the late family {fam}")),
@@ -278,7 +281,8 @@ fn family_check(
         a.len(),
         adjusted_rand_index(&a, &b)
     ));
-    let mut out: Vec<(i64, String)> = Vec::new();
+    // (family, scenario name, count) of each scenario family's dominant family.
+    let mut dominant: Vec<(i64, String, usize)> = Vec::new();
     for name in &names {
         let total: usize = tally
             .iter()
@@ -294,9 +298,20 @@ fn family_check(
                 "   scenario family {name}: {c}/{total} = {:.0}% in family {fam}",
                 100.0 * *c as f64 / total as f64
             ));
-            if !out.iter().any(|(f, _)| f == fam) {
-                out.push((*fam, name.to_string()));
+            dominant.push((*fam, name.to_string(), *c));
+        }
+    }
+    // A family that is the dominant one of several scenario families gets
+    // all their names, largest first (e.g. "pebble+moth" when two merge).
+    dominant.sort_by(|a, b| a.0.cmp(&b.0).then(b.2.cmp(&a.2)));
+    let mut out: Vec<(i64, String)> = Vec::new();
+    for (fam, name, _) in dominant {
+        match out.last_mut() {
+            Some((f, joined)) if *f == fam => {
+                joined.push('+');
+                joined.push_str(&name);
             }
+            _ => out.push((fam, name)),
         }
     }
     Ok(out)
