@@ -17,8 +17,9 @@
 //! - images: [`render_trigger_thumbnail`], [`render_family_thumbnails`].
 //!
 //! Clustering vector: log2 peak frequency and ln Q of the trigger
-//! ([`store::CLUSTER_SCALARS`]; ln Q dequantised, since trigger Q comes from
-//! a few Q planes), z-scored; optionally PCA scores of the peak-normalised
+//! ([`store::CLUSTER_SCALARS`]; a column on few levels, such as the peak
+//! frequency on Q-plane rows, or Q from scans that recorded the plane's Q,
+//! is dequantised), z-scored; optionally PCA scores of the peak-normalised
 //! maps ([`ClusterParams::n_map_components`], default 0). SNR is not in the
 //! vector: loudness does not make a family. k is chosen by the BIC of
 //! full-covariance mixtures (on ≤ 20,000 rows), then mixture components

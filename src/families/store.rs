@@ -123,7 +123,9 @@ const SCALAR_LN_Q: usize = 4;
 /// Spacing \[log2 Hz\] of the frequency rows of the Q plane `exp(ln_q)` in
 /// the default tiling (maximum mismatch 0.2): rows are geometric with ratio
 /// `exp(2 s / sqrt(2 + Q²))`, `s` the mismatch step (Chatterji et al. 2004).
-/// Peak frequencies sit on these rows, so they are dequantised by it like Q.
+/// Peak frequencies sit on these rows, so they are dequantised by it. Trigger
+/// Q is estimated between the planes (see [`crate::trigger::cluster_tiles`]),
+/// so this is the spacing at that Q, within a factor 2 of the peak plane's.
 pub fn log2_row_spacing(ln_q: f64) -> f64 {
     let q = ln_q.exp();
     2.0 * crate::tf::mismatch_step(0.2) / (2.0 + q * q).sqrt() / std::f64::consts::LN_2
