@@ -143,6 +143,21 @@ pub fn finite(name: &str, v: Option<f64>) -> anyhow::Result<Option<f64>> {
     }
 }
 
+/// Parse `args` (without a program name) as one command's flags; for the
+/// commands' flag tests.
+#[cfg(test)]
+pub fn parse_flags<A: clap::Args + clap::FromArgMatches>(args: &[&str]) -> A {
+    use clap::Parser;
+    #[derive(Parser)]
+    struct Wrap<A: clap::Args + clap::FromArgMatches> {
+        #[command(flatten)]
+        a: A,
+    }
+    Wrap::<A>::try_parse_from(std::iter::once("t").chain(args.iter().copied()))
+        .expect("flags parse")
+        .a
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -80,18 +80,8 @@ pub fn run(g: &Global, args: RatesArgs) -> Result<ExitCode> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use clap::Parser;
-
-    #[derive(Parser)]
-    struct T {
-        #[command(flatten)]
-        a: RatesArgs,
-    }
-
     fn parse(args: &[&str]) -> Result<RateParams> {
-        let mut v = vec!["t"];
-        v.extend_from_slice(args);
-        T::try_parse_from(v).unwrap().a.validate()
+        crate::cli::parse_flags::<RatesArgs>(args).validate()
     }
 
     #[test]

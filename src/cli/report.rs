@@ -121,18 +121,8 @@ pub fn run(g: &Global, args: ReportArgs) -> Result<ExitCode> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use clap::Parser;
-
-    #[derive(Parser)]
-    struct T {
-        #[command(flatten)]
-        a: ReportArgs,
-    }
-
     fn parse(args: &[&str]) -> Result<ReportParams> {
-        let mut v = vec!["t"];
-        v.extend_from_slice(args);
-        T::try_parse_from(v).unwrap().a.validate("c.db")
+        crate::cli::parse_flags::<ReportArgs>(args).validate("c.db")
     }
 
     #[test]

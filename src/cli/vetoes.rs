@@ -211,18 +211,8 @@ pub fn run(g: &Global, args: VetoesArgs) -> Result<ExitCode> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use clap::Parser;
-
-    #[derive(Parser)]
-    struct T {
-        #[command(flatten)]
-        a: VetoesArgs,
-    }
-
     fn parse(args: &[&str]) -> Result<VetoParams> {
-        let mut v = vec!["t"];
-        v.extend_from_slice(args);
-        T::try_parse_from(v).unwrap().a.validate()
+        crate::cli::parse_flags::<VetoesArgs>(args).validate()
     }
 
     #[test]

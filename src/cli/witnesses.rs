@@ -141,18 +141,8 @@ pub fn run(g: &Global, args: WitnessesArgs) -> Result<ExitCode> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use clap::Parser;
-
-    #[derive(Parser)]
-    struct T {
-        #[command(flatten)]
-        a: WitnessesArgs,
-    }
-
     fn parse(args: &[&str]) -> Result<WitnessParams> {
-        let mut v = vec!["t"];
-        v.extend_from_slice(args);
-        T::try_parse_from(v).unwrap().a.validate()
+        crate::cli::parse_flags::<WitnessesArgs>(args).validate()
     }
 
     #[test]
