@@ -21,6 +21,21 @@ pub struct RatesArgs {
     /// Count this channel's triggers [default: the target channel].
     #[arg(long, value_name = "NAME")]
     pub channel: Option<String>,
+    /// Span, bins, SNR cut and statistics.
+    #[command(flatten)]
+    pub span: RateFlags,
+    /// Flag bins whose live time is below this fraction of their length.
+    #[arg(long, value_name = "F", default_value_t = 0.5)]
+    pub min_live_fraction: f64,
+    /// Output format (csv: one row per subject and bin).
+    #[arg(long, value_enum, default_value_t = Format::Table)]
+    pub format: Format,
+}
+
+/// The span and rate flags shared by `rates` and `report` (same names,
+/// defaults and checks).
+#[derive(Debug, Clone, clap::Args)]
+pub struct RateFlags {
     /// Bin width [s].
     #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
     pub bin: f64,
@@ -30,7 +45,7 @@ pub struct RatesArgs {
     /// End of the span [GPS s] [default: end of live time].
     #[arg(long, value_name = "T")]
     pub until: Option<f64>,
-    /// Count only triggers with SNR at least X.
+    /// Only triggers with SNR at least X.
     #[arg(long, value_name = "X", default_value_t = 0.0)]
     pub min_snr: f64,
     /// One-sided confidence level of the rate limits, in (0, 1).
@@ -39,12 +54,23 @@ pub struct RatesArgs {
     /// False-positive probability of each Bayesian-blocks change point, in (0, 1).
     #[arg(long, value_name = "P", default_value_t = 0.05)]
     pub p0: f64,
-    /// Flag bins whose live time is below this fraction of their length.
-    #[arg(long, value_name = "F", default_value_t = 0.5)]
-    pub min_live_fraction: f64,
-    /// Output format (csv: one row per subject and bin).
-    #[arg(long, value_enum, default_value_t = Format::Table)]
-    pub format: Format,
+}
+
+impl RateFlags {
+    /// The rate parameters these flags set (the rest default), checked.
+    pub fn rate_params(&self) -> Result<RateParams> {
+        let p = RateParams {
+            bin_s: self.bin,
+            since_gps: finite("since", self.since)?,
+            until_gps: finite("until", self.until)?,
+            min_snr: self.min_snr,
+            cl: self.cl,
+            p0: self.p0,
+            ..RateParams::default()
+        };
+        p.check()?;
+        Ok(p)
+    }
 }
 
 impl RatesArgs {
@@ -53,14 +79,8 @@ impl RatesArgs {
         let p = RateParams {
             family: self.family,
             channel: self.channel.clone(),
-            bin_s: self.bin,
-            since_gps: finite("since", self.since)?,
-            until_gps: finite("until", self.until)?,
-            min_snr: self.min_snr,
-            cl: self.cl,
-            p0: self.p0,
             min_live_fraction: self.min_live_fraction,
-            ..RateParams::default()
+            ..self.span.rate_params()?
         };
         p.check()?;
         Ok(p)

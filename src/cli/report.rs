@@ -1,9 +1,9 @@
 //! `glitchbook report`: a static HTML report (no network, no JavaScript) of
 //! the catalogue: channels, families, rates, witnesses and veto proposals.
-use super::{finite, Global};
+use super::rates::RateFlags;
+use super::Global;
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
-use glitchbook::rates::RateParams;
 use glitchbook::report::{gather, write_report, ReportParams};
 use rusqlite::Connection;
 use std::path::{Path, PathBuf};
@@ -18,24 +18,9 @@ pub struct ReportArgs {
     /// Output directory (created if needed; existing files are overwritten).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
-    /// Start of the span [GPS s] [default: start of live time].
-    #[arg(long, value_name = "T")]
-    pub since: Option<f64>,
-    /// End of the span [GPS s] [default: end of live time].
-    #[arg(long, value_name = "T")]
-    pub until: Option<f64>,
-    /// Only triggers with SNR at least X.
-    #[arg(long, value_name = "X", default_value_t = 0.0)]
-    pub min_snr: f64,
-    /// Rate bin width [s].
-    #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
-    pub bin: f64,
-    /// One-sided confidence level of the rate limits, in (0, 1).
-    #[arg(long, value_name = "C", default_value_t = 0.9)]
-    pub cl: f64,
-    /// False-positive probability of each Bayesian-blocks change point, in (0, 1).
-    #[arg(long, value_name = "P", default_value_t = 0.05)]
-    pub p0: f64,
+    /// Span, bins, SNR cut and statistics (as in `rates`).
+    #[command(flatten)]
+    pub span: RateFlags,
     /// Loudest example triggers listed per family.
     #[arg(long, value_name = "N", default_value_t = 5)]
     pub examples: usize,
@@ -48,24 +33,15 @@ impl ReportArgs {
             bail!("--out must not be empty");
         }
         // The span and rate options mean what they mean for `rates`.
-        RateParams {
-            bin_s: self.bin,
-            since_gps: finite("since", self.since)?,
-            until_gps: finite("until", self.until)?,
-            min_snr: self.min_snr,
-            cl: self.cl,
-            p0: self.p0,
-            ..RateParams::default()
-        }
-        .check()?;
+        let r = self.span.rate_params()?;
         Ok(ReportParams {
             catalogue: catalogue.to_string(),
-            since_gps: self.since,
-            until_gps: self.until,
-            min_snr: self.min_snr,
-            bin_s: self.bin,
-            cl: self.cl,
-            p0: self.p0,
+            since_gps: r.since_gps,
+            until_gps: r.until_gps,
+            min_snr: r.min_snr,
+            bin_s: r.bin_s,
+            cl: r.cl,
+            p0: r.p0,
             max_examples: self.examples,
             ..ReportParams::default()
         })
