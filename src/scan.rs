@@ -107,38 +107,23 @@ pub trait SampleSource: Sync {
     /// ±Inf are dropouts; sample i covers `[t0 + i/fs, t0 + (i+1)/fs)`) and
     /// an xxh3-128 checksum of the samples (as little-endian f64).
     fn survey(&self) -> Result<(SegmentList, String)> {
-        const CHUNK: usize = 1 << 20;
         let (fs, t0) = (self.rate_hz(), self.start_gps());
         let mut hasher = xxhash_rust::xxh3::Xxh3::new();
-        let mut buf = vec![0.0f64; CHUNK];
-        let mut bytes: Vec<u8> = Vec::with_capacity(CHUNK * 8);
-        let mut segs = Vec::new();
-        let mut run_start: Option<usize> = None;
-        let mut pos = 0;
-        while pos < self.len() {
-            let n = CHUNK.min(self.len() - pos);
-            self.read(pos, &mut buf[..n])?;
-            bytes.clear();
-            bytes.extend(buf[..n].iter().flat_map(|x| x.to_le_bytes()));
-            hasher.update(&bytes);
-            for (i, &x) in buf[..n].iter().enumerate() {
-                match (x.is_finite(), run_start) {
-                    (true, None) => run_start = Some(pos + i),
-                    (false, Some(s)) => {
-                        segs.push(Segment::new(t0 + s as f64 / fs, t0 + (pos + i) as f64 / fs));
-                        run_start = None;
-                    }
-                    _ => {}
-                }
-            }
-            pos += n;
-        }
-        if let Some(s) = run_start {
-            segs.push(Segment::new(
-                t0 + s as f64 / fs,
-                t0 + self.len() as f64 / fs,
-            ));
-        }
+        let mut bytes: Vec<u8> = Vec::new();
+        let runs = crate::io::npy::finite_runs(
+            self.len(),
+            crate::io::npy::STRETCH_CHUNK_SAMPLES,
+            |first, buf| self.read(first, buf),
+            |chunk| {
+                bytes.clear();
+                bytes.extend(chunk.iter().flat_map(|x| x.to_le_bytes()));
+                hasher.update(&bytes);
+            },
+        )?;
+        let segs = runs
+            .iter()
+            .map(|&(a, b)| Segment::new(t0 + a as f64 / fs, t0 + b as f64 / fs))
+            .collect();
         Ok((
             SegmentList::from_segments(segs),
             format!("{:032x}", hasher.digest128()),

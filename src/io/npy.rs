@@ -518,29 +518,16 @@ impl NpyReader {
                 self.len
             );
         }
-        let mut segs = Vec::new();
-        let mut run_start: Option<usize> = None;
-        let mut buf = vec![0.0f64; chunk_samples.min(self.len)];
-        let mut first = 0;
-        while first < self.len {
-            let n = chunk_samples.min(self.len - first);
-            self.read_f64(first, &mut buf[..n])?;
-            for (k, x) in buf[..n].iter().enumerate() {
-                let i = first + k;
-                match (x.is_finite(), run_start) {
-                    (true, None) => run_start = Some(i),
-                    (false, Some(s)) => {
-                        segs.push(Segment::new(t_of(s), t_of(i)));
-                        run_start = None;
-                    }
-                    _ => {}
-                }
-            }
-            first += n;
-        }
-        if let Some(s) = run_start {
-            segs.push(Segment::new(t_of(s), t_of(self.len)));
-        }
+        let runs = finite_runs(
+            self.len,
+            chunk_samples,
+            |first, buf| self.read_f64(first, buf),
+            |_| {},
+        )?;
+        let segs: Vec<Segment> = runs
+            .iter()
+            .map(|&(a, b)| Segment::new(t_of(a), t_of(b)))
+            .collect();
         if segs.is_empty() {
             bail!(
                 "{}: no finite samples (all {} samples are NaN or Inf)",
@@ -550,6 +537,45 @@ impl NpyReader {
         }
         Ok(SegmentList::from_segments(segs))
     }
+}
+
+/// Stream `len` samples in chunks of `chunk` samples (≥ 1) through `read`
+/// (`read(first, buf)` fills `buf` from sample `first`) and return the runs
+/// of finite samples as index ranges `[start, end)`; NaN and ±Inf end a run.
+/// Each chunk is also handed to `each` (to hash it, say), in order.
+///
+/// # Errors
+/// Whatever `read` returns.
+pub fn finite_runs(
+    len: usize,
+    chunk: usize,
+    mut read: impl FnMut(usize, &mut [f64]) -> anyhow::Result<()>,
+    mut each: impl FnMut(&[f64]),
+) -> anyhow::Result<Vec<(usize, usize)>> {
+    let mut runs = Vec::new();
+    let mut run_start: Option<usize> = None;
+    let mut buf = vec![0.0f64; chunk.max(1).min(len)];
+    let mut first = 0;
+    while first < len {
+        let n = buf.len().min(len - first);
+        read(first, &mut buf[..n])?;
+        each(&buf[..n]);
+        for (k, x) in buf[..n].iter().enumerate() {
+            match (x.is_finite(), run_start) {
+                (true, None) => run_start = Some(first + k),
+                (false, Some(s)) => {
+                    runs.push((s, first + k));
+                    run_start = None;
+                }
+                _ => {}
+            }
+        }
+        first += n;
+    }
+    if let Some(s) = run_start {
+        runs.push((s, len));
+    }
+    Ok(runs)
 }
 
 /// The file size must equal header + samples exactly.
