@@ -40,7 +40,8 @@ const MAP_MARGIN_S: f64 = 8.0;
 const TAPER_S: f64 = 0.5;
 /// Whitened blocks kept in memory.
 const CACHE_BLOCKS: usize = 48;
-/// Planned windows (one per channel, Q and window length) kept in memory.
+/// Planned windows (one per channel, Q and window length), and block
+/// conditioners (one per channel and block length), kept in memory.
 const CACHE_PLANS: usize = 64;
 
 /// One channel's data and scan parameters.
@@ -197,6 +198,10 @@ impl BundleMaps {
                         )?,
                         RealFftPlanner::<f32>::new().plan_fft_inverse(n),
                     ));
+                    // Short stretches each have their own length: bounded.
+                    if c.len() >= CACHE_PLANS {
+                        c.clear();
+                    }
                     c.insert((channel.to_string(), n), made.clone());
                     made
                 }
