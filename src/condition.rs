@@ -108,7 +108,7 @@ impl Welch {
         })
     }
 
-    /// Buffers for [`Welch::estimate_with`], sized for this plan.
+    /// Buffers for [`Welch::estimate_band`], sized for this plan.
     pub fn buffers(&self) -> WelchBuffers {
         WelchBuffers {
             input: self.fft.make_input_vec(),
@@ -126,7 +126,7 @@ impl Welch {
     /// Fewer samples than one segment.
     pub fn estimate(&self, x: &[f64], fs_hz: f64) -> Result<Psd> {
         let mut b = self.buffers();
-        let df_hz = self.estimate_with(x, fs_hz, &mut b)?;
+        let df_hz = self.estimate_band(x, fs_hz, f64::INFINITY, &mut b)?;
         Ok(Psd {
             df_hz,
             density: b.density,
@@ -134,17 +134,10 @@ impl Welch {
     }
 
     /// As [`Welch::estimate`], into `b.density` (bin spacing returned), with
-    /// no allocation once the buffers have grown to size.
-    ///
-    /// # Errors
-    /// Fewer samples than one segment.
-    pub fn estimate_with(&self, x: &[f64], fs_hz: f64, b: &mut WelchBuffers) -> Result<f64> {
-        self.estimate_band(x, fs_hz, f64::INFINITY, b)
-    }
-
-    /// As [`Welch::estimate_with`], but only bins up to `f_top_hz` (plus
-    /// one, for interpolation) are estimated; the density above is 0. A
-    /// scan that never looks above `f_top_hz` skips the rest of the medians.
+    /// no allocation once the buffers have grown to size; only bins up to
+    /// `f_top_hz` (plus one, for interpolation) are estimated and the density
+    /// above is 0 (`f64::INFINITY`: every bin). A scan that never looks above
+    /// `f_top_hz` skips the rest of the medians.
     ///
     /// # Errors
     /// Fewer samples than one segment.

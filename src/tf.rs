@@ -92,6 +92,14 @@ pub struct Tiling {
     pub mismatch: f64,
 }
 
+/// `|y|² × scale` of every tile of `row` (its transform in `ws.buf`).
+fn scaled_energies(ws: &Workspace, row: &Row, scale: f32) -> Vec<f32> {
+    ws.buf[..row.n_t]
+        .iter()
+        .map(|y| y.norm_sqr() * scale)
+        .collect()
+}
+
 /// Kept tiles are screened for significant ones in chunks of this many.
 const CHUNK: usize = 64;
 
@@ -379,7 +387,8 @@ impl QPlan {
     /// `[keep.0, keep.1)` (GPS s) to `out`.
     ///
     /// Each row is normalised by its own robust scale over the kept part
-    /// (estimated as the private `row_scale` describes: the median estimator evaluated by counting), so a short transient hardly moves it and
+    /// (the median estimator, evaluated by counting the tiles below ln 2 ×
+    /// the row's expected mean), so a short transient hardly moves it and
     /// errors of the PSD estimate cancel.
     pub fn transform(
         &self,
@@ -433,10 +442,15 @@ impl QPlan {
         }
     }
 
+    /// Time between the tiles of `row` \[s\].
+    fn tile_spacing(&self, row: &Row) -> f64 {
+        self.n as f64 / self.fs_hz / row.n_t as f64
+    }
+
     /// Tile index range `[lo, hi)` of `row` whose centres lie in `keep`, and
     /// the tile spacing \[s\].
     fn kept_range(&self, row: &Row, t0_gps: f64, keep: (f64, f64)) -> (usize, usize, f64) {
-        let dt = self.n as f64 / self.fs_hz / row.n_t as f64;
+        let dt = self.tile_spacing(row);
         let lo = (((keep.0 - t0_gps) / dt).ceil().max(0.0) as usize).min(row.n_t);
         let hi = (((keep.1 - t0_gps) / dt).ceil().max(0.0) as usize).min(row.n_t);
         (lo.min(hi), hi, dt)
@@ -536,11 +550,7 @@ impl QPlan {
         let scale = self
             .row_scale(plane, row, whitened, (lo, hi), f64::INFINITY, ws)
             .unwrap_or(0.0) as f32;
-        let z = ws.buf[..r.n_t]
-            .iter()
-            .map(|y| y.norm_sqr() * scale)
-            .collect();
-        (z, dt)
+        (scaled_energies(ws, r, scale), dt)
     }
 
     /// Energies of one row over the whole of a spectrum whitened to unit
@@ -558,13 +568,10 @@ impl QPlan {
     ) -> (Vec<f32>, f64) {
         let r = &self.planes[plane].rows[row];
         self.row_transform(r, whitened, ws);
-        let scale = (1.0 / r.norm) as f32;
-        let dt = self.n as f64 / self.fs_hz / r.n_t as f64;
-        let z = ws.buf[..r.n_t]
-            .iter()
-            .map(|y| y.norm_sqr() * scale)
-            .collect();
-        (z, dt)
+        (
+            scaled_energies(ws, r, (1.0 / r.norm) as f32),
+            self.tile_spacing(r),
+        )
     }
 
     /// Run only the inverse FFTs of every row (the plan's FFT-only cost, for

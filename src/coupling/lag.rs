@@ -48,17 +48,7 @@ pub struct LagSummary {
 
 /// Median of a slice (sorted copy); `None` when empty.
 fn median(v: &[f64]) -> Option<f64> {
-    if v.is_empty() {
-        return None;
-    }
-    let mut s = v.to_vec();
-    s.sort_by(f64::total_cmp);
-    let n = s.len();
-    Some(if n % 2 == 1 {
-        s[n / 2]
-    } else {
-        0.5 * (s[n / 2 - 1] + s[n / 2])
-    })
+    (!v.is_empty()).then(|| crate::condition::median(&mut v.to_vec()))
 }
 
 /// Classify a median frequency ratio `f_aux / f_target` (see module docs).

@@ -994,16 +994,12 @@ pub fn family_events(conn: &Connection) -> Result<Vec<(i64, FamilyEvent)>> {
     Ok(v)
 }
 
+/// [`crate::condition::median`], NaN for no values.
 fn median(v: &mut [f64]) -> f64 {
     if v.is_empty() {
-        return f64::NAN;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n % 2 == 1 {
-        v[n / 2]
+        f64::NAN
     } else {
-        0.5 * (v[n / 2 - 1] + v[n / 2])
+        crate::condition::median(v)
     }
 }
 
