@@ -108,6 +108,26 @@ fn main() {
         }
     });
     println!("  conditioning only (1 thread): {cond_s:.2} s");
+    // Of which the Welch median PSD of each block (its segment FFTs and
+    // per-bin medians), the largest cost outside the plan's FFTs.
+    let welch = glitchbook::condition::Welch::new(welch_n, welch_n / 2).unwrap();
+    let mut wb = welch.buffers();
+    let welch_s = best_of_3(|| {
+        let mut i0 = 0;
+        for _ in 0..n_blocks {
+            let start = i0.min(n - block_n);
+            welch
+                .estimate_band(
+                    &src.data[start..start + block_n],
+                    fs,
+                    plan.top_hz(),
+                    &mut wb,
+                )
+                .unwrap();
+            i0 += step;
+        }
+    });
+    println!("    of which Welch PSD: {welch_s:.2} s");
 
     let run = |threads: usize| -> (f64, usize) {
         let pool = rayon::ThreadPoolBuilder::new()

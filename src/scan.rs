@@ -115,8 +115,10 @@ pub trait SampleSource: Sync {
             crate::io::npy::STRETCH_CHUNK_SAMPLES,
             |first, buf| self.read(first, buf),
             |chunk| {
-                bytes.clear();
-                bytes.extend(chunk.iter().flat_map(|x| x.to_le_bytes()));
+                bytes.resize(8 * chunk.len(), 0);
+                for (o, x) in bytes.chunks_exact_mut(8).zip(chunk) {
+                    o.copy_from_slice(&x.to_le_bytes());
+                }
                 hasher.update(&bytes);
             },
         )?;
