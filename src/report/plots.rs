@@ -50,7 +50,8 @@ pub fn rate_plot(
     root.fill(&WHITE).map_err(err)?;
     let h = |t: f64| (t - t0_gps) / 3600.0;
     // Scale to the binned limits: a burst's Bayesian block can be seconds
-    // long with a rate far above everything else, and is drawn clipped.
+    // long with a rate far above everything else; it is drawn clipped, with
+    // a marker and its rate written at the top.
     let bins_max = s
         .bins
         .iter()
@@ -123,6 +124,22 @@ pub fn rate_plot(
         .map_err(err)?
         .label("Bayesian-block rate")
         .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], INK.stroke_width(2)));
+    for b in s.blocks.iter().filter(|b| b.rate_per_hour > ymax) {
+        let x = h(0.5 * (b.start_gps + b.end_gps));
+        chart
+            .draw_series([EmptyElement::at((x, ymax))
+                + TriangleMarker::new((0, 6), 5, INK.filled())
+                + Text::new(
+                    if b.rate_per_hour < 1e6 {
+                        format!("{:.0}/h", b.rate_per_hour)
+                    } else {
+                        format!("{:.2e}/h", b.rate_per_hour)
+                    },
+                    (6, 2),
+                    ("sans-serif", 11).into_font().color(&INK),
+                )])
+            .map_err(err)?;
+    }
     chart
         .configure_series_labels()
         .background_style(WHITE.mix(0.85))
@@ -301,4 +318,63 @@ pub fn lag_histogram(path: &Path, edges_s: &[f64], counts: &[f64], title: &str) 
         .map_err(err)?;
     root.present().map_err(err)?;
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::rates::{BlockRate, RateBin};
+
+    #[test]
+    fn a_clipped_burst_block_is_marked_with_its_rate() {
+        let bin = |i: u32| {
+            let a = f64::from(i) * 3600.0;
+            RateBin {
+                start_gps: a,
+                end_gps: a + 3600.0,
+                count: 4,
+                live_s: 3600.0,
+                rate_per_hour: Some(4.0),
+                lower_per_hour: Some(1.4),
+                upper_per_hour: Some(9.2),
+                low_live: false,
+            }
+        };
+        let block = |a: f64, b: f64, rate: f64| BlockRate {
+            start_gps: a,
+            end_gps: b,
+            count: 1,
+            live_s: b - a,
+            rate_per_hour: rate,
+            lower_per_hour: 0.5 * rate,
+            upper_per_hour: 2.0 * rate,
+        };
+        let s = RateSeries {
+            family_id: None,
+            label: None,
+            n_events: 12,
+            mean_rate_per_hour: 4.0,
+            bins: (0..3).map(bin).collect(),
+            blocks: vec![
+                block(0.0, 5000.0, 4.0),
+                block(5000.0, 5010.0, 36_000.0),
+                block(5010.0, 10800.0, 4.0),
+            ],
+            change_times_gps: vec![5000.0, 5010.0],
+            median_rate_per_hour: 4.0,
+            latest_differs: false,
+        };
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("rate.svg");
+        rate_plot(&path, &s, 0.0, 10800.0, "test", family_colour(0)).unwrap();
+        let svg = std::fs::read_to_string(&path).unwrap();
+        assert!(
+            svg.contains("36000/h"),
+            "the clipped block's rate is written"
+        );
+        assert!(
+            !svg.contains(">4/h"),
+            "blocks inside the axes are not labelled"
+        );
+    }
 }
