@@ -78,6 +78,10 @@ pub fn rate_plot(
         .configure_mesh()
         .x_desc("hours since span start")
         .y_desc("rate per live hour")
+        .y_label_formatter(&|v| {
+            let t = format!("{v:.3}");
+            t.trim_end_matches('0').trim_end_matches('.').to_string()
+        })
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
         .map_err(err)?;
@@ -151,6 +155,38 @@ pub fn rate_plot(
     Ok(())
 }
 
+/// Ticks of a log axis over `[lo, hi]`: 1, 2 and 5 times each power of ten
+/// in range, every partial decade included (every integer multiple when
+/// that gives fewer than two).
+fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
+    let pick = |mults: &[f64]| -> Vec<f64> {
+        let (d0, d1) = (lo.log10().floor() as i32, hi.log10().ceil() as i32);
+        (d0..=d1)
+            .flat_map(|d| mults.iter().map(move |m| m * 10f64.powi(d)))
+            .filter(|v| *v >= lo * (1.0 - 1e-9) && *v <= hi * (1.0 + 1e-9))
+            .collect()
+    };
+    if !(lo > 0.0 && hi > lo && hi.is_finite()) {
+        return Vec::new();
+    }
+    let ticks = pick(&[1.0, 2.0, 5.0]);
+    if ticks.len() >= 2 {
+        ticks
+    } else {
+        pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
+    }
+}
+
+/// A tick value without trailing decimals (0.05, 2, 1000).
+fn tick_label(v: &f64) -> String {
+    if *v >= 1.0 || *v <= 0.0 {
+        format!("{v:.0}")
+    } else {
+        let digits = (-v.log10()).ceil() as usize;
+        format!("{v:.digits$}")
+    }
+}
+
 /// One point of the time-frequency scatter.
 #[derive(Debug, Clone, Copy)]
 pub struct TfPoint {
@@ -187,13 +223,16 @@ pub fn tf_scatter(path: &Path, pts: &[TfPoint], t0_gps: f64, t1_gps: f64) -> Res
         .y_label_area_size(60)
         .build_cartesian_2d(
             0.0..((t1_gps - t0_gps) / 3600.0).max(1e-9),
-            (fmin..fmax).log_scale(),
+            (fmin..fmax)
+                .log_scale()
+                .with_key_points(log_ticks(fmin, fmax)),
         )
         .map_err(err)?;
     chart
         .configure_mesh()
         .x_desc("hours since span start")
         .y_desc("peak frequency [Hz]")
+        .y_label_formatter(&tick_label)
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
         .map_err(err)?;
@@ -235,12 +274,21 @@ pub fn snr_cumulative(path: &Path, curves: &[(String, RGBColor, Vec<f64>)]) -> R
         .margin(12)
         .x_label_area_size(40)
         .y_label_area_size(60)
-        .build_cartesian_2d((smin..smax).log_scale(), (0.8..nmax * 1.5).log_scale())
+        .build_cartesian_2d(
+            (smin..smax)
+                .log_scale()
+                .with_key_points(log_ticks(smin, smax)),
+            (0.8..nmax * 1.5)
+                .log_scale()
+                .with_key_points(log_ticks(0.8, nmax * 1.5)),
+        )
         .map_err(err)?;
     chart
         .configure_mesh()
         .x_desc("SNR")
         .y_desc("triggers with SNR at least x")
+        .x_label_formatter(&tick_label)
+        .y_label_formatter(&tick_label)
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
         .map_err(err)?;
@@ -324,6 +372,18 @@ pub fn lag_histogram(path: &Path, edges_s: &[f64], counts: &[f64], title: &str) 
 mod tests {
     use super::*;
     use crate::rates::{BlockRate, RateBin};
+
+    #[test]
+    fn log_axes_tick_one_two_five_with_partial_decades() {
+        assert_eq!(
+            log_ticks(14.0, 1250.0),
+            [20.0, 50.0, 100.0, 200.0, 500.0, 1000.0]
+        );
+        assert_eq!(log_ticks(0.8, 30.0), [1.0, 2.0, 5.0, 10.0, 20.0]);
+        assert_eq!(log_ticks(3.0, 4.5), [3.0, 4.0]);
+        let labels: Vec<String> = [0.05, 2.0, 1000.0].iter().map(tick_label).collect();
+        assert_eq!(labels, ["0.05", "2", "1000"]);
+    }
 
     #[test]
     fn a_clipped_burst_block_is_marked_with_its_rate() {
