@@ -281,7 +281,8 @@ fn cluster_recluster_label_assign() {
     let out = dir.path().join("thumbs");
     let written = render_family_thumbnails(&conn, &w.src, &out, 2).unwrap();
     assert_eq!(written.len(), 2 * fams2.iter().filter(|f| !f.novel).count());
-    assert!(image::open(&written[0]).is_ok());
+    assert!(image::open(&written[0].path).is_ok());
+    assert_eq!(written[0].extent.span_s, 2.0);
     assert!(render_trigger_thumbnail(&conn, 999_999, &w.src, &out.join("x.png")).is_err());
 }
 

@@ -1,6 +1,7 @@
 //! The static report: content, escaping, and a real headless browser.
 use crate::rates_catalogue::{demo_catalogue, T0};
 use glitchbook::catalogue::open;
+use glitchbook::families::{ImageExtent, Thumbnail};
 use glitchbook::report::{gather, html_escape, write_report, ReportParams, VETO_CAUTION};
 use rusqlite::params;
 use std::path::{Path, PathBuf};
@@ -8,7 +9,7 @@ use std::process::Command;
 
 /// Add one witness run with stats, a lag histogram and veto rounds, and
 /// write two small PNG "spectrograms" (gradients made here).
-fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<(i64, PathBuf)> {
+fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
     let c = open(db).unwrap();
     c.execute(
         "INSERT INTO witness_runs (id, kind, created_utc, params_json, tool_version)
@@ -21,7 +22,8 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<(i64, PathBuf)> {
         "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, snr_threshold, window_s, n_target,
            n_coinc, n_aux, n_aux_used, vetoed_s, analysed_s, deadtime, efficiency, use_percentage,
            expected, significance, efficiency_over_deadtime)
-         VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 35.6, 0.52, 250.3, 573.4)",
+         VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 35.6, 0.52, 250.3, 573.4),
+                (1, 1, 2, 12.0, 0.1, 480, 200, 400, 210, 60.0, 82800.0, 0.00072, 0.417, 52.5, 0.21, 77.7, 579.2)",
         [],
     )
     .unwrap();
@@ -51,7 +53,19 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<(i64, PathBuf)> {
         });
         let p = dir.join(format!("spec{k}.png"));
         img.save(&p).unwrap();
-        out.push((1, p));
+        out.push(Thumbnail {
+            family_id: 1,
+            trigger_id: 40 + i64::from(k),
+            path: p,
+            t_peak_gps: T0 + 100.0 * f64::from(k),
+            f_peak_hz: 120.0,
+            snr: 12.5,
+            q: 9.0,
+            extent: ImageExtent {
+                span_s: 2.0,
+                f_edges_hz: (15.0, 2200.0),
+            },
+        });
     }
     out
 }
@@ -103,7 +117,18 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     assert!(html.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"));
     assert!(html.contains(VETO_CAUTION));
     assert!(html.contains("safety p"));
+    // The witness table shows each channel's best grid row only.
+    assert!(html.contains(">250.3<") && !html.contains(">77.7<"));
+    assert!(html.contains("(1 of 2 grid rows;"));
     assert!(html.contains("img/thumb_f1_0.png") && html.contains("img/thumb_f1_1.png"));
+    // Spectrograms are drawn with axes (16..2048 Hz in powers of two inside
+    // 15..2200 Hz), the trigger they show, and one colour scale.
+    assert!(html.contains("time from peak [s]") && html.contains("frequency [Hz]"));
+    assert!(
+        html.contains(">16</text>") && html.contains(">2048</text>") && !html.contains(">8</text>")
+    );
+    assert!(html.contains("trigger 41 · GPS"));
+    assert_eq!(html.matches("id=\"zscale\"").count(), 1);
     assert!(html.contains("img/lag_f1_0.svg"));
     assert!(html.contains("Catalogue: ") && html.contains(env!("CARGO_PKG_VERSION")));
     assert!(html.contains("id=\"novel\"") && !html.contains("No trigger was marked novel"));
@@ -181,7 +206,10 @@ fn report_renders_in_headless_chromium() {
     for id in 1..=3 {
         assert!(dom.contains(&format!("id=\"family-{id}\"")));
     }
-    assert!(dom.matches("<img").count() >= 8, "images in DOM");
+    assert!(
+        dom.matches("<img").count() + dom.matches("<image").count() >= 8,
+        "images in DOM"
+    );
     assert!(dom.contains("src=\"img/rate_f2.svg\"") && dom.contains("src=\"img/tf.svg\""));
     // The label is text, not a script element.
     assert!(!dom.contains("<script>alert(1)"), "label became markup");

@@ -4,6 +4,7 @@ use super::rates::RateFlags;
 use super::Global;
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
+use glitchbook::families::Thumbnail;
 use glitchbook::report::{gather, write_report, ReportParams};
 use rusqlite::Connection;
 use std::path::{Path, PathBuf};
@@ -48,9 +49,9 @@ impl ReportArgs {
     }
 }
 /// Spectrogram images of a few representative members of each family,
-/// computed from the scanned bundles, as (family id, PNG path). When the
-/// data can no longer be opened the report goes on without images (warned).
-pub fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<(i64, PathBuf)>> {
+/// computed from the scanned bundles. When the data can no longer be opened
+/// the report goes on without images (warned).
+pub fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<Thumbnail>> {
     let src = match glitchbook::maps::BundleMaps::from_catalogue(conn) {
         Ok(s) => s,
         Err(e) => {
@@ -58,21 +59,7 @@ pub fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<(i64, PathBuf
             return Ok(Vec::new());
         }
     };
-    let paths =
-        glitchbook::families::render_family_thumbnails(conn, &src, &out_dir.join("thumbs"), 3)?;
-    Ok(paths
-        .iter()
-        .filter_map(|p| {
-            let stem = p.file_stem()?.to_str()?;
-            let id = stem
-                .strip_prefix("family_")?
-                .split('_')
-                .next()?
-                .parse()
-                .ok()?;
-            Some((id, p.clone()))
-        })
-        .collect())
+    glitchbook::families::render_family_thumbnails(conn, &src, &out_dir.join("thumbs"), 3)
 }
 
 /// Run the command.

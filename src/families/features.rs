@@ -102,6 +102,16 @@ impl Fingerprint {
     }
 }
 
+/// Quality factor of a trigger's maps: its own Q, or 8 when it has none
+/// (imported triggers may lack one).
+pub fn map_q(trigger: &Trigger) -> f64 {
+    if trigger.q.is_finite() && trigger.q > 0.0 {
+        trigger.q
+    } else {
+        8.0
+    }
+}
+
 /// Compute the fingerprint of `trigger` (seen in `channel`) from `src`.
 ///
 /// # Errors
@@ -113,11 +123,7 @@ pub fn fingerprint(
     src: &dyn EnergyMapSource,
 ) -> Result<Fingerprint> {
     let freqs = map_freqs_hz();
-    let q = if trigger.q.is_finite() && trigger.q > 0.0 {
-        trigger.q
-    } else {
-        8.0
-    };
+    let q = map_q(trigger);
     let mut maps = Vec::with_capacity(SPANS_S.len() * MAP_LEN);
     for m in src.energy_maps(channel, trigger.t_peak, &SPANS_S, q, &freqs, N_TIMES)? {
         if m.len() != MAP_LEN {

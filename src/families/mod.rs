@@ -40,6 +40,6 @@ pub use store::{
     list_families, AssignReport, ClusterParams, ClusterReport, FamilyEvent, FamilyModel,
     FamilySummary,
 };
-pub use store::{render_family_thumbnails, render_trigger_thumbnail};
+pub use store::{render_family_thumbnails, render_trigger_thumbnail, ImageExtent, Thumbnail};
 pub mod thumbnail;
 pub use thumbnail::render_thumbnail;

@@ -3,6 +3,8 @@
 use super::gather::{ExampleTrigger, ReportData, VetoRow, WitnessRow};
 use super::plots::{self, family_colour, TfPoint};
 use super::VETO_CAUTION;
+use crate::families::thumbnail::{colour, Z_MAX, Z_MIN};
+use crate::families::Thumbnail;
 use crate::rates::RateSeries;
 use anyhow::{Context, Result};
 use std::collections::BTreeMap;
@@ -39,7 +41,9 @@ td.t{text-align:left}
 .prov{font-size:12px;color:#555;background:#efe9dc;padding:6px 10px;border-radius:4px;white-space:pre-wrap}
 .caution{border-left:6px solid #c2283d;background:#fbeaea;padding:8px 12px;font-weight:bold}
 .flag{color:#c2283d;font-weight:bold}
-.thumbs img{height:160px;margin:4px;border:1px solid #ccc}
+.thumbs figure{display:inline-block;margin:4px 10px 8px 0;vertical-align:top}
+.thumbs figcaption,.cbar{font-size:12px;color:#444}
+svg.spec text,svg.cbar text{font-family:sans-serif;font-size:10px;fill:#333}
 img.plot{max-width:100%;display:block;margin:6px 0}
 ";
 
@@ -70,7 +74,26 @@ fn trigger_table(o: &mut String, rows: &[ExampleTrigger]) {
     o.push_str("</table>\n");
 }
 
+/// The best grid setting (highest significance) of each aux channel, most
+/// significant channel first; the whole grid is one command away.
 fn witness_table(o: &mut String, rows: &[&WitnessRow]) {
+    let mut best: Vec<&WitnessRow> = Vec::new();
+    for w in rows {
+        match best.iter_mut().find(|b| b.aux_channel == w.aux_channel) {
+            Some(b) if w.significance > b.significance => *b = w,
+            Some(_) => {}
+            None => best.push(w),
+        }
+    }
+    best.sort_by(|a, b| b.significance.total_cmp(&a.significance));
+    let _ = writeln!(
+        o,
+        "<p>Each aux channel's best SNR threshold and window ({} of {} grid rows; \
+         every row: <code>glitchbook witnesses --all-rows</code>).</p>",
+        best.len(),
+        rows.len()
+    );
+    let rows = best;
     o.push_str(
         "<table><tr><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th><th>target</th><th>coincident</th>\
          <th>expected</th><th>significance</th><th>efficiency</th><th>deadtime</th><th>use percentage</th></tr>\n",
@@ -147,13 +170,112 @@ fn blocks_table(o: &mut String, s: &RateSeries) {
     o.push_str("</table>\n");
 }
 
-/// Write `out/index.html` and `out/img/*`. `thumbnails` are (family id, PNG
-/// path) pairs of example spectrograms made by the caller; they are copied
-/// into `out/img/`.
+/// Plot area of a spectrogram figure: left, top, width, height \[px\].
+const SPEC_BOX: (f64, f64, f64, f64) = (44.0, 6.0, 320.0, 160.0);
+
+/// An example spectrogram as inline SVG: the image `img/{name}` inside
+/// axes of time from the peak and log frequency, with the trigger named
+/// below.
+fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
+    let (x0, y0, w, h) = SPEC_BOX;
+    let (half, (f_lo, f_hi)) = (0.5 * t.extent.span_s, t.extent.f_edges_hz);
+    let y_of = |f: f64| y0 + h * (1.0 - (f / f_lo).ln() / (f_hi / f_lo).ln());
+    let _ = write!(
+        o,
+        "<figure><svg class=\"spec\" width=\"{}\" height=\"{}\" role=\"img\" aria-label=\"spectrogram of trigger {}\">\
+         <image href=\"img/{name}\" x=\"{x0}\" y=\"{y0}\" width=\"{w}\" height=\"{h}\" preserveAspectRatio=\"none\"/>\
+         <rect x=\"{x0}\" y=\"{y0}\" width=\"{w}\" height=\"{h}\" fill=\"none\" stroke=\"#888\"/>",
+        x0 + w + 8.0,
+        y0 + h + 34.0,
+        t.trigger_id
+    );
+    // Frequency ticks: powers of two inside the image.
+    let mut f = 2f64.powf(f_lo.log2().ceil());
+    while f <= f_hi {
+        let y = y_of(f);
+        let _ = write!(
+            o,
+            "<line x1=\"{}\" x2=\"{x0}\" y1=\"{y:.1}\" y2=\"{y:.1}\" stroke=\"#444\"/>\
+             <text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">{f:.0}</text>",
+            x0 - 4.0,
+            x0 - 6.0,
+            y + 3.5
+        );
+        f *= 2.0;
+    }
+    // Time ticks at quarters of the span.
+    for k in 0..=4 {
+        let dt = -half + 0.5 * half * f64::from(k);
+        let x = x0 + w * f64::from(k) / 4.0;
+        let _ = write!(
+            o,
+            "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"{}\" y2=\"{}\" stroke=\"#444\"/>\
+             <text x=\"{x:.1}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
+            y0 + h,
+            y0 + h + 4.0,
+            y0 + h + 15.0,
+            format!("{dt:.2}")
+                .trim_end_matches('0')
+                .trim_end_matches('.')
+        );
+    }
+    let _ = writeln!(
+        o,
+        "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">time from peak [s]</text>\
+         <text transform=\"translate(10 {:.1}) rotate(-90)\" text-anchor=\"middle\">frequency [Hz]</text></svg>\
+         <figcaption>trigger {} · GPS {:.3} · {:.1} Hz · SNR {:.1} · Q {:.1}</figcaption></figure>",
+        x0 + 0.5 * w,
+        y0 + h + 30.0,
+        y0 + 0.5 * h,
+        t.trigger_id,
+        t.t_peak_gps,
+        t.f_peak_hz,
+        t.snr,
+        t.q
+    );
+}
+
+/// The colour scale of the spectrograms (normalised energy), as inline SVG.
+fn colour_bar(o: &mut String) {
+    let (x0, w) = (SPEC_BOX.0, SPEC_BOX.2);
+    o.push_str("<svg class=\"cbar\" width=\"420\" height=\"42\" role=\"img\" aria-label=\"colour scale\"><defs><linearGradient id=\"zscale\">");
+    for k in 0..=16 {
+        let u = f64::from(k) / 16.0;
+        let [r, g, b] = colour(u);
+        let _ = write!(
+            o,
+            "<stop offset=\"{u:.4}\" stop-color=\"#{r:02x}{g:02x}{b:02x}\"/>"
+        );
+    }
+    let _ = write!(
+        o,
+        "</linearGradient></defs><rect x=\"{x0}\" y=\"4\" width=\"{w}\" height=\"12\" fill=\"url(#zscale)\" stroke=\"#888\"/>"
+    );
+    let (z0, z1) = (f64::from(Z_MIN), f64::from(Z_MAX));
+    let mut z = z0;
+    while z <= z1 + 1e-9 {
+        let x = x0 + w * (z - z0) / (z1 - z0);
+        let _ = write!(
+            o,
+            "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"16\" y2=\"20\" stroke=\"#444\"/><text x=\"{x:.1}\" y=\"30\" text-anchor=\"middle\">{z:.0}</text>"
+        );
+        z += 5.0;
+    }
+    let _ = writeln!(
+        o,
+        "<text x=\"{}\" y=\"40\" text-anchor=\"middle\">normalised energy (mean 1 in Gaussian noise; {z1:.0} and above saturate)</text></svg>",
+        x0 + 0.5 * w
+    );
+}
+
+/// Write `out/index.html` and `out/img/*`. `thumbnails` are example
+/// spectrograms made by the caller (see
+/// [`crate::families::render_family_thumbnails`]); the images are copied
+/// into `out/img/` and drawn with their axes.
 ///
 /// # Errors
 /// If the directory, a plot or a copy cannot be written.
-pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[(i64, PathBuf)]) -> Result<PathBuf> {
+pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Result<PathBuf> {
     let img = out.join("img");
     std::fs::create_dir_all(&img).with_context(|| format!("creating {}", img.display()))?;
     let r = &d.rates;
@@ -312,20 +434,17 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[(i64, PathBuf)]) -
             }
             blocks_table(&mut o, s);
         }
-        let thumbs: Vec<&PathBuf> = thumbnails
-            .iter()
-            .filter(|(id, _)| *id == f.id)
-            .map(|(_, p)| p)
-            .collect();
+        let thumbs: Vec<&Thumbnail> = thumbnails.iter().filter(|t| t.family_id == f.id).collect();
         if !thumbs.is_empty() {
             o.push_str("<h3>Example spectrograms</h3><div class=\"thumbs\">\n");
-            for (k, p) in thumbs.iter().enumerate() {
+            for (k, t) in thumbs.iter().enumerate() {
                 let name = format!("thumb_f{}_{k}.png", f.id);
-                std::fs::copy(p, img.join(&name))
-                    .with_context(|| format!("copying spectrogram {}", p.display()))?;
-                let _ = writeln!(o, "<img class=\"thumb\" src=\"img/{name}\" alt=\"example spectrogram {k} of family {}\">", f.id);
+                std::fs::copy(&t.path, img.join(&name))
+                    .with_context(|| format!("copying spectrogram {}", t.path.display()))?;
+                spectrogram_figure(&mut o, &name, t);
             }
             o.push_str("</div>\n");
+            colour_bar(&mut o);
         }
         if !f.examples.is_empty() {
             o.push_str("<h3>Loudest members</h3>\n");

@@ -78,10 +78,7 @@ pub fn rate_plot(
         .configure_mesh()
         .x_desc("hours since span start")
         .y_desc("rate per live hour")
-        .y_label_formatter(&|v| {
-            let t = format!("{v:.3}");
-            t.trim_end_matches('0').trim_end_matches('.').to_string()
-        })
+        .y_label_formatter(&plain_label)
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
         .map_err(err)?;
@@ -174,6 +171,18 @@ fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
         ticks
     } else {
         pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
+    }
+}
+
+/// A linear-axis tick value with at most three decimals and no trailing
+/// zeros (250, 0.5).
+fn plain_label(v: &f64) -> String {
+    let t = format!("{v:.3}");
+    let t = t.trim_end_matches('0').trim_end_matches('.');
+    if t == "-0" {
+        "0".to_string()
+    } else {
+        t.to_string()
     }
 }
 
@@ -353,6 +362,8 @@ pub fn lag_histogram(path: &Path, edges_s: &[f64], counts: &[f64], title: &str) 
         .configure_mesh()
         .x_desc("lag aux − target [s]")
         .y_desc("pairs")
+        .y_label_formatter(&plain_label)
+        .x_label_formatter(&plain_label)
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
         .map_err(err)?;
@@ -383,6 +394,11 @@ mod tests {
         assert_eq!(log_ticks(3.0, 4.5), [3.0, 4.0]);
         let labels: Vec<String> = [0.05, 2.0, 1000.0].iter().map(tick_label).collect();
         assert_eq!(labels, ["0.05", "2", "1000"]);
+        let labels: Vec<String> = [250.0, 0.5, -0.0001, -0.025]
+            .iter()
+            .map(plain_label)
+            .collect();
+        assert_eq!(labels, ["250", "0.5", "0", "-0.025"]);
     }
 
     #[test]
