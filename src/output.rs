@@ -6,7 +6,8 @@
 //! - `csv`: a header line then one line per row (RFC 4180 quoting by the
 //!   `csv` crate); `None` is an empty cell.
 //! - `table`: a header and columns padded to equal width (numeric columns
-//!   right-aligned); `None` is empty.
+//!   right-aligned); `None` is empty. Fractional numbers are rounded for
+//!   reading (see [`round_for_table`]); JSON and CSV keep every digit.
 //!
 //! User text (labels, notes, channel names) is written verbatim. In the
 //! table, control characters and bidirectional-override characters are
@@ -113,6 +114,33 @@ fn is_bidi_control(c: char) -> bool {
     matches!(c, '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}')
 }
 
+/// A fractional number as the table shows it: four decimals from 1 up (a
+/// GPS time to 0.1 ms), four significant digits below 1, trailing zeros
+/// dropped. Integers and text are kept as they are.
+pub fn round_for_table(cell: &str) -> String {
+    let Ok(v) = cell.parse::<f64>() else {
+        return cell.to_string();
+    };
+    if !cell.contains('.') || !v.is_finite() {
+        return cell.to_string();
+    }
+    let a = v.abs();
+    let s = if a == 0.0 || a >= 1.0 {
+        format!("{v:.4}")
+    } else if a >= 1e-4 {
+        let decimals = (3.0 - a.log10().floor()) as usize;
+        format!("{v:.decimals$}")
+    } else {
+        return format!("{v:.3e}");
+    };
+    let t = s.trim_end_matches('0').trim_end_matches('.');
+    if t == "-0" {
+        "0".to_string()
+    } else {
+        t.to_string()
+    }
+}
+
 fn is_numeric(cell: &str) -> bool {
     cell.is_empty() || cell.parse::<f64>().is_ok()
 }
@@ -126,7 +154,11 @@ fn write_table<T: Serialize + Default>(out: &mut dyn Write, rows: &[T]) -> Resul
     let head: Vec<String> = head.iter().map(|s| escape_control(s)).collect();
     let body: Vec<Vec<String>> = body
         .iter()
-        .map(|r| r.iter().map(|s| escape_control(s)).collect())
+        .map(|r| {
+            r.iter()
+                .map(|s| escape_control(&round_for_table(s)))
+                .collect()
+        })
         .collect();
     let ncol = head.len();
     let width = |s: &str| s.chars().count();
@@ -194,6 +226,36 @@ mod tests {
                 snr: None,
             },
         ]
+    }
+
+    #[test]
+    fn table_rounds_fractions_for_reading() {
+        let cells = [
+            "1400000213.21875",
+            "44.243429193549844",
+            "0.0014700000000000002",
+            "0.5",
+            "0.000000000001234",
+            "12",
+            "-0.00001",
+            "AV1:STRAIN",
+            "",
+        ];
+        let got: Vec<String> = cells.iter().map(|c| round_for_table(c)).collect();
+        assert_eq!(
+            got,
+            [
+                "1400000213.2188",
+                "44.2434",
+                "0.00147",
+                "0.5",
+                "1.234e-12",
+                "12",
+                "-1.000e-5",
+                "AV1:STRAIN",
+                ""
+            ]
+        );
     }
 
     #[test]

@@ -168,3 +168,40 @@ fn read_commands_refuse_missing_catalogue() {
     assert!(String::from_utf8_lossy(&out.stderr).contains("no catalogue here"));
     assert!(!d.db().exists(), "a read must not create a catalogue");
 }
+
+#[test]
+fn triggers_into_a_pipe_closed_early_is_quiet() {
+    // `glitchbook triggers | head -1`: the listing (well over a pipe buffer)
+    // meets a closed pipe; the command stops quietly with success, as
+    // command-line tools do (common practice).
+    let d = Dir::new();
+    let mut csv = String::from("time,frequency,snr,q\n");
+    for i in 0..20_000 {
+        csv.push_str(&format!(
+            "{}.25,{},{},6\n",
+            1_400_000_000 + i,
+            50 + i % 500,
+            6 + i % 9
+        ));
+    }
+    d.write("t.csv", &csv);
+    d.ok(&["import", "t.csv", "--channel", "Z1:TEST"]);
+    for format in ["table", "csv", "json"] {
+        let mut child = d
+            .cmd(&["triggers", "--format", format])
+            .stdout(std::process::Stdio::piped())
+            .stderr(std::process::Stdio::piped())
+            .spawn()
+            .unwrap();
+        let mut first = [0u8; 16];
+        std::io::Read::read_exact(child.stdout.as_mut().unwrap(), &mut first).unwrap();
+        drop(child.stdout.take());
+        let out = child.wait_with_output().unwrap();
+        assert!(out.status.success(), "{format}: {:?}", out.status);
+        assert!(
+            out.stderr.is_empty(),
+            "{format}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+    }
+}
