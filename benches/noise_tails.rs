@@ -9,36 +9,18 @@
 //! 3600 s). With `GLITCHBOOK_BENCH_EXPECTED=1` rows are normalised by the
 //! PSD-based expectation instead of the measured scale.
 
-use glitchbook::scan::{Conditioner, InMemory};
-use glitchbook::tf::{QPlan, Tiling};
-use rand::SeedableRng;
-use rand_distr::{Distribution, StandardNormal};
+mod common;
 
-fn env(name: &str, default: f64) -> f64 {
-    std::env::var(name)
-        .ok()
-        .and_then(|s| s.parse().ok())
-        .unwrap_or(default)
-}
+use glitchbook::scan::Conditioner;
+use glitchbook::tf::{QPlan, Tiling};
 
 fn main() {
-    let block = env("GLITCHBOOK_BENCH_BLOCK_S", 32.0);
-    let secs = env("GLITCHBOOK_BENCH_SECONDS", 3600.0);
+    let block = common::env_f64("GLITCHBOOK_BENCH_BLOCK_S").unwrap_or(32.0);
+    let secs = common::env_f64("GLITCHBOOK_BENCH_SECONDS").unwrap_or(3600.0);
     let expected = std::env::var("GLITCHBOOK_BENCH_EXPECTED").is_ok();
     let (fs, pad_s) = (4096.0, 2.0);
     let n = (fs * secs) as usize;
-    let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(7);
-    let data: Vec<f64> = (0..n)
-        .map(|_| {
-            let z: f64 = StandardNormal.sample(&mut rng);
-            1e-21 * z
-        })
-        .collect();
-    let src = InMemory {
-        data,
-        rate_hz: fs,
-        start_gps: 0.0,
-    };
+    let src = common::white_noise(secs, fs, 1e-21, 0.0, 7);
     let (bn, pad) = ((block * fs) as usize, (pad_s * fs) as usize);
     let tiling = Tiling {
         fmin: 16.0,

@@ -9,34 +9,18 @@
 //! to change the span, default 3600, and GLITCHBOOK_BENCH_BLOCK_S to set
 //! the block length instead of the default).
 
-use glitchbook::scan::{resolve_params, scan_source, Conditioner, InMemory, ScanParams};
+mod common;
+
+use glitchbook::scan::{resolve_params, scan_source, Conditioner, ScanParams};
 use glitchbook::tf::{QPlan, Tiling};
-use rand::SeedableRng;
-use rand_distr::{Distribution, StandardNormal};
 use std::time::Instant;
 
 fn main() {
-    let secs: f64 = std::env::var("GLITCHBOOK_BENCH_SECONDS")
-        .ok()
-        .and_then(|s| s.parse().ok())
-        .unwrap_or(3600.0);
+    let secs = common::env_f64("GLITCHBOOK_BENCH_SECONDS").unwrap_or(3600.0);
     let fs = 4096.0;
     let n = (fs * secs) as usize;
-    let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(1);
-    let data: Vec<f64> = (0..n)
-        .map(|_| {
-            let z: f64 = StandardNormal.sample(&mut rng);
-            1e-21 * z
-        })
-        .collect();
-    let src = InMemory {
-        data,
-        rate_hz: fs,
-        start_gps: 1_400_000_000.0,
-    };
-    let block_s: Option<f64> = std::env::var("GLITCHBOOK_BENCH_BLOCK_S")
-        .ok()
-        .and_then(|s| s.parse().ok());
+    let src = common::white_noise(secs, fs, 1e-21, 1_400_000_000.0, 1);
+    let block_s = common::env_f64("GLITCHBOOK_BENCH_BLOCK_S");
     let params = ScanParams {
         fmin: Some(16.0),
         fmax: Some(1024.0),

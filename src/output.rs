@@ -125,15 +125,24 @@ pub fn round_for_table(cell: &str) -> String {
         return cell.to_string();
     }
     let a = v.abs();
-    let s = if a == 0.0 || a >= 1.0 {
-        format!("{v:.4}")
+    if a == 0.0 || a >= 1.0 {
+        fixed(v, 4)
     } else if a >= 1e-4 {
-        let decimals = (3.0 - a.log10().floor()) as usize;
-        format!("{v:.decimals$}")
+        fixed(v, (3.0 - a.log10().floor()) as usize)
     } else {
-        return format!("{v:.3e}");
+        format!("{v:.3e}")
+    }
+}
+
+/// `v` with `decimals` decimals and the trailing zeros of the fraction
+/// dropped (`fixed(250.0, 3)` = "250", `fixed(-0.0001, 3)` = "0").
+pub fn fixed(v: f64, decimals: usize) -> String {
+    let s = format!("{v:.decimals$}");
+    let t = if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.')
+    } else {
+        &s
     };
-    let t = s.trim_end_matches('0').trim_end_matches('.');
     if t == "-0" {
         "0".to_string()
     } else {

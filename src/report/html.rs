@@ -214,9 +214,7 @@ fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
             y0 + h,
             y0 + h + 4.0,
             y0 + h + 15.0,
-            format!("{dt:.2}")
-                .trim_end_matches('0')
-                .trim_end_matches('.')
+            crate::output::fixed(dt, 2)
         );
     }
     let _ = writeln!(

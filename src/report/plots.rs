@@ -177,13 +177,7 @@ fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
 /// A linear-axis tick value with at most three decimals and no trailing
 /// zeros (250, 0.5).
 fn plain_label(v: &f64) -> String {
-    let t = format!("{v:.3}");
-    let t = t.trim_end_matches('0').trim_end_matches('.');
-    if t == "-0" {
-        "0".to_string()
-    } else {
-        t.to_string()
-    }
+    crate::output::fixed(*v, 3)
 }
 
 /// A tick value without trailing decimals (0.05, 2, 1000).
