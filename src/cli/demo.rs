@@ -15,6 +15,7 @@ use glitchbook::report::{self, ReportParams};
 use glitchbook::scan::{scan_channel, ScanParams};
 use rusqlite::Connection;
 use std::collections::HashMap;
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 use std::time::Instant;
@@ -51,7 +52,10 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
             }
         }
     }
-    let say = |m: String| println!("{m}");
+    // Progress lines; a reader that went away (`| head`) does not stop the demo.
+    let say = |m: String| {
+        let _ = writeln!(std::io::stdout(), "{m}");
+    };
 
     // 1. Scenario.
     let t = Instant::now();

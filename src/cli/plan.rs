@@ -5,6 +5,7 @@ use super::scan::ScanFlags;
 use super::{warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::plan::{self, PlanOptions, ShardState, SlurmOptions};
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 use std::time::Instant;
@@ -167,7 +168,7 @@ pub fn run(g: &Global, args: PlanArgs) -> Result<ExitCode> {
         p.channels.len(),
         t0.elapsed().as_secs_f64()
     ));
-    println!("{}", dir.join("run-array.sh").display());
+    writeln!(std::io::stdout(), "{}", dir.join("run-array.sh").display())?;
     g.info(&format!(
         "next: sbatch --wait {0}/run-array.sh  (or: glitchbook run-plan {0} --jobs J), \
          then glitchbook merge {0} --into CATALOGUE",

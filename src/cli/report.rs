@@ -7,6 +7,7 @@ use glitchbook::catalogue;
 use glitchbook::families::Thumbnail;
 use glitchbook::report::{gather, write_report, ReportParams};
 use rusqlite::Connection;
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
@@ -77,7 +78,7 @@ pub fn run(g: &Global, args: ReportArgs) -> Result<ExitCode> {
     let index = write_report(&data, &args.out, &thumbs)?;
     // Absolute, so it can be pasted into a browser from anywhere.
     let index = std::path::absolute(&index).unwrap_or(index);
-    println!("{}", index.display());
+    writeln!(std::io::stdout(), "{}", index.display())?;
     Ok(ExitCode::SUCCESS)
 }
 
