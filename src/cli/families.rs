@@ -255,7 +255,16 @@ pub fn run_thumbnail(g: &Global, a: ThumbnailArgs) -> Result<ExitCode> {
     }
     let conn = catalogue::open_existing(&g.db)?;
     let src = maps(&conn)?;
-    families::render_trigger_thumbnail(&conn, a.trigger_id, &src, &a.out)?;
-    g.info(&format!("wrote {}", a.out.display()));
+    let e = families::render_trigger_thumbnail(&conn, a.trigger_id, &src, &a.out)?;
+    g.info(&format!(
+        "wrote {}: time ±{} s around the peak left to right, {:.1}–{:.0} Hz (log) bottom to top, \
+         normalised energy {}–{} dark to light",
+        a.out.display(),
+        0.5 * e.span_s,
+        e.f_edges_hz.0,
+        e.f_edges_hz.1,
+        families::thumbnail::Z_MIN,
+        families::thumbnail::Z_MAX
+    ));
     Ok(ExitCode::SUCCESS)
 }
