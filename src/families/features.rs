@@ -74,9 +74,14 @@ pub trait EnergyMapSource: Sync {
 
 /// The fixed log-frequency grid of the maps \[Hz\].
 pub fn map_freqs_hz() -> Vec<f64> {
-    let r = (F_MAX_HZ / F_MIN_HZ).ln();
-    (0..N_FREQS)
-        .map(|i| F_MIN_HZ * (r * i as f64 / (N_FREQS - 1) as f64).exp())
+    log_grid(F_MIN_HZ, F_MAX_HZ, N_FREQS)
+}
+
+/// `n ≥ 2` frequencies from `lo` to `hi` inclusive, evenly spaced in log.
+pub fn log_grid(lo: f64, hi: f64, n: usize) -> Vec<f64> {
+    let r = (hi / lo).ln();
+    (0..n)
+        .map(|i| lo * (r * i as f64 / (n - 1) as f64).exp())
         .collect()
 }
 

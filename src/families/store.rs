@@ -2,8 +2,8 @@
 //! stable ids, assignment of new triggers, labels and listings.
 
 use super::features::{
-    blob_to_f32, f32_to_blob, fingerprint, EnergyMapSource, FEATURE_VERSION, MAP_LEN, N_FREQS,
-    N_SCALARS, N_TIMES, SPANS_S,
+    blob_to_f32, f32_to_blob, fingerprint, EnergyMapSource, FEATURE_VERSION, F_MAX_HZ, F_MIN_HZ,
+    MAP_LEN, N_FREQS, N_SCALARS, N_TIMES, SPANS_S,
 };
 use super::gmm::{fit_auto_k, seeded_subset, Gmm, GmmParams};
 use super::hungarian;
@@ -1154,11 +1154,7 @@ pub fn render_trigger_thumbnail(
     path: &std::path::Path,
 ) -> Result<ImageExtent> {
     if let Ok(Some(row)) = trigger_row(conn, trigger_id) {
-        let f = super::features::F_MIN_HZ;
-        let r = (super::features::F_MAX_HZ / f).ln();
-        let freqs: Vec<f64> = (0..IMAGE_FREQS)
-            .map(|i| f * (r * i as f64 / (IMAGE_FREQS - 1) as f64).exp())
-            .collect();
+        let freqs = super::features::log_grid(F_MIN_HZ, F_MAX_HZ, IMAGE_FREQS);
         let q = super::features::map_q(&row.trig);
         if let Ok(map) = src.energy_map(
             &row.channel,
