@@ -116,7 +116,8 @@ fn is_bidi_control(c: char) -> bool {
 
 /// A fractional number as the table shows it: four decimals from 1 up (a
 /// GPS time to 0.1 ms), four significant digits below 1, trailing zeros
-/// dropped. Integers and text are kept as they are.
+/// dropped; four significant digits in exponent form below 1e-4 and from
+/// 1e16. Integers and text are kept as they are.
 pub fn round_for_table(cell: &str) -> String {
     let Ok(v) = cell.parse::<f64>() else {
         return cell.to_string();
@@ -125,7 +126,9 @@ pub fn round_for_table(cell: &str) -> String {
         return cell.to_string();
     }
     let a = v.abs();
-    if a == 0.0 || a >= 1.0 {
+    if a >= 1e16 {
+        format!("{v:.3e}")
+    } else if a == 0.0 || a >= 1.0 {
         fixed(v, 4)
     } else if a >= 1e-4 {
         fixed(v, (3.0 - a.log10().floor()) as usize)
@@ -247,6 +250,8 @@ mod tests {
             "0.000000000001234",
             "12",
             "-0.00001",
+            "2.5e22",
+            "1e-7",
             "AV1:STRAIN",
             "",
         ];
@@ -261,6 +266,8 @@ mod tests {
                 "1.234e-12",
                 "12",
                 "-1.000e-5",
+                "2.500e22",
+                "1e-7",
                 "AV1:STRAIN",
                 ""
             ]
