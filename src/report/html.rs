@@ -45,6 +45,7 @@ td.t{text-align:left}
 .thumbs figcaption,.cbar{font-size:12px;color:#444}
 svg.spec text,svg.cbar text{font-family:sans-serif;font-size:10px;fill:#333}
 img.plot{max-width:100%;display:block;margin:6px 0}
+table.veto{font-size:12px}
 ";
 
 fn f3(x: f64) -> String {
@@ -120,33 +121,40 @@ fn witness_table(o: &mut String, rows: &[&WitnessRow]) {
 
 fn veto_table(o: &mut String, rows: &[&VetoRow]) {
     let _ = writeln!(o, "<p class=\"caution\">{}</p>", html_escape(VETO_CAUTION));
+    // Safety first after the setting: it is what decides a proposal.
     o.push_str(
-        "<table><tr><th>round</th><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th><th>efficiency</th>\
-         <th>deadtime</th><th>use percentage</th><th>significance</th><th>cumulative efficiency</th>\
-         <th>cumulative deadtime</th><th>injections vetoed</th><th>injections expected</th><th>safety p</th>\
-         <th>safe</th><th>proposed</th></tr>\n",
+        "<table class=\"veto\"><tr><th>round</th><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th>\
+         <th>safe</th><th>safety p</th><th>injections vetoed / expected</th><th>proposed</th>\
+         <th>efficiency</th><th>deadtime</th><th>use %</th><th>significance</th>\
+         <th>cumulative efficiency / deadtime</th></tr>\n",
     );
     let opt = |v: Option<f64>, p: usize| v.map(|x| format!("{x:.p$}")).unwrap_or("-".into());
     for v in rows {
         let _ = writeln!(
             o,
-            "<tr><td>{}</td><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{:.3}</td><td>{:.2e}</td><td>{:.3}</td>\
-             <td>{:.1}</td><td>{:.3}</td><td>{:.2e}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            "<tr><td>{}</td><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{}</td><td>{}</td><td>{} / {}</td>\
+             <td>{}</td><td>{:.3}</td><td>{:.2e}</td><td>{:.1}</td><td>{:.1}</td><td>{:.3} / {:.2e}</td></tr>",
             v.round,
             html_escape(&v.aux_channel),
             v.snr_threshold,
             v.window_s,
+            if v.safe { "yes" } else { "<span class=\"flag\">NO</span>" },
+            v.safety_p
+                .map(|x| if x >= 1e-3 {
+                    crate::output::fixed(x, 3)
+                } else {
+                    format!("{x:.2e}")
+                })
+                .unwrap_or("-".into()),
+            v.n_inj_vetoed.map(|n| n.to_string()).unwrap_or("-".into()),
+            opt(v.inj_expected, 2),
+            if v.proposed { "yes" } else { "no" },
             v.efficiency,
             v.deadtime,
             v.use_percentage,
             v.significance,
             v.cum_efficiency,
             v.cum_deadtime,
-            v.n_inj_vetoed.map(|n| n.to_string()).unwrap_or("-".into()),
-            opt(v.inj_expected, 2),
-            v.safety_p.map(|x| format!("{x:.2e}")).unwrap_or("-".into()),
-            if v.safe { "yes" } else { "<span class=\"flag\">NO</span>" },
-            if v.proposed { "yes" } else { "no" }
         );
     }
     o.push_str("</table>\n");
