@@ -639,3 +639,63 @@ pub fn write_npy(path: &Path, data: &[f64], as_f32: bool) -> anyhow::Result<()> 
         .with_context(|| format!("writing {}", path.display()))?;
     Ok(())
 }
+
+#[cfg(test)]
+mod tests {
+    use super::finite_runs;
+
+    /// Finite runs found one sample at a time, the plain way.
+    fn runs_by_hand(x: &[f64]) -> Vec<(usize, usize)> {
+        let mut out = Vec::new();
+        let mut start = None;
+        for (i, v) in x.iter().enumerate() {
+            match (v.is_finite(), start) {
+                (true, None) => start = Some(i),
+                (false, Some(s)) => {
+                    out.push((s, i));
+                    start = None;
+                }
+                _ => {}
+            }
+        }
+        if let Some(s) = start {
+            out.push((s, x.len()));
+        }
+        out
+    }
+
+    #[test]
+    fn runs_match_a_sample_by_sample_scan_for_any_chunking() {
+        // Dropouts of assorted lengths at positions that straddle the
+        // 64-sample sub-chunks and the read chunks.
+        let mut x = vec![1.0; 1000];
+        for &(a, b) in &[
+            (0, 2),
+            (63, 65),
+            (127, 128),
+            (200, 330),
+            (511, 512),
+            (640, 641),
+            (998, 1000),
+        ] {
+            for v in &mut x[a..b] {
+                *v = f64::NAN;
+            }
+        }
+        x[700] = f64::INFINITY;
+        let want = runs_by_hand(&x);
+        for chunk in [1, 7, 63, 64, 65, 100, 1000, 4096] {
+            let got = finite_runs(
+                x.len(),
+                chunk,
+                |first, buf| {
+                    buf.copy_from_slice(&x[first..first + buf.len()]);
+                    Ok(())
+                },
+                |_| {},
+            )
+            .unwrap();
+            assert_eq!(got, want, "chunk {chunk}");
+        }
+    }
+}
