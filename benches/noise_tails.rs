@@ -12,7 +12,7 @@
 mod common;
 
 use glitchbook::scan::Conditioner;
-use glitchbook::tf::{QPlan, Tiling};
+use glitchbook::tf::QPlan;
 
 fn main() {
     let block = common::env_f64("GLITCHBOOK_BENCH_BLOCK_S").unwrap_or(32.0);
@@ -22,14 +22,8 @@ fn main() {
     let n = (fs * secs) as usize;
     let src = common::white_noise(secs, fs, 1e-21, 0.0, 7);
     let (bn, pad) = ((block * fs) as usize, (pad_s * fs) as usize);
-    let tiling = Tiling {
-        fmin: 16.0,
-        fmax: 1024.0,
-        qmin: 4.0,
-        qmax: 64.0,
-        mismatch: 0.2,
-    };
-    let highpass = (8.0, 14.4);
+    let tiling = common::TILING;
+    let highpass = common::HIGHPASS;
     let plan = QPlan::new(fs, bn, &tiling, highpass, &mut rustfft::FftPlanner::new()).unwrap();
     let cond = Conditioner::new(bn, fs, pad, 4096, highpass)
         .unwrap()

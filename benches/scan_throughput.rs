@@ -12,7 +12,7 @@
 mod common;
 
 use glitchbook::scan::{resolve_params, scan_source, Conditioner, ScanParams};
-use glitchbook::tf::{QPlan, Tiling};
+use glitchbook::tf::QPlan;
 use std::time::Instant;
 
 fn main() {
@@ -41,18 +41,12 @@ fn main() {
     let block_n = (rp.block_s * fs) as usize;
     let step = block_n - 2 * (rp.pad_s * fs) as usize;
     let n_blocks = (n - block_n).div_ceil(step) + 1;
-    let tiling = Tiling {
-        fmin: 16.0,
-        fmax: 1024.0,
-        qmin: 4.0,
-        qmax: 64.0,
-        mismatch: 0.2,
-    };
+    let tiling = common::TILING;
     let plan = QPlan::new(
         fs,
         block_n,
         &tiling,
-        (8.0, 14.4),
+        common::HIGHPASS,
         &mut rustfft::FftPlanner::new(),
     )
     .unwrap();
@@ -78,7 +72,7 @@ fn main() {
     // Conditioning alone (read, Welch PSD, taper, FFT, whitening) for the same blocks.
     let pad = (rp.pad_s * fs) as usize;
     let welch_n = (rp.welch_s * fs) as usize;
-    let cond = Conditioner::new(block_n, fs, pad, welch_n, (8.0, 14.4))
+    let cond = Conditioner::new(block_n, fs, pad, welch_n, common::HIGHPASS)
         .unwrap()
         .with_top(plan.top_hz());
     let mut bufs = cond.buffers();

@@ -2,6 +2,7 @@
 #![allow(dead_code)]
 
 use glitchbook::scan::InMemory;
+use glitchbook::tf::Tiling;
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
 
@@ -26,3 +27,15 @@ pub fn white_noise(secs: f64, fs_hz: f64, sigma: f64, start_gps: f64, seed: u64)
 pub fn env_f64(name: &str) -> Option<f64> {
     std::env::var(name).ok().and_then(|s| s.parse().ok())
 }
+
+/// The benchmark plan: fmin 16, fmax 1024, Q 4–64, mismatch 0.2.
+pub const TILING: Tiling = Tiling {
+    fmin: 16.0,
+    fmax: 1024.0,
+    qmin: 4.0,
+    qmax: 64.0,
+    mismatch: 0.2,
+};
+
+/// The scan's high-pass for that plan: raised cosine from fmin/2 to 0.9 fmin \[Hz\].
+pub const HIGHPASS: (f64, f64) = (8.0, 14.4);
