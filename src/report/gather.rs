@@ -364,12 +364,17 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     })
 }
 
+/// Witness rows of `run`, best first within each target set in the order
+/// of [`crate::coupling::better`] (significance, efficiency over deadtime,
+/// deadtime, channel, threshold, window), so a channel's first row is the
+/// one `glitchbook witnesses` lists as its best.
 fn read_witnesses(conn: &Connection, run: i64) -> Result<Vec<WitnessRow>> {
     let mut stmt = conn.prepare(
         "SELECT w.family_id, coalesce(c.name, 'channel ' || w.aux_channel_id), w.snr_threshold, w.window_s, \
          w.n_target, w.n_coinc, w.expected, w.significance, w.efficiency, w.deadtime, w.use_percentage \
          FROM witness_stats w LEFT JOIN channels c ON c.id = w.aux_channel_id WHERE w.run_id = ?1 \
-         ORDER BY w.family_id, w.significance DESC",
+         ORDER BY w.family_id, w.significance DESC, w.efficiency_over_deadtime DESC, w.deadtime, \
+         2, w.snr_threshold DESC, w.window_s",
     )?;
     let rows = stmt
         .query_map(params![run], |r| {

@@ -75,18 +75,17 @@ fn trigger_table(o: &mut String, rows: &[ExampleTrigger]) {
     o.push_str("</table>\n");
 }
 
-/// The best grid setting (highest significance) of each aux channel, most
-/// significant channel first; the whole grid is one command away.
+/// The best grid setting of each aux channel: `rows` come best first (see
+/// `gather::read_witnesses`), so that is each channel's first row, and the
+/// channels stay in the order of their best rows. The whole grid is one
+/// command away.
 fn witness_table(o: &mut String, rows: &[&WitnessRow]) {
     let mut best: Vec<&WitnessRow> = Vec::new();
     for w in rows {
-        match best.iter_mut().find(|b| b.aux_channel == w.aux_channel) {
-            Some(b) if w.significance > b.significance => *b = w,
-            Some(_) => {}
-            None => best.push(w),
+        if !best.iter().any(|b| b.aux_channel == w.aux_channel) {
+            best.push(w);
         }
     }
-    best.sort_by(|a, b| b.significance.total_cmp(&a.significance));
     let _ = writeln!(
         o,
         "<p>Each aux channel's best SNR threshold and window ({} of {} grid rows; \
