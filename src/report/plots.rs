@@ -182,12 +182,12 @@ fn plain_label(v: &f64) -> String {
 
 /// A tick value without trailing decimals (0.05, 2, 1000).
 fn tick_label(v: &f64) -> String {
-    if *v >= 1.0 || *v <= 0.0 {
-        format!("{v:.0}")
+    let digits = if *v > 0.0 && *v < 1.0 {
+        (-v.log10()).ceil() as usize
     } else {
-        let digits = (-v.log10()).ceil() as usize;
-        format!("{v:.digits$}")
-    }
+        0
+    };
+    crate::output::fixed(*v, digits)
 }
 
 /// One point of the time-frequency scatter.
