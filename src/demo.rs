@@ -189,35 +189,7 @@ pub fn sine_gaussian_energy(a: f64, f0_hz: f64, q: f64) -> f64 {
     a * a * q * (PI / 2.0).sqrt() / (4.0 * PI * f0_hz)
 }
 
-/// Matched-filter SNR of the sampled waveform `h` (sampling rate `fs_hz`)
-/// in noise of one-sided PSD `psd(f)`: `ρ² = 4 Σ_k |h̃(f_k)|² Δf / S(f_k)`,
-/// `h̃ = FFT(h)/fs`, `Δf = fs/N`, summed over 0 < f_k < Nyquist plus half
-/// weight at the Nyquist bin. `h` is zero-padded to at least one second and
-/// to a power of two so the frequency grid is ≤ 1 Hz.
-pub fn matched_filter_snr(h: &[f64], fs_hz: f64, psd: &dyn Fn(f64) -> f64) -> f64 {
-    let n = h
-        .len()
-        .max(fs_hz.ceil() as usize)
-        .next_power_of_two()
-        .max(2);
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(n);
-    let mut input = fft.make_input_vec();
-    input[..h.len()].copy_from_slice(h);
-    let mut spec = fft.make_output_vec();
-    fft.process(&mut input, &mut spec)
-        .expect("buffer sizes come from the plan");
-    let df = fs_hz / n as f64;
-    let mut rho2 = 0.0;
-    for (k, c) in spec.iter().enumerate().skip(1) {
-        let s = psd(k as f64 * df);
-        if !(s > 0.0 && s.is_finite()) {
-            continue;
-        }
-        let w = if k == n / 2 { 0.5 } else { 1.0 };
-        rho2 += w * 4.0 * c.norm_sqr() / (fs_hz * fs_hz) * df / s;
-    }
-    rho2.sqrt()
-}
+pub use crate::waveforms::matched_filter_snr;
 
 /// The unit-amplitude sine-Gaussian sampled at `fs_hz` on a window of
 /// ± [`sine_gaussian_half_width_s`] centred on a sample.

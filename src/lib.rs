@@ -20,3 +20,4 @@ pub mod scan;
 pub mod segments;
 pub mod tf;
 pub mod trigger;
+pub mod waveforms;
