@@ -245,9 +245,9 @@ impl Waveform {
     }
 
     /// The waveform sampled at `fs_hz` on the samples nearest its support:
-    /// `(first, values)` where `values[i]` is at offset `(first + i) / fs_hz
-    /// + frac_s` from the reference time; `frac_s` in `[0, 1/fs)` places the
-    /// reference time between samples.
+    /// `(first, values)` where `values[i]` is at offset
+    /// `(first + i) / fs_hz − frac_s` from the reference time; `frac_s` in
+    /// `[0, 1/fs)` places the reference time between samples.
     pub fn sampled(&self, fs_hz: f64, frac_s: f64) -> (i64, Vec<f64>) {
         let m = (self.half_width_s() * fs_hz).ceil() as i64 + 1;
         let vals = (-m..=m)
