@@ -210,6 +210,13 @@ mod tests {
         assert_eq!(to_ns(1_400_000_010.25), 1_400_000_010_250_000_000);
         assert_eq!(to_ns(-1.5), -1_500_000_000);
     }
+
+    #[test]
+    fn utc_format() {
+        let s = now_utc();
+        assert_eq!(s.len(), 20);
+        assert!(s.starts_with("20") && s.ends_with('Z'));
+    }
 }
 
 #[cfg(test)]

@@ -117,7 +117,7 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         rep.run_id
     ));
     for e in &rep.events {
-        if e.kind != "kept" {
+        if e.kind != families::EventKind::Kept {
             let other = e
                 .other_family_id
                 .map(|o| format!(" (with family {o})"))
