@@ -7,6 +7,7 @@ use std::process::ExitCode;
 
 mod channels;
 mod check;
+mod common;
 mod demo;
 mod families;
 mod import;
@@ -132,14 +133,6 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Merge(a) => plan::run_merge(g, a),
         Command::DemoData(a) => plan::run_demo_data(g, a),
         Command::CompareCatalogues(a) => plan::run_compare(g, a),
-    }
-}
-
-/// Parse an optional finite number flag.
-pub fn finite(name: &str, v: Option<f64>) -> anyhow::Result<Option<f64>> {
-    match v {
-        Some(x) if !x.is_finite() => anyhow::bail!("--{name} must be a finite number, got {x}"),
-        _ => Ok(v),
     }
 }
 

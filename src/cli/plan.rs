@@ -1,7 +1,7 @@
 //! Scale-out commands: `plan` (and `plan status`), `run-plan`, `merge`,
-//! `scan --shard K --plan DIR`, and two hidden helpers for the end-to-end
+//! and two hidden helpers for the end-to-end
 //! check (`demo-data`, `compare-catalogues`).
-use super::scan::ScanFlags;
+use super::common::{shard_command, ScanFlags};
 use super::{warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::plan::{self, PlanOptions, ShardState, SlurmOptions};
@@ -159,7 +159,7 @@ pub fn run(g: &Global, args: PlanArgs) -> Result<ExitCode> {
         );
     }
     let t0 = Instant::now();
-    let p = plan::make_plan(&args.bundles, &opts, out)?;
+    let p = plan::make_plan(&args.bundles, &opts, out, &shard_command())?;
     let dir = std::fs::canonicalize(out).unwrap_or_else(|_| out.clone());
     g.info(&format!(
         "plan {}: {} shards over {} channels in {:.1} s",
@@ -187,32 +187,6 @@ fn run_status(dir: &Path) -> Result<ExitCode> {
     })
 }
 
-/// `scan --shard K --plan DIR`: scan shard K and write the plan's own
-/// catalogue for it, `DIR/shards/shard-K.db` (the global --db is not used).
-pub fn run_shard(g: &Global, k: usize, dir: &Path) -> Result<ExitCode> {
-    let t0 = Instant::now();
-    let db = plan::run_shard(dir, k)?;
-    let same = |a: &Path, b: &Path| {
-        std::fs::canonicalize(a)
-            .ok()
-            .zip(std::fs::canonicalize(b).ok())
-            .is_some_and(|(x, y)| x == y)
-    };
-    if !same(&g.db, &db) && g.db != Path::new("glitchbook.db") {
-        warn(&format!(
-            "--db {} is not used with --shard: the shard catalogue is {}",
-            g.db.display(),
-            db.display()
-        ));
-    }
-    g.info(&format!(
-        "shard {k}: wrote {} in {:.1} s",
-        db.display(),
-        t0.elapsed().as_secs_f64()
-    ));
-    Ok(ExitCode::SUCCESS)
-}
-
 /// Run the shards of a plan on this machine.
 #[derive(Debug, clap::Args)]
 pub struct RunPlanArgs {
@@ -236,7 +210,7 @@ pub fn run_plan(g: &Global, args: RunPlanArgs) -> Result<ExitCode> {
         .count();
     let exe = std::env::current_exe()?;
     let t0 = Instant::now();
-    let res = plan::run_local(&args.dir, args.jobs, &exe);
+    let res = plan::run_local(&args.dir, args.jobs, &exe, &shard_command());
     let secs = t0.elapsed().as_secs_f64();
     let st = plan::status(&args.dir)?;
     print!("{}", plan::status_text(&st));

@@ -1,6 +1,6 @@
 //! `glitchbook report`: a static HTML report (no network, no JavaScript) of
 //! the catalogue: channels, families, rates, witnesses and veto proposals.
-use super::rates::RateFlags;
+use super::common::RateFlags;
 use super::Global;
 use anyhow::{bail, Result};
 use glitchbook::catalogue;

@@ -1,5 +1,6 @@
 //! `glitchbook triggers`: list stored triggers.
-use super::{finite, Global};
+use super::common::finite;
+use super::Global;
 use anyhow::{bail, Result};
 use glitchbook::catalogue::{self, TriggerQuery};
 use glitchbook::output::{write_rows, Format};

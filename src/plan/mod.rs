@@ -30,7 +30,7 @@ pub use compare::{compare_catalogues, ChannelComparison, Comparison};
 pub use merge::{merge, MergeReport};
 pub use run::{
     clip_to_shard, run_local, run_shard, run_shard_with, shard_db_path, status, status_text,
-    write_shard_catalogue, ShardState, ShardStatus,
+    write_shard_catalogue, ShardArg, ShardCommand, ShardState, ShardStatus,
 };
 pub use slurm::{slurm_script, SlurmOptions};
 
@@ -193,11 +193,17 @@ pub(crate) fn from_pairs(p: &[[f64; 2]]) -> SegmentList {
 }
 
 /// Survey the channels of `bundles` (reads every sample once for dropouts)
-/// and write a plan to `out_dir` (see [`make_plan_from_channels`]).
+/// and write a plan to `out_dir` (see [`make_plan_from_channels`]); the
+/// batch script runs `shard_command` for each shard.
 ///
 /// # Errors
 /// Unreadable bundles, segment files or sample files; bad options.
-pub fn make_plan(bundles: &[PathBuf], opts: &PlanOptions, out_dir: &Path) -> Result<Plan> {
+pub fn make_plan(
+    bundles: &[PathBuf],
+    opts: &PlanOptions,
+    out_dir: &Path,
+    shard_command: &ShardCommand,
+) -> Result<Plan> {
     let mut channels = Vec::new();
     for dir in bundles {
         let bundle = crate::io::Bundle::open(dir)?;
@@ -231,7 +237,7 @@ pub fn make_plan(bundles: &[PathBuf], opts: &PlanOptions, out_dir: &Path) -> Res
         Some(p) => Some(crate::io::read_segments_file(p)?.0),
         None => None,
     };
-    make_plan_from_channels(channels, segments.as_ref(), opts, out_dir)
+    make_plan_from_channels(channels, segments.as_ref(), opts, out_dir, shard_command)
 }
 
 /// Build a [`PlanChannel`] (resolving the parameters for its rate).
@@ -371,7 +377,8 @@ pub fn usable_time(ch: &PlanChannel, segments: Option<&SegmentList>) -> SegmentL
 }
 
 /// Lay out the shards for surveyed channels and write the work directory
-/// (`plan.json`, `run-array.sh`, `README.txt`, `shards/`, `logs/`, `status/`).
+/// (`plan.json`, `run-array.sh` running `shard_command` per shard,
+/// `README.txt`, `shards/`, `logs/`, `status/`).
 ///
 /// # Errors
 /// No channels, bad options, or an unwritable `out_dir`.
@@ -380,6 +387,7 @@ pub fn make_plan_from_channels(
     segments: Option<&SegmentList>,
     opts: &PlanOptions,
     out_dir: &Path,
+    shard_command: &ShardCommand,
 ) -> Result<Plan> {
     if channels.is_empty() {
         bail!("plan: no channels in the given bundles");
@@ -436,11 +444,11 @@ pub fn make_plan_from_channels(
     let body = serde_json::to_vec(&plan)?;
     plan.plan_id = format!("{:032x}", xxhash_rust::xxh3::xxh3_128(&body));
     plan.created_utc = now_utc();
-    write_plan_dir(&plan, out_dir)?;
+    write_plan_dir(&plan, out_dir, shard_command)?;
     Ok(plan)
 }
 
-fn write_plan_dir(plan: &Plan, out_dir: &Path) -> Result<()> {
+fn write_plan_dir(plan: &Plan, out_dir: &Path, shard_command: &ShardCommand) -> Result<()> {
     for sub in ["", "shards", "logs", "status"] {
         let d = out_dir.join(sub);
         std::fs::create_dir_all(&d).with_context(|| format!("creating {}", d.display()))?;
@@ -451,7 +459,7 @@ fn write_plan_dir(plan: &Plan, out_dir: &Path) -> Result<()> {
         std::fs::write(&p, text).with_context(|| format!("writing {}", p.display()))
     };
     write("plan.json", &serde_json::to_string_pretty(plan)?)?;
-    write("run-array.sh", &slurm_script(plan, &dir))?;
+    write("run-array.sh", &slurm_script(plan, &dir, shard_command))?;
     #[cfg(unix)]
     {
         use std::os::unix::fs::PermissionsExt;

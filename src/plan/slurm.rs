@@ -1,5 +1,5 @@
 //! The Slurm batch script (one job array over the shards) and the README note.
-use super::Plan;
+use super::{Plan, ShardCommand};
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 
@@ -41,8 +41,22 @@ fn sq(s: &str) -> String {
     format!("'{}'", s.replace('\'', r"'\''"))
 }
 
-/// The batch script for `plan` living in `dir` (absolute).
-pub fn slurm_script(plan: &Plan, dir: &Path) -> String {
+/// A shell word for `s`: as is when it holds only characters the shell
+/// leaves alone, else single-quoted.
+pub(crate) fn shell_word(s: &str) -> String {
+    let plain = !s.is_empty()
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || "-_./=:,+@%".contains(c));
+    if plain {
+        s.to_string()
+    } else {
+        sq(s)
+    }
+}
+
+/// The batch script for `plan` living in `dir` (absolute); each array task
+/// runs the executable with the arguments of `command`.
+pub fn slurm_script(plan: &Plan, dir: &Path, command: &ShardCommand) -> String {
     let o = &plan.slurm;
     let n = plan.shards.len();
     let dir_s = dir.display().to_string();
@@ -82,7 +96,7 @@ if [ -n "${{GLITCHBOOK_SHARD_CMD:-}}" ]; then
     bash -c "$GLITCHBOOK_SHARD_CMD"
 else
     # The real per-shard scan: writes $DIR/shards/shard-$K.db atomically.
-    "$EXE" --db "$DIR/shards/shard-$K.db" scan --shard "$K" --plan "$DIR"
+    "$EXE" {args}
 fi
 rc=$?
 if [ $rc -ne 0 ]; then
@@ -94,6 +108,7 @@ exit $rc
         dir = sq(&dir_s),
         exe = sq(&o.exe),
         cpus = o.cpus,
+        args = command.shell_words(),
     ));
     s
 }
