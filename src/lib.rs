@@ -9,6 +9,7 @@ pub mod catalogue;
 pub mod condition;
 pub mod coupling;
 pub mod demo;
+pub mod error;
 pub mod families;
 pub mod io;
 pub mod maps;
@@ -21,3 +22,5 @@ pub mod segments;
 pub mod tf;
 pub mod trigger;
 pub mod waveforms;
+
+pub use error::{Error, Result};

@@ -15,7 +15,7 @@
 //! (union over a channel's scans), [`channels`], [`channel_by_name`];
 //! health: [`check`], [`table_counts`], [`logical_checksum`].
 
-use anyhow::{bail, Context, Result};
+use anyhow::{Context, Result};
 use rusqlite::Connection;
 use std::path::Path;
 
@@ -121,12 +121,12 @@ pub fn open(path: &Path) -> Result<Connection> {
             )
         })?;
     if version > schema_version() {
-        bail!(
-            "{}: catalogue schema version {version} is newer than this glitchbook supports ({}); \
-             use a newer glitchbook (the file was not modified)",
-            path.display(),
-            schema_version()
-        );
+        return Err(crate::Error::SchemaTooNew {
+            path: path.to_path_buf(),
+            found: version,
+            supported: schema_version(),
+        }
+        .into());
     }
     conn.pragma_update(None, "journal_mode", "WAL")?;
     conn.pragma_update(None, "foreign_keys", "ON")?;
@@ -144,10 +144,15 @@ pub fn open(path: &Path) -> Result<Connection> {
 /// No file at `path`, or any error of [`open`].
 pub fn open_existing(path: &Path) -> Result<Connection> {
     if !path.exists() {
-        bail!(
-            "{}: no catalogue here (run `glitchbook scan` or `glitchbook import` first, or pass --db)",
-            path.display()
-        );
+        return Err(crate::Error::not_found(
+            "catalogue",
+            path.display(),
+            format!(
+                "{}: no catalogue here (scan or import triggers into it first)",
+                path.display()
+            ),
+        )
+        .into());
     }
     open(path)
 }
@@ -195,8 +200,14 @@ mod tests {
             .unwrap()
             .pragma_update(None, "user_version", 999)
             .unwrap();
-        let err = open(&p).unwrap_err().to_string();
-        assert!(err.contains("newer"), "{err}");
+        let err = open(&p).unwrap_err();
+        assert!(
+            matches!(
+                crate::Error::find(&err),
+                Some(crate::Error::SchemaTooNew { found: 999, .. })
+            ),
+            "{err}"
+        );
     }
 
     #[test]

@@ -1,13 +1,20 @@
 //! Flag structs and helpers shared by several commands (one place each, so
 //! the commands cannot drift apart): the scan parameters (`scan`, `plan`),
 //! the span and rate flags (`rates`, `report`), the finite-number check,
-//! the listing printer, and the command line that runs one shard
-//! (`plan`, `run-plan`).
+//! the listing printer, the command line that runs one shard (`plan`,
+//! `run-plan`), and the error message with the library's field names
+//! written as flags ([`error_message`]).
+//!
+//! Parameters are checked once, by the library (`ScanParams::check`,
+//! `RateParams::check`, `PlanOptions::check`, ...): the flags only fill the
+//! parameter structs. The library names fields (`bin_s`); [`FLAGS`] says
+//! which flag sets each.
 use anyhow::{bail, Result};
 use glitchbook::output::{escape_control, Format};
 use glitchbook::plan::{ShardArg, ShardCommand};
 use glitchbook::rates::RateParams;
 use glitchbook::scan::ScanParams;
+use glitchbook::Error;
 use std::io::Write;
 
 /// Parse an optional finite number flag.
@@ -46,52 +53,20 @@ pub struct ScanFlags {
 }
 
 impl ScanFlags {
-    /// Check the flags (no I/O) and build the scan parameters.
+    /// The scan parameters these flags set, checked by the library
+    /// ([`ScanParams::check`]; no I/O).
     pub fn validate(&self) -> Result<ScanParams> {
-        let pos = |name: &str, x: f64| -> Result<f64> {
-            if !(x.is_finite() && x > 0.0) {
-                bail!("--{name} must be a positive number, got {x}");
-            }
-            Ok(x)
-        };
-        let snr_threshold = pos("snr-threshold", self.snr_threshold)?;
-        let fmin = finite("fmin", self.fmin)?
-            .map(|f| pos("fmin", f))
-            .transpose()?;
-        let fmax = finite("fmax", self.fmax)?
-            .map(|f| pos("fmax", f))
-            .transpose()?;
-        if let (Some(lo), Some(hi)) = (fmin, fmax) {
-            if lo >= hi {
-                bail!("--fmin ({lo} Hz) must be below --fmax ({hi} Hz)");
-            }
-        }
-        // Common practice: below Q ≈ 2 a bisquare tile no longer has a
-        // meaningful frequency extent.
-        if !(self.qmin.is_finite() && self.qmin >= 2.0) {
-            bail!("--qmin must be at least 2, got {}", self.qmin);
-        }
-        if !(self.qmax.is_finite() && self.qmax >= self.qmin) {
-            bail!(
-                "--qmax ({}) must be at least --qmin ({})",
-                self.qmax,
-                self.qmin
-            );
-        }
-        if !(self.mismatch > 0.0 && self.mismatch < 1.0) {
-            bail!("--mismatch must be between 0 and 1, got {}", self.mismatch);
-        }
-        Ok(ScanParams {
-            snr_threshold,
-            fmin,
-            fmax,
+        let p = ScanParams {
+            snr_threshold: self.snr_threshold,
+            fmin: self.fmin,
+            fmax: self.fmax,
             qmin: self.qmin,
             qmax: self.qmax,
             mismatch: self.mismatch,
-            block_s: finite("block-s", self.block_s)?
-                .map(|b| pos("block-s", b))
-                .transpose()?,
-        })
+            block_s: self.block_s,
+        };
+        p.check()?;
+        Ok(p)
     }
 }
 
@@ -120,12 +95,13 @@ pub struct RateFlags {
 }
 
 impl RateFlags {
-    /// The rate parameters these flags set (the rest default), checked.
+    /// The rate parameters these flags set (the rest default), checked by
+    /// the library ([`RateParams::check`]).
     pub fn rate_params(&self) -> Result<RateParams> {
         let p = RateParams {
             bin_s: self.bin,
-            since_gps: finite("since", self.since)?,
-            until_gps: finite("until", self.until)?,
+            since_gps: self.since,
+            until_gps: self.until,
             min_snr: self.min_snr,
             cl: self.cl,
             p0: self.p0,
@@ -174,5 +150,131 @@ pub fn shard_command() -> ShardCommand {
             t("--plan"),
             ShardArg::PlanDir,
         ],
+    }
+}
+
+/// Library parameter field → the flag (or argument) that sets it. A field
+/// not listed is shown by its own name.
+pub const FLAGS: &[(&str, &str)] = &[
+    // scan, plan (ScanParams)
+    ("snr_threshold", "--snr-threshold"),
+    ("fmin", "--fmin"),
+    ("fmax", "--fmax"),
+    ("qmin", "--qmin"),
+    ("qmax", "--qmax"),
+    ("mismatch", "--mismatch"),
+    ("block_s", "--block-s"),
+    // plan (PlanOptions, SlurmOptions)
+    ("span_s", "--span"),
+    ("shards", "--shards"),
+    ("channel_groups", "--channel-groups"),
+    ("cpus", "--cpus"),
+    ("mem_mb", "--mem-mb"),
+    ("max_parallel", "--max-parallel"),
+    ("time_limit", "--time-limit"),
+    // merge
+    ("force", "--force"),
+    // rates, report (RateParams)
+    ("bin_s", "--bin"),
+    ("since_gps", "--since"),
+    ("until_gps", "--until"),
+    ("cl", "--cl"),
+    ("p0", "--p0"),
+    ("min_live_fraction", "--min-live-fraction"),
+    ("channel", "--channel"),
+    // rates, triggers, cluster
+    ("min_snr", "--min-snr"),
+    // triggers (TriggerQuery)
+    ("since", "--since"),
+    ("until", "--until"),
+    // cluster (ClusterParams)
+    ("k_max", "--k-max"),
+    // rates, witnesses, triggers (also names what was not found)
+    ("family", "--family"),
+    // label
+    ("name", "NAME"),
+];
+
+/// The flag that sets a library field (see [`FLAGS`]).
+pub fn flag_name(field: &str) -> String {
+    FLAGS
+        .iter()
+        .find(|(f, _)| *f == field)
+        .map_or_else(|| field.to_string(), |(_, flag)| flag.to_string())
+}
+
+/// The one-line message of a command's error: the cause chain joined by
+/// ": " (as anyhow's `{:#}`), with the library's parameter errors naming
+/// flags instead of fields, and a missing catalogue with what to do.
+pub fn error_message(err: &anyhow::Error) -> String {
+    let parts: Vec<String> = err
+        .chain()
+        .map(|e| match e.downcast_ref::<Error>() {
+            Some(p @ Error::InvalidParameter { .. }) => p.describe(&flag_name),
+            Some(Error::NotFound {
+                what: "catalogue",
+                id,
+                ..
+            }) => format!(
+                "{id}: no catalogue here (run `glitchbook scan` or `glitchbook import` first, \
+                 or pass --db)"
+            ),
+            Some(Error::NotFound { what, id, message }) => not_found_message(what, id, message),
+            _ => e.to_string(),
+        })
+        .collect();
+    parts.join(": ").replace('\n', " ")
+}
+
+/// A not-found message for the command line: a thing the message starts
+/// with (`family 9: ...`) is named by its flag (`--family 9: ...`), and
+/// the listing that shows what exists is suggested.
+fn not_found_message(what: &str, id: &str, message: &str) -> String {
+    let flag = flag_name(what);
+    let mut msg = match message.strip_prefix(&format!("{what} {id}")) {
+        Some(rest) if flag.starts_with("--") => format!("{flag} {id}{rest}"),
+        _ => message.to_string(),
+    };
+    let listing = match what {
+        "family" => Some("families"),
+        "channel" => Some("channels"),
+        _ => None,
+    };
+    if let Some(l) = listing.filter(|_| !msg.contains('(')) {
+        msg.push_str(&format!(" (see `glitchbook {l}`)"));
+    }
+    msg
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn library_errors_name_flags() {
+        let e =
+            anyhow::Error::new(Error::invalid("bin_s", "must be positive, got 0")).context("rates");
+        assert_eq!(error_message(&e), "rates: --bin must be positive, got 0");
+        let e: anyhow::Error =
+            Error::invalid("until_gps", "(2) must be after {since_gps} (3)").into();
+        assert_eq!(error_message(&e), "--until (2) must be after --since (3)");
+        let e: anyhow::Error =
+            Error::not_found("family", 9, "family 9: no target trigger belongs to it").into();
+        assert_eq!(
+            error_message(&e),
+            "--family 9: no target trigger belongs to it (see `glitchbook families`)"
+        );
+        // A family named by position, not by a flag, is left as it is.
+        let e: anyhow::Error = Error::not_found("family", 9, "no family with id 9").into();
+        assert_eq!(
+            error_message(&e),
+            "no family with id 9 (see `glitchbook families`)"
+        );
+        let e: anyhow::Error =
+            Error::not_found("catalogue", "x.db", "x.db: no catalogue here").into();
+        assert!(error_message(&e).ends_with("or pass --db)"));
+        // Other errors keep their text.
+        let e = anyhow::anyhow!("plain").context("outer");
+        assert_eq!(error_message(&e), "outer: plain");
     }
 }

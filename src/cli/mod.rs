@@ -19,6 +19,8 @@ mod triggers;
 mod vetoes;
 mod witnesses;
 
+pub use common::error_message;
+
 /// glitchbook: find, sort, track and trace noise transients in
 /// gravitational-wave detector data.
 #[derive(Debug, Parser)]

@@ -84,12 +84,10 @@ mod tests {
             (&["--since", "inf"][..], "--since"),
             (&["--min-live-fraction", "2"][..], "--min-live-fraction"),
         ] {
-            let e = parse(args).unwrap_err().to_string();
+            let e = crate::cli::error_message(&parse(args).unwrap_err());
             assert!(e.starts_with(flag), "{args:?}: {e}");
         }
-        let e = parse(&["--since", "20", "--until", "10"])
-            .unwrap_err()
-            .to_string();
+        let e = crate::cli::error_message(&parse(&["--since", "20", "--until", "10"]).unwrap_err());
         assert!(e.contains("--until") && e.contains("--since"), "{e}");
     }
 }

@@ -104,12 +104,12 @@ mod tests {
             (&["--out", "r", "--cl", "7"][..], "--cl"),
             (&["--out", "r", "--until", "nan"][..], "--until"),
         ] {
-            let e = parse(args).unwrap_err().to_string();
+            let e = crate::cli::error_message(&parse(args).unwrap_err());
             assert!(e.starts_with(flag), "{args:?}: {e}");
         }
-        let e = parse(&["--out", "r", "--since", "9", "--until", "3"])
-            .unwrap_err()
-            .to_string();
+        let e = crate::cli::error_message(
+            &parse(&["--out", "r", "--since", "9", "--until", "3"]).unwrap_err(),
+        );
         assert!(e.contains("--until"), "{e}");
     }
 }

@@ -183,8 +183,12 @@ mod tests {
 
     #[test]
     fn bad_flags_refused() {
-        let e = |x: &[&str]| parse(x).unwrap_err().to_string();
+        let e = |x: &[&str]| crate::cli::error_message(&parse(x).unwrap_err());
         assert!(e(&["--fmin", "100", "--fmax", "50"]).contains("--fmin"));
+        assert_eq!(
+            e(&["--qmin", "8", "--qmax", "4"]),
+            "--qmax (4) must be at least --qmin (8)"
+        );
         assert!(e(&["--qmin", "1.5"]).contains("at least 2"));
         assert!(e(&["--qmin", "8", "--qmax", "4"]).contains("--qmax"));
         assert!(e(&["--snr-threshold", "-1"]).contains("--snr-threshold"));

@@ -16,7 +16,7 @@ use super::{
 };
 use crate::catalogue::{from_ns, now_utc};
 use crate::trigger::Trigger;
-use anyhow::{bail, Context, Result};
+use anyhow::{Context, Result};
 use rayon::prelude::*;
 use rusqlite::types::{FromSql, FromSqlError, FromSqlResult, ToSql, ToSqlOutput, ValueRef};
 use rusqlite::{params, Connection, OptionalExtension, Transaction};
@@ -163,11 +163,12 @@ pub fn compute_features(
 /// fingerprints from `src`), keep family ids stable against the previous
 /// run, and store memberships and the model — all in one transaction.
 ///
-/// Steps: read the triggers and their fingerprints ([`ensure_features`]),
-/// fit and group ([`fit_and_group`]), read the previous memberships
-/// ([`active_memberships`]), record the run ([`insert_run`]), link ids
-/// ([`lineage::link`]) and store families and events ([`store_lineage`]),
-/// replace the memberships ([`store_memberships`]), store the model.
+/// Steps (private functions of this module): read the triggers and their
+/// fingerprints (`ensure_features`), fit and group (`fit_and_group`), read
+/// the previous memberships (`active_memberships`), record the run
+/// (`insert_run`), link ids ([`lineage::link`]) and store families and
+/// events (`store_lineage`), replace the memberships (`store_memberships`),
+/// store the model.
 ///
 /// # Errors
 /// Invalid parameters ([`ClusterParams::check`]), fewer than 2 triggers,
@@ -407,7 +408,12 @@ pub fn latest_model(conn: &Connection) -> Result<Option<(i64, FamilyModel)>> {
 pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<AssignReport> {
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let Some((run_id, model)) = latest_model(&tx)? else {
-        bail!("no families yet: run `cluster` before `assign`");
+        return Err(crate::Error::not_found(
+            "family model",
+            "latest",
+            "no families yet: cluster the catalogue before assigning new triggers",
+        )
+        .into());
     };
     let rows = target_triggers(&tx, model.params.min_snr, true)?;
     let (fps, _) = ensure_features(&tx, &rows, src)?;
@@ -469,7 +475,7 @@ pub fn label(
 ) -> Result<()> {
     let name = name.trim();
     if name.is_empty() {
-        bail!("label: the family name must not be empty");
+        return Err(crate::Error::invalid("name", "must not be empty").into());
     }
     let tx = conn.transaction()?;
     let cur: Option<(Option<String>, Option<String>)> = tx
@@ -480,7 +486,12 @@ pub fn label(
         )
         .optional()?;
     let Some((old_label, old_note)) = cur else {
-        bail!("label: no family with id {family}");
+        return Err(crate::Error::not_found(
+            "family",
+            family,
+            format!("no family with id {family}"),
+        )
+        .into());
     };
     let new_note = note.map(str::to_owned).or(old_note.clone());
     tx.execute(

@@ -81,7 +81,12 @@ pub fn render_trigger_thumbnail(
         _ => {
             let row = trigger_row(conn, trigger_id)?;
             let Some(row) = row else {
-                bail!("thumbnail: no trigger with id {trigger_id}");
+                return Err(crate::Error::not_found(
+                    "trigger",
+                    trigger_id,
+                    format!("no trigger with id {trigger_id}"),
+                )
+                .into());
             };
             fingerprint(&row.trig, &row.channel, src)
                 .with_context(|| format!("fingerprint of trigger {}", row.id))?
@@ -143,8 +148,9 @@ pub fn render_family_thumbnails(
         for t in family_member_ids(conn, f.id, per_family)? {
             let p = dir.join(format!("family_{}_trigger_{t}.png", f.id));
             let extent = render_trigger_thumbnail(conn, t, src, &p)?;
-            let row = trigger_row(conn, t)?
-                .ok_or_else(|| anyhow::anyhow!("thumbnail: no trigger with id {t}"))?;
+            let row = trigger_row(conn, t)?.ok_or_else(|| {
+                crate::Error::not_found("trigger", t, format!("no trigger with id {t}"))
+            })?;
             out.push(Thumbnail {
                 family_id: f.id,
                 trigger_id: t,

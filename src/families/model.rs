@@ -70,13 +70,28 @@ impl ClusterParams {
     /// Check the parameters (no I/O).
     ///
     /// # Errors
-    /// A novelty quantile outside `[0, 1)`.
-    pub fn check(&self) -> Result<()> {
+    /// [`crate::Error::InvalidParameter`] naming the field: `min_snr` not a
+    /// finite number ≥ 0, `k_max` outside 1..=64, a novelty quantile outside
+    /// `[0, 1)`.
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
+        if !(self.min_snr.is_finite() && self.min_snr >= 0.0) {
+            return Err(Error::invalid(
+                "min_snr",
+                format!("must be a finite number ≥ 0 (got {})", self.min_snr),
+            ));
+        }
+        if !(1..=64).contains(&self.k_max) {
+            return Err(Error::invalid(
+                "k_max",
+                format!("must be between 1 and 64 (got {})", self.k_max),
+            ));
+        }
         if !(0.0..1.0).contains(&self.novelty_quantile) {
-            bail!(
-                "novelty quantile must be in [0, 1), got {}",
-                self.novelty_quantile
-            );
+            return Err(Error::invalid(
+                "novelty_quantile",
+                format!("must be in [0, 1), got {}", self.novelty_quantile),
+            ));
         }
         Ok(())
     }

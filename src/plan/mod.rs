@@ -78,6 +78,33 @@ impl Default for PlanOptions {
     }
 }
 
+impl PlanOptions {
+    /// Check the options (no I/O): the scan parameters, the split and the
+    /// Slurm resources.
+    ///
+    /// # Errors
+    /// [`crate::Error::InvalidParameter`] naming the field.
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
+        self.params.check()?;
+        if let Some(s) = self.span_s {
+            if !(s.is_finite() && s > 0.0) {
+                return Err(Error::invalid(
+                    "span_s",
+                    format!("must be a positive number of seconds, got {s}"),
+                ));
+            }
+        }
+        if self.shards == Some(0) {
+            return Err(Error::invalid("shards", "must be at least 1"));
+        }
+        if self.channel_groups == 0 {
+            return Err(Error::invalid("channel_groups", "must be at least 1"));
+        }
+        self.slurm.check()
+    }
+}
+
 /// One input channel as surveyed when planning.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PlanChannel {
@@ -204,6 +231,7 @@ pub fn make_plan(
     out_dir: &Path,
     shard_command: &ShardCommand,
 ) -> Result<Plan> {
+    opts.check()?;
     let mut channels = Vec::new();
     for dir in bundles {
         let bundle = crate::io::Bundle::open(dir)?;
@@ -276,22 +304,17 @@ pub fn plan_channel(
 }
 
 /// Nominal time-piece boundaries over `[t0, t1)`.
-fn piece_bounds(t0: f64, t1: f64, opts: &PlanOptions) -> Result<Vec<f64>> {
+fn piece_bounds(t0: f64, t1: f64, opts: &PlanOptions) -> Vec<f64> {
+    // Options are checked by `PlanOptions::check`.
     let n = match (opts.span_s, opts.shards) {
-        (Some(s), _) => {
-            if !(s.is_finite() && s > 0.0) {
-                bail!("--span must be a positive number of seconds (got {s})");
-            }
-            ((t1 - t0) / s).ceil().max(1.0) as usize
-        }
-        (None, Some(n)) if n >= 1 => n,
-        (None, Some(_)) => bail!("--shards must be at least 1"),
+        (Some(s), _) => ((t1 - t0) / s).ceil().max(1.0) as usize,
+        (None, Some(n)) => n.max(1),
         (None, None) => 1,
     };
     let width = opts.span_s.unwrap_or((t1 - t0) / n as f64);
     let mut b: Vec<f64> = (0..n).map(|i| t0 + i as f64 * width).collect();
     b.push(t1);
-    Ok(b)
+    b
 }
 
 /// Partition one channel's usable time into keep spans, one per time piece
@@ -389,11 +412,9 @@ pub fn make_plan_from_channels(
     out_dir: &Path,
     shard_command: &ShardCommand,
 ) -> Result<Plan> {
+    opts.check()?;
     if channels.is_empty() {
         bail!("plan: no channels in the given bundles");
-    }
-    if opts.channel_groups == 0 {
-        bail!("plan: --channel-groups must be at least 1");
     }
     let usable: Vec<SegmentList> = channels.iter().map(|c| usable_time(c, segments)).collect();
     let all = usable
@@ -402,7 +423,7 @@ pub fn make_plan_from_channels(
     let Some(extent) = all.extent() else {
         bail!("plan: no valid data inside the analysis segments");
     };
-    let bounds = piece_bounds(extent.start, extent.end, opts)?;
+    let bounds = piece_bounds(extent.start, extent.end, opts);
     let n_pieces = bounds.len() - 1;
     let groups = opts.channel_groups.min(channels.len());
     let pieces: Vec<Vec<(SegmentList, SegmentList)>> = channels

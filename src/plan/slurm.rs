@@ -36,6 +36,39 @@ impl Default for SlurmOptions {
     }
 }
 
+impl SlurmOptions {
+    /// Check the resources (no I/O).
+    ///
+    /// # Errors
+    /// [`crate::Error::InvalidParameter`] naming the field: zero CPUs,
+    /// memory or parallel limit, or a time limit not in one of Slurm's
+    /// `--time` forms (`MM`, `MM:SS`, `HH:MM:SS`, `D-HH`, `D-HH:MM`,
+    /// `D-HH:MM:SS`).
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
+        if self.cpus == 0 {
+            return Err(Error::invalid("cpus", "must be at least 1"));
+        }
+        if self.mem_mb == 0 {
+            return Err(Error::invalid("mem_mb", "must be at least 1"));
+        }
+        if self.max_parallel == Some(0) {
+            return Err(Error::invalid("max_parallel", "must be at least 1"));
+        }
+        let t = &self.time_limit;
+        let (days, rest) = t.split_once('-').unwrap_or(("0", t));
+        let parts: Vec<&str> = rest.split(':').collect();
+        let digits = |x: &str| !x.is_empty() && x.chars().all(|c| c.is_ascii_digit());
+        if !(digits(days) && parts.len() <= 3 && parts.iter().all(|p| digits(p))) {
+            return Err(Error::invalid(
+                "time_limit",
+                format!("must look like HH:MM:SS or D-HH:MM:SS (Slurm's time limit), got {t:?}"),
+            ));
+        }
+        Ok(())
+    }
+}
+
 /// Shell-quote a string (single quotes).
 fn sq(s: &str) -> String {
     format!("'{}'", s.replace('\'', r"'\''"))
