@@ -14,6 +14,7 @@ pub mod families;
 pub mod io;
 pub mod maps;
 pub mod output;
+pub mod pipeline;
 pub mod plan;
 pub mod rates;
 pub mod report;

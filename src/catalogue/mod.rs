@@ -5,7 +5,7 @@
 //! Every command that writes does so in one transaction: open with [`open`],
 //! start `conn.transaction_with_behavior(Immediate)`, call the writers
 //! ([`insert_channel_scan`], [`import_triggers`], [`insert_scan`]) for every
-//! result, then commit once; dropping the transaction on an error writes
+//! result, then commit once ([`record_scans`] does this for scans); dropping the transaction on an error writes
 //! nothing. A scan whose [`run_key`] (channel, input checksum, analysed
 //! segments, parameters, kind) is already stored is skipped
 //! ([`InsertOutcome::Skipped`]).
@@ -29,8 +29,8 @@ pub use query::{
     TriggerRow,
 };
 pub use write::{
-    import_triggers, insert_channel_scan, insert_scan, run_key, upsert_channel, ImportRecord,
-    InsertOutcome, ScanKind, ScanRecord,
+    import_triggers, insert_channel_scan, insert_scan, record_scans, run_key, upsert_channel,
+    ImportRecord, InsertOutcome, ScanKind, ScanRecord,
 };
 
 /// Numbered migrations, applied in order; the schema version is

@@ -139,10 +139,13 @@ pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
         results.push(r);
     }
     let mut conn = catalogue::open(&g.db)?;
-    let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-    let mut lines = Vec::new();
-    for r in &results {
-        let msg = match catalogue::insert_channel_scan(&tx, r, &bundle_dir)? {
+    let scans: Vec<(ChannelScan, PathBuf)> = results
+        .into_iter()
+        .map(|r| (r, bundle_dir.clone()))
+        .collect();
+    let outcomes = catalogue::record_scans(&mut conn, &scans, |_| Ok(()))?;
+    for ((r, _), outcome) in scans.iter().zip(outcomes) {
+        g.info(&match outcome {
             InsertOutcome::Inserted { n_triggers, .. } => format!(
                 "{}: {n_triggers} triggers in {:.1} s analysed",
                 r.channel.name,
@@ -151,12 +154,7 @@ pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
             InsertOutcome::Skipped { .. } => {
                 format!("{}: {}", r.channel.name, InsertOutcome::SKIPPED_MESSAGE)
             }
-        };
-        lines.push(msg);
-    }
-    tx.commit()?;
-    for l in lines {
-        g.info(&l);
+        });
     }
     Ok(ExitCode::SUCCESS)
 }

@@ -165,3 +165,35 @@ pub fn render_family_thumbnails(
     }
     Ok(out)
 }
+
+/// Images per family in the report.
+pub const REPORT_IMAGES_PER_FAMILY: usize = 3;
+
+/// The report's images: [`REPORT_IMAGES_PER_FAMILY`] members of every active
+/// family in `out_dir/thumbs`, computed from the scanned bundles. When the
+/// data can no longer be opened there are no images and the reason is
+/// returned beside them (the report goes on without).
+///
+/// # Errors
+/// As [`render_family_thumbnails`] once the data are open.
+pub fn report_thumbnails(
+    conn: &Connection,
+    out_dir: &std::path::Path,
+) -> Result<(Vec<Thumbnail>, Option<String>)> {
+    let src = match crate::maps::BundleMaps::from_catalogue(conn) {
+        Ok(s) => s,
+        Err(e) => {
+            return Ok((
+                Vec::new(),
+                Some(format!("no spectrogram images in the report: {e:#}")),
+            ))
+        }
+    };
+    let images = render_family_thumbnails(
+        conn,
+        &src,
+        &out_dir.join("thumbs"),
+        REPORT_IMAGES_PER_FAMILY,
+    )?;
+    Ok((images, None))
+}

@@ -51,7 +51,9 @@ pub use db::{
     label_history, latest_model, list_families,
 };
 pub use features::{fingerprint, EnergyMapSource, Fingerprint, SineGaussian, SineGaussianSource};
-pub use images::{render_family_thumbnails, render_trigger_thumbnail, ImageExtent, Thumbnail};
+pub use images::{
+    render_family_thumbnails, render_trigger_thumbnail, report_thumbnails, ImageExtent, Thumbnail,
+};
 pub use lineage::{EventKind, FamilyStatus};
 pub use model::{fit_model, ClusterParams, FamilyModel, Fingerprints};
 pub use thumbnail::render_thumbnail;

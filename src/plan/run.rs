@@ -86,7 +86,7 @@ pub fn clip_to_shard(mut scan: ChannelScan, keep: &SegmentList) -> ChannelScan {
 /// temporary file renamed into place), replacing an older one: re-running a
 /// shard is safe. Each scan comes with its bundle directory, recorded as the
 /// scan's source path (later commands reopen the data from there). Rows are
-/// written by [`crate::catalogue::insert_channel_scan`], as `scan` does, plus
+/// written by [`crate::catalogue::record_scans`], as `scan` does, plus
 /// one `shard_runs` row naming the plan and shard.
 ///
 /// # Errors
@@ -108,15 +108,13 @@ pub fn write_shard_catalogue(
     }
     {
         let mut conn = crate::catalogue::open(&tmp)?;
-        let tx = conn.transaction()?;
-        for (s, bundle) in scans {
-            crate::catalogue::insert_channel_scan(&tx, s, bundle)?;
-        }
-        tx.execute(
-            "INSERT INTO shard_runs(plan_id, shard, tool_version, created_utc) VALUES (?1, ?2, ?3, ?4)",
-            params![plan_id, k as i64, TOOL_VERSION, now_utc()],
-        )?;
-        tx.commit()?;
+        crate::catalogue::record_scans(&mut conn, scans, |tx| {
+            tx.execute(
+                "INSERT INTO shard_runs(plan_id, shard, tool_version, created_utc) VALUES (?1, ?2, ?3, ?4)",
+                params![plan_id, k as i64, TOOL_VERSION, now_utc()],
+            )?;
+            Ok(())
+        })?;
         // Fold the WAL back so the renamed file is self-contained.
         conn.pragma_update(None, "journal_mode", "DELETE")?;
     }
