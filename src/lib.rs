@@ -9,10 +9,12 @@ pub mod catalogue;
 pub mod condition;
 pub mod coupling;
 pub mod demo;
+pub mod error;
 pub mod families;
 pub mod io;
 pub mod maps;
 pub mod output;
+pub mod pipeline;
 pub mod plan;
 pub mod rates;
 pub mod report;
@@ -22,3 +24,5 @@ pub mod segments;
 pub mod tf;
 pub mod trigger;
 pub mod waveforms;
+
+pub use error::{Error, Result};

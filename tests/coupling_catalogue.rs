@@ -224,8 +224,14 @@ fn witnesses_per_family_when_families_exist() {
         family: Some(42),
         ..WitnessParams::default()
     };
-    let err = run_witnesses(&mut conn, &bad).unwrap_err().to_string();
-    assert!(err.contains("--family 42"), "{err}");
+    let err = run_witnesses(&mut conn, &bad).unwrap_err();
+    assert!(
+        matches!(
+            glitchbook::Error::find(&err),
+            Some(glitchbook::Error::NotFound { what: "family", id, .. }) if id == "42"
+        ),
+        "{err}"
+    );
 }
 
 #[test]

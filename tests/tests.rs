@@ -47,6 +47,8 @@ mod cli_coupling_rates;
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 
+/// The fuzz targets' checks (fuzz/checks.rs) run on the fuzz seeds.
+mod fuzz_seeds;
 mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;

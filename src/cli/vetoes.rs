@@ -1,6 +1,7 @@
 //! `glitchbook vetoes`: hierarchical veto rounds with a safety check against
 //! injections; proposals for the instrument team, never applied here.
-use super::witnesses::{print_listing, GridArgs};
+use super::common::print_listing;
+use super::witnesses::GridArgs;
 use super::{warn, Global};
 use anyhow::{bail, Context, Result};
 use glitchbook::catalogue;
