@@ -44,6 +44,8 @@ mod cli_coupling_rates;
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 
+/// Frame files: gwframe fixtures, corrupt files, writer round trip, scan from frames.
+mod io_gwf;
 mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;

@@ -1,9 +1,11 @@
-//! Input: channel bundles (`bundle.toml` + NumPy `.npy`), analysis segment
-//! files, external trigger CSV files and injection CSV files.
+//! Input: channel bundles (`bundle.toml` + NumPy `.npy`), frame files
+//! ([`gwf`]), analysis segment files, external trigger CSV files and
+//! injection CSV files.
 //!
 //! Every error names the file and the field or line at fault.
 
 pub mod bundle;
+pub mod gwf;
 pub mod npy;
 pub mod text;
 
