@@ -46,6 +46,8 @@ mod cli_scan;
 
 /// Frame files: gwframe fixtures, corrupt files, writer round trip, scan from frames.
 mod io_gwf;
+/// HDF5 strain files: h5py fixtures, bad files, scan from HDF5.
+mod io_hdf5;
 mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;

@@ -147,7 +147,7 @@ impl GwfChannel {
                 (p.frame_ns - t0_ns) as f64 * 1e-9 + (p.time_offset_s + p.vect.start_x - off0);
             let idx_f = rel_s * rate_hz;
             let idx = idx_f.round();
-            if (idx_f - idx).abs() > GRID_TOL || idx < 0.0 {
+            if !((idx_f - idx).abs() <= GRID_TOL && idx >= 0.0 && idx < usize::MAX as f64) {
                 bail!(
                     "{}: channel {shown}: frame {} starts {rel_s} s after the first, off the sample grid of {rate_hz} Hz",
                     path.display(),
@@ -168,7 +168,7 @@ impl GwfChannel {
                 .ok_or_else(|| anyhow!("{}: channel {shown}: too many samples", path.display()))?;
             placed.push((idx, p));
         }
-        let start_ns = t0_ns + (off0 * 1e9).round() as i64;
+        let start_ns = t0_ns.saturating_add((off0 * 1e9).round() as i64);
         let start_gps = t0_ns as f64 * 1e-9 + off0;
         if !(start_gps + end as f64 / rate_hz).is_finite() {
             bail!(
