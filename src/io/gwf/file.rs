@@ -145,6 +145,11 @@ pub struct GwfFile {
 /// entries and auxiliary vectors).
 const MAX_WALK: usize = 64;
 
+/// Largest ratio of decompressed to compressed bytes accepted for a vector
+/// (zlib cannot exceed about 1032; zero suppression of constant data with
+/// the reference library's block sizes stays below 100).
+const MAX_EXPANSION: f64 = 4096.0;
+
 impl GwfFile {
     /// Open a frame file: validate the file header (checksum included),
     /// FrEndOfFile and the table of contents (checksum verified).
@@ -596,6 +601,27 @@ impl GwfFile {
             bail!("{}: {what}: field data: no data vector", path.display());
         }
         let vect = self.find_vect(end, data, &what)?;
+        // A vector longer than its frame, or one that claims to expand more
+        // than MAX_EXPANSION times, is corrupt (and would make readers decode
+        // without end).
+        let span_s = vect.n_data as f64 * vect.dx;
+        if span_s > self.frames[k].duration_s * (1.0 + 1e-9) + vect.dx {
+            bail!(
+                "{}: {what}: its vector of {} samples spans {span_s} s, more than the frame's {} s",
+                path.display(),
+                vect.n_data,
+                self.frames[k].duration_s
+            );
+        }
+        let raw_bytes = vect.n_data as f64 * vect.elem.size() as f64;
+        if raw_bytes > MAX_EXPANSION * (vect.n_bytes.max(64) as f64) {
+            bail!(
+                "{}: {what}: {} compressed bytes cannot hold {} samples (corrupt vector)",
+                path.display(),
+                vect.n_bytes,
+                vect.n_data
+            );
+        }
         let unit = match units {
             Some(u) if scale != Scale::IDENTITY => u,
             _ => vect.unit_y.clone(),
@@ -636,7 +662,7 @@ impl GwfFile {
             let len = u64::from_le_bytes(h[..8].try_into().expect("8 bytes"));
             let class = h[9] as u16;
             let inst = u32::from_le_bytes(h[10..14].try_into().expect("4 bytes"));
-            if len < COMMON_LEN + 4 || pos + len > self.src.len {
+            if len < COMMON_LEN + 4 || pos.checked_add(len).is_none_or(|e| e > self.src.len) {
                 bail!(
                     "{}: {what}: structure at byte {pos} has impossible length {len}",
                     path.display()
