@@ -658,3 +658,64 @@ fn scan_from_frames_equals_scan_from_npy() {
         assert_bits_eq(&a, &b, "frames vs npy");
     }
 }
+
+#[test]
+fn mutated_files_never_panic() {
+    // A small deterministic mutation fuzzer (the cargo-fuzz target
+    // `gwf_file` does this at scale): byte flips, overwrites and truncations
+    // of two fixtures; every outcome is a value or a one-line error.
+    let tmp = TempDir::new().unwrap();
+    let mut s = 0x9e37_79b9_7f4a_7c15u64;
+    let mut rnd = move || {
+        s ^= s << 13;
+        s ^= s >> 7;
+        s ^= s << 17;
+        s
+    };
+    for seed_file in ["codecs_zsgz.gwf", "adc_calib.gwf"] {
+        let good = std::fs::read(dir().join(seed_file)).unwrap();
+        for case in 0..300 {
+            let mut b = good.clone();
+            match case % 3 {
+                0 => {
+                    for _ in 0..1 + rnd() % 4 {
+                        let i = (rnd() % b.len() as u64) as usize;
+                        b[i] ^= 1 << (rnd() % 8);
+                    }
+                }
+                1 => {
+                    let i = (rnd() % b.len() as u64) as usize;
+                    let v = rnd().to_le_bytes();
+                    let n = v.len().min(b.len() - i);
+                    b[i..i + n].copy_from_slice(&v[..n]);
+                }
+                _ => b.truncate((rnd() % b.len() as u64) as usize),
+            }
+            let p = tmp.path().join("m.gwf");
+            std::fs::write(&p, &b).unwrap();
+            let one_line = |e: anyhow::Error| {
+                let m = format!("{e:#}");
+                assert!(!m.contains('\n'), "{seed_file} case {case}: {m}");
+            };
+            let f = match GwfFile::open(&p) {
+                Ok(f) => f,
+                Err(e) => {
+                    one_line(e);
+                    continue;
+                }
+            };
+            let names: Vec<String> = f.channel_names().map(|(n, _)| n.to_string()).collect();
+            for name in names {
+                match f.channel(&name) {
+                    Ok(ch) => {
+                        let mut x = vec![0.0; ch.len().min(2048)];
+                        if let Err(e) = ch.read_samples(0, &mut x) {
+                            one_line(e);
+                        }
+                    }
+                    Err(e) => one_line(e),
+                }
+            }
+        }
+    }
+}
