@@ -84,19 +84,17 @@ fn fingerprints_from_bundle(minutes: f64, per_s: f64) {
         &|_| {},
     )
     .unwrap();
+    let n_triggers = scan.triggers.len();
     let mut conn = glitchbook::catalogue::open(&dir.path().join("c.db")).unwrap();
-    {
-        let tx = conn.transaction().unwrap();
-        glitchbook::catalogue::insert_channel_scan(&tx, &scan, dir.path()).unwrap();
-        tx.commit().unwrap();
-    }
+    glitchbook::catalogue::record_scans(&mut conn, &[(scan, dir.path().to_path_buf())], |_| Ok(()))
+        .unwrap();
     let src = glitchbook::maps::BundleMaps::from_catalogue(&conn).unwrap();
     let t = Instant::now();
-    let done = glitchbook::families::store::compute_features(&mut conn, 7.0, &src).unwrap();
+    let done = glitchbook::families::compute_features(&mut conn, 7.0, &src).unwrap();
     let dt = t.elapsed().as_secs_f64();
     println!(
         "fingerprint (real path): {minutes} min at {fs} Hz, {n_inj} injections, {} triggers; {done} fingerprints (SNR >= 7) in {dt:.2} s = {:.0} triggers/s incl. whitening and SQLite (target >= 2,000/s)",
-        scan.triggers.len(),
+        n_triggers,
         done as f64 / dt
     );
 }
@@ -175,7 +173,7 @@ fn main() {
     );
 
     let (resp, _) = auto.best.predict_proba(x.view());
-    let groups = glitchbook::families::store::component_groups(&resp, auto.best.k(), 0.02);
+    let groups = glitchbook::families::model::component_groups(&resp, auto.best.k(), 0.02);
     println!(
         "  components grouped into families (overlap ≥ 0.02): {}",
         groups.iter().max().map_or(0, |m| m + 1)

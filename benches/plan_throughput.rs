@@ -82,7 +82,9 @@ fn main() {
         shards: Some(n_shards),
         ..PlanOptions::default()
     };
-    let p = plan::make_plan_from_channels(vec![pc], None, &opts, dir.path()).unwrap();
+    // The batch script is not run here: any command line will do.
+    let cmd = plan::ShardCommand { args: vec![] };
+    let p = plan::make_plan_from_channels(vec![pc], None, &opts, dir.path(), &cmd).unwrap();
     let plan_s = t.elapsed().as_secs_f64();
     let scanned: f64 = p
         .shards

@@ -13,8 +13,8 @@ fn main() -> ExitCode {
         // write to the catalogue has committed or rolled back by now.
         Err(err) if broken_pipe(&err) => ExitCode::SUCCESS,
         Err(err) => {
-            // The whole anyhow cause chain on one line.
-            let msg = format!("{err:#}").replace('\n', " ");
+            // The whole cause chain on one line, library fields named as flags.
+            let msg = cli::error_message(&err);
             eprintln!("glitchbook: error: {msg}");
             ExitCode::from(2)
         }

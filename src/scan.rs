@@ -6,6 +6,7 @@ use crate::io::{ChannelSpec, NpyReader};
 use crate::segments::{Segment, SegmentList};
 use crate::tf::{QPlan, Tile, Tiling, Workspace};
 use crate::trigger::{cluster_tiles, energy_from_snr, Trigger};
+use crate::Error;
 use anyhow::{anyhow, bail, Context, Result};
 use rayon::prelude::*;
 use realfft::num_complex::Complex;
@@ -45,6 +46,67 @@ impl Default for ScanParams {
             mismatch: 0.2,
             block_s: None,
         }
+    }
+}
+
+impl ScanParams {
+    /// Check the parameters as given (no I/O); [`resolve_params`] checks
+    /// what depends on the channel (defaults, Nyquist, block length).
+    ///
+    /// # Errors
+    /// [`Error::InvalidParameter`] naming the field: a threshold, frequency
+    /// limit or block length that is not a positive finite number, `fmin ≥
+    /// fmax`, `qmin` below 2 (common practice: below Q ≈ 2 a bisquare tile no
+    /// longer has a meaningful frequency extent), `qmax < qmin`, or a
+    /// mismatch outside (0, 1).
+    pub fn check(&self) -> crate::Result<()> {
+        let positive = |field: &str, x: f64| {
+            if x.is_finite() && x > 0.0 {
+                Ok(())
+            } else {
+                Err(Error::invalid(
+                    field,
+                    format!("must be a positive number, got {x}"),
+                ))
+            }
+        };
+        positive("snr_threshold", self.snr_threshold)?;
+        if let Some(f) = self.fmin {
+            positive("fmin", f)?;
+        }
+        if let Some(f) = self.fmax {
+            positive("fmax", f)?;
+        }
+        if let (Some(lo), Some(hi)) = (self.fmin, self.fmax) {
+            if lo >= hi {
+                return Err(Error::invalid(
+                    "fmin",
+                    format!("({lo} Hz) must be below {{fmax}} ({hi} Hz)"),
+                ));
+            }
+        }
+        if !(self.qmin.is_finite() && self.qmin >= 2.0) {
+            return Err(Error::invalid(
+                "qmin",
+                format!("must be at least 2, got {}", self.qmin),
+            ));
+        }
+        if !(self.qmax.is_finite() && self.qmax >= self.qmin) {
+            return Err(Error::invalid(
+                "qmax",
+                format!("({}) must be at least {{qmin}} ({})", self.qmax, self.qmin),
+            ));
+        }
+        if !(self.mismatch > 0.0 && self.mismatch < 1.0) {
+            return Err(Error::invalid(
+                "mismatch",
+                format!("must be between 0 and 1, got {}", self.mismatch),
+            ));
+        }
+        if let Some(b) = self.block_s {
+            positive("block_s", b)?;
+        }
+        Ok(())
     }
 }
 
@@ -187,15 +249,18 @@ pub fn default_fmax(rate_hz: f64) -> f64 {
 /// else the defaults for its rate.
 ///
 /// # Errors
-/// Values that are not finite or positive, `fmin ≥ fmax`, `fmax` above
-/// Nyquist, `qmin > qmax`, `qmin < 2`, or a mismatch outside (0, 1).
+/// [`Error::InvalidParameter`] naming the field: anything
+/// [`ScanParams::check`] refuses; resolved frequency limits that are not
+/// positive, `fmin ≥ fmax`, `fmax` above Nyquist; a block shorter than 4 ×
+/// the padding.
 pub fn resolve_params(
     params: &ScanParams,
     rate_hz: f64,
     chan_fmin: Option<f64>,
     chan_fmax: Option<f64>,
-) -> Result<ResolvedParams> {
+) -> crate::Result<ResolvedParams> {
     let p = params;
+    p.check()?;
     let fmin = p
         .fmin
         .or(chan_fmin)
@@ -204,35 +269,28 @@ pub fn resolve_params(
         .fmax
         .or(chan_fmax)
         .unwrap_or_else(|| default_fmax(rate_hz));
-    let positive = |name: &str, v: f64| -> Result<()> {
+    for (field, v) in [("fmin", fmin), ("fmax", fmax)] {
         if !(v.is_finite() && v > 0.0) {
-            bail!("{name} must be a positive number (got {v})");
+            return Err(Error::invalid(
+                field,
+                format!("must be a positive number (got {v})"),
+            ));
         }
-        Ok(())
-    };
-    positive("snr threshold", p.snr_threshold)?;
-    positive("fmin", fmin)?;
-    positive("fmax", fmax)?;
-    positive("qmin", p.qmin)?;
-    positive("qmax", p.qmax)?;
+    }
     if fmin >= fmax {
-        bail!("fmin ({fmin} Hz) must be below fmax ({fmax} Hz)");
+        return Err(Error::invalid(
+            "fmin",
+            format!("({fmin} Hz) must be below {{fmax}} ({fmax} Hz)"),
+        ));
     }
     if fmax > rate_hz / 2.0 {
-        bail!(
-            "fmax ({fmax} Hz) is above the Nyquist frequency ({} Hz)",
-            rate_hz / 2.0
-        );
-    }
-    if p.qmin < 2.0 || p.qmin > p.qmax {
-        bail!(
-            "need 2 <= qmin <= qmax (got qmin {}, qmax {})",
-            p.qmin,
-            p.qmax
-        );
-    }
-    if !(p.mismatch > 0.0 && p.mismatch < 1.0) {
-        bail!("mismatch must be in (0, 1) (got {})", p.mismatch);
+        return Err(Error::invalid(
+            "fmax",
+            format!(
+                "({fmax} Hz) is above the Nyquist frequency ({} Hz)",
+                rate_hz / 2.0
+            ),
+        ));
     }
     // Welch segments resolve fmin with a few bins: 16/fmin s, at least 1 s.
     let welch_s = (16.0 / fmin).max(1.0).log2().ceil().exp2().min(64.0);
@@ -244,7 +302,10 @@ pub fn resolve_params(
     let pad_s = (0.5 * welch_s + 3.0 * crate::tf::sigma_t(q_top, fmin)).ceil();
     let block_s = p.block_s.unwrap_or((8.0 * pad_s).max(32.0));
     if !(block_s.is_finite() && block_s >= 4.0 * pad_s) {
-        bail!("block length {block_s} s must be at least 4 × the padding ({pad_s} s)");
+        return Err(Error::invalid(
+            "block_s",
+            format!("({block_s} s) must be at least 4 × the padding ({pad_s} s)"),
+        ));
     }
     Ok(ResolvedParams {
         snr_threshold: p.snr_threshold,

@@ -255,7 +255,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
     );
 }
 
-// A catalogue written before migration 0005 (schema 4) with coupling rows
+// A catalogue written before migration 0006_coupling_words (schema 4) with coupling rows
 // in the old columns upgrades: values keep their meaning under the new
 // names, the significance becomes a probability, lags change sign to
 // t_aux − t_target (histogram reversed), and a round of a run without
@@ -412,8 +412,14 @@ fn witnesses_per_family_when_families_exist() {
         family: Some(42),
         ..WitnessParams::default()
     };
-    let err = run_witnesses(&mut conn, &bad).unwrap_err().to_string();
-    assert!(err.contains("--family 42"), "{err}");
+    let err = run_witnesses(&mut conn, &bad).unwrap_err();
+    assert!(
+        matches!(
+            glitchbook::Error::find(&err),
+            Some(glitchbook::Error::NotFound { what: "family", id, .. }) if id == "42"
+        ),
+        "{err}"
+    );
 }
 
 #[test]

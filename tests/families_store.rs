@@ -6,8 +6,8 @@
 
 use glitchbook::catalogue::{open, to_ns};
 use glitchbook::families::metrics::adjusted_rand_index;
-use glitchbook::families::store::{family_events, label_history};
 use glitchbook::families::*;
+use glitchbook::families::{family_events, label_history};
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, LogNormal};
 use rusqlite::{params, Connection};
@@ -267,7 +267,7 @@ fn cluster_recluster_label_assign() {
     let ev = family_events(&conn).unwrap();
     assert!(ev
         .iter()
-        .any(|(r, e)| *r == rep2.run_id && e.kind == "kept"));
+        .any(|(r, e)| *r == rep2.run_id && e.kind == EventKind::Kept));
     let (ari2, dom2) = ari_and_dominance(&conn, &w);
     assert!(ari2 >= 0.8 && dom2 >= 0.85, "ARI {ari2} dom {dom2}");
 

@@ -21,9 +21,44 @@ fn write(dir: &Path, name: &str, bytes: &[u8]) -> PathBuf {
     p
 }
 
-/// Assert that `r` failed with a single-line message containing every needle.
+/// Assert that `r` failed with an input error (a parse error naming the
+/// file, or a missing or unreadable file) with a single-line message
+/// containing every needle. A needle `:N:` must be the error's line; a
+/// needle `column 'c'` its field.
 #[track_caller]
-fn assert_err<T: std::fmt::Debug>(r: anyhow::Result<T>, needles: &[&str]) -> String {
+fn assert_err<T: std::fmt::Debug>(r: glitchbook::Result<T>, needles: &[&str]) -> String {
+    let err = r.expect_err("expected an error");
+    let msg = err.to_string();
+    assert!(!msg.contains('\n'), "error is not one line: {msg:?}");
+    for n in needles {
+        assert!(msg.contains(n), "error {msg:?} does not contain {n:?}");
+    }
+    match &err {
+        glitchbook::Error::Parse { line, field, .. } => {
+            for n in needles {
+                if let Some(l) = n.strip_prefix(':').and_then(|x| x.split(':').next()) {
+                    if let Ok(l) = l.parse::<u64>() {
+                        assert_eq!(*line, Some(l), "{msg}");
+                    }
+                }
+                if let Some(c) = n
+                    .strip_prefix("column '")
+                    .and_then(|x| x.split('\'').next())
+                {
+                    assert_eq!(field.as_deref(), Some(c), "{msg}");
+                }
+            }
+        }
+        glitchbook::Error::Io { .. } | glitchbook::Error::NotFound { .. } => {}
+        other => panic!("not an input error: {other:?}"),
+    }
+    msg
+}
+
+/// Assert that `r` (a lower-level call that returns `anyhow`) failed with a
+/// single-line message containing every needle.
+#[track_caller]
+fn assert_msg<T: std::fmt::Debug>(r: anyhow::Result<T>, needles: &[&str]) -> String {
     let msg = format!("{:#}", r.expect_err("expected an error"));
     assert!(!msg.contains('\n'), "error is not one line: {msg:?}");
     for n in needles {
@@ -128,7 +163,7 @@ fn npy_write_read_round_trip_both_dtypes() {
         assert_eq!(part[..], all[65_000..135_000]);
         // Reading past the end is an error naming the file.
         let mut over = vec![0.0; 2];
-        assert_err(
+        assert_msg(
             r.read_f64(n - 1, &mut over),
             &[&p.display().to_string(), "holds 150001"],
         );
@@ -396,14 +431,14 @@ fn valid_stretches_leading_trailing_nan_and_errors() {
         SegmentList::single(100.5, 101.25)
     );
     let name = p.display().to_string();
-    assert_err(r.valid_stretches(0.0, 100.0), &[&name, "rate"]);
-    assert_err(r.valid_stretches(f64::NAN, 100.0), &[&name, "rate"]);
-    assert_err(r.valid_stretches(4.0, f64::INFINITY), &[&name, "start"]);
+    assert_msg(r.valid_stretches(0.0, 100.0), &[&name, "rate"]);
+    assert_msg(r.valid_stretches(f64::NAN, 100.0), &[&name, "rate"]);
+    assert_msg(r.valid_stretches(4.0, f64::INFINITY), &[&name, "start"]);
 
     let all_nan = tmp.path().join("allnan.npy");
     write_npy(&all_nan, &[nan, f64::INFINITY, nan], true).unwrap();
     let r = NpyReader::open(&all_nan).unwrap();
-    assert_err(
+    assert_msg(
         r.valid_stretches(1.0, 0.0),
         &[&all_nan.display().to_string(), "no finite samples"],
     );

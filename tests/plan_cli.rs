@@ -61,6 +61,11 @@ fn plan_run_plan_merge_equals_one_go_scan_on_demo() {
     let script = std::fs::read_to_string(d.path().join("work/run-array.sh")).unwrap();
     assert!(script.contains("#SBATCH --array=0-3\n"), "{script}");
     assert!(script.contains("#SBATCH --cpus-per-task=1\n"), "{script}");
+    // The shard command line comes from the CLI (cli/common.rs::shard_command).
+    assert!(
+        script.contains(r#""$EXE" --db "$DIR/shards/shard-$K.db" scan --shard "$K" --plan "$DIR""#),
+        "{script}"
+    );
     // A second plan into the same directory is refused (exit 2, one line).
     let again = d.run(&["plan", &p("demo"), "--out", &p("work")]);
     assert_eq!(code(&again), 2, "{}", text(&again));

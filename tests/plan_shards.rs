@@ -81,7 +81,25 @@ fn plan_for(
             .unwrap()
         })
         .collect();
-    make_plan_from_channels(pcs, segments, opts, dir).unwrap()
+    make_plan_from_channels(pcs, segments, opts, dir, &shard_cmd()).unwrap()
+}
+
+/// The CLI's shard command line (`cli/common.rs::shard_command`):
+/// `--db DIR/shards/shard-K.db scan --shard K --plan DIR`.
+fn shard_cmd() -> plan::ShardCommand {
+    use plan::ShardArg::{Index, PlanDir, ShardDb, Text};
+    let t = |s: &str| Text(s.to_string());
+    plan::ShardCommand {
+        args: vec![
+            t("--db"),
+            ShardDb,
+            t("scan"),
+            t("--shard"),
+            Index,
+            t("--plan"),
+            PlanDir,
+        ],
+    }
 }
 
 fn spec(c: &Chan) -> ChannelSpec {
@@ -526,7 +544,7 @@ fn plan_status_and_local_runner_report_failures_with_logs() {
     .unwrap();
     use std::os::unix::fs::PermissionsExt;
     std::fs::set_permissions(&exe, std::fs::Permissions::from_mode(0o755)).unwrap();
-    let err = plan::run_local(dir.path(), 2, &exe)
+    let err = plan::run_local(dir.path(), 2, &exe, &shard_cmd())
         .unwrap_err()
         .to_string();
     assert!(

@@ -35,6 +35,9 @@ mod families_core;
 mod families_demo;
 /// Families in a catalogue: cluster, stable ids, labels, assignment.
 mod families_store;
+/// The second scenario (invented site QM4): determinism, truth
+/// consistency, metrics vs scikit-learn, a short end-to-end smoke run.
+mod scenario_qm4;
 
 /// Harness running the real binary in a temporary directory.
 mod cli_util;
@@ -48,6 +51,12 @@ mod cli_coupling_rates;
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 
+/// The fuzz targets' checks (fuzz/checks.rs) run on the fuzz seeds.
+mod fuzz_seeds;
+/// Frame files: gwframe fixtures, corrupt files, writer round trip, scan from frames.
+mod io_gwf;
+/// HDF5 strain files: h5py fixtures, bad files, scan from HDF5.
+mod io_hdf5;
 mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;

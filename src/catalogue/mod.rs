@@ -5,7 +5,7 @@
 //! Every command that writes does so in one transaction: open with [`open`],
 //! start `conn.transaction_with_behavior(Immediate)`, call the writers
 //! ([`insert_channel_scan`], [`import_triggers`], [`insert_scan`]) for every
-//! result, then commit once; dropping the transaction on an error writes
+//! result, then commit once ([`record_scans`] does this for scans); dropping the transaction on an error writes
 //! nothing. A scan whose [`run_key`] (channel, input checksum, analysed
 //! segments, parameters, kind) is already stored is skipped
 //! ([`InsertOutcome::Skipped`]).
@@ -15,7 +15,7 @@
 //! (union over a channel's scans), [`channels`], [`channel_by_name`];
 //! health: [`check`], [`table_counts`], [`logical_checksum`].
 
-use anyhow::{bail, Context, Result};
+use anyhow::{Context, Result};
 use rusqlite::Connection;
 use std::path::Path;
 
@@ -29,8 +29,8 @@ pub use query::{
     TriggerRow,
 };
 pub use write::{
-    import_triggers, insert_channel_scan, insert_scan, run_key, upsert_channel, ImportRecord,
-    InsertOutcome, ScanKind, ScanRecord,
+    import_triggers, insert_channel_scan, insert_scan, record_scans, run_key, upsert_channel,
+    ImportRecord, InsertOutcome, ScanKind, ScanRecord,
 };
 
 /// Numbered migrations, applied in order; the schema version is
@@ -51,8 +51,8 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         include_str!("../../migrations/0004_merges.sql"),
     ),
     (
-        "0005_coupling_words",
-        include_str!("../../migrations/0005_coupling_words.sql"),
+        "0006_coupling_words",
+        include_str!("../../migrations/0006_coupling_words.sql"),
     ),
 ];
 
@@ -64,27 +64,7 @@ pub fn schema_version() -> i64 {
 /// Current UTC time as ISO 8601 (`YYYY-MM-DDTHH:MM:SSZ`), for the
 /// provenance columns (`created_utc`, `changed_utc`, pages' "generated").
 pub fn now_utc() -> String {
-    let secs = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map(|d| d.as_secs() as i64)
-        .unwrap_or(0);
-    let (days, rem) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
-    // Civil date from days since 1970-01-01 (Hinnant's algorithm).
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = doy - (153 * mp + 2) / 5 + 1;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = yoe + era * 400 + i64::from(m <= 2);
-    format!(
-        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
-        rem / 3600,
-        (rem / 60) % 60,
-        rem % 60
-    )
+    humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string()
 }
 
 /// GPS seconds → integer nanoseconds (rounded).
@@ -125,12 +105,12 @@ pub fn open(path: &Path) -> Result<Connection> {
             )
         })?;
     if version > schema_version() {
-        bail!(
-            "{}: catalogue schema version {version} is newer than this glitchbook supports ({}); \
-             use a newer glitchbook (the file was not modified)",
-            path.display(),
-            schema_version()
-        );
+        return Err(crate::Error::SchemaTooNew {
+            path: path.to_path_buf(),
+            found: version,
+            supported: schema_version(),
+        }
+        .into());
     }
     conn.pragma_update(None, "journal_mode", "WAL")?;
     conn.pragma_update(None, "foreign_keys", "ON")?;
@@ -148,10 +128,15 @@ pub fn open(path: &Path) -> Result<Connection> {
 /// No file at `path`, or any error of [`open`].
 pub fn open_existing(path: &Path) -> Result<Connection> {
     if !path.exists() {
-        bail!(
-            "{}: no catalogue here (run `glitchbook scan` or `glitchbook import` first, or pass --db)",
-            path.display()
-        );
+        return Err(crate::Error::not_found(
+            "catalogue",
+            path.display(),
+            format!(
+                "{}: no catalogue here (scan or import triggers into it first)",
+                path.display()
+            ),
+        )
+        .into());
     }
     open(path)
 }
@@ -199,8 +184,14 @@ mod tests {
             .unwrap()
             .pragma_update(None, "user_version", 999)
             .unwrap();
-        let err = open(&p).unwrap_err().to_string();
-        assert!(err.contains("newer"), "{err}");
+        let err = open(&p).unwrap_err();
+        assert!(
+            matches!(
+                crate::Error::find(&err),
+                Some(crate::Error::SchemaTooNew { found: 999, .. })
+            ),
+            "{err}"
+        );
     }
 
     #[test]
@@ -213,6 +204,13 @@ mod tests {
         }
         assert_eq!(to_ns(1_400_000_010.25), 1_400_000_010_250_000_000);
         assert_eq!(to_ns(-1.5), -1_500_000_000);
+    }
+
+    #[test]
+    fn utc_format() {
+        let s = now_utc();
+        assert_eq!(s.len(), 20);
+        assert!(s.starts_with("20") && s.ends_with('Z'));
     }
 }
 

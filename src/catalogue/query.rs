@@ -3,7 +3,7 @@
 use super::{from_ns, to_ns};
 use crate::segments::{Segment, SegmentList};
 use crate::trigger::Trigger;
-use anyhow::{bail, Result};
+use anyhow::Result;
 use rusqlite::{types::Value, Connection, OptionalExtension, Row};
 use serde::Serialize;
 
@@ -105,6 +105,38 @@ pub struct TriggerQuery {
     pub family: Option<i64>,
 }
 
+impl TriggerQuery {
+    /// Check the filters (no I/O).
+    ///
+    /// # Errors
+    /// [`crate::Error::InvalidParameter`] naming the field: a bound that is
+    /// not a finite number, or `since ≥ until`.
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
+        for (field, v) in [
+            ("since", self.since),
+            ("until", self.until),
+            ("min_snr", self.min_snr),
+        ] {
+            if let Some(x) = v.filter(|x| !x.is_finite()) {
+                return Err(Error::invalid(
+                    field,
+                    format!("must be a finite number, got {x}"),
+                ));
+            }
+        }
+        if let (Some(a), Some(b)) = (self.since, self.until) {
+            if a >= b {
+                return Err(Error::invalid(
+                    "since",
+                    format!("({a}) must be before {{until}} ({b})"),
+                ));
+            }
+        }
+        Ok(())
+    }
+}
+
 /// The SQL and bound values of a trigger query (public to the crate so a
 /// test can check its plan).
 pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String, Vec<Value>)> {
@@ -116,7 +148,12 @@ pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String
     let mut vals: Vec<Value> = Vec::new();
     if let Some(name) = &q.channel {
         let Some(ch) = channel_by_name(conn, name)? else {
-            bail!("no channel named {name:?} in the catalogue (see `glitchbook channels`)");
+            return Err(crate::Error::not_found(
+                "channel",
+                name,
+                format!("no channel named {name:?} in the catalogue"),
+            )
+            .into());
         };
         vals.push(Value::Integer(ch.id));
         sql.push_str(&format!(" AND t.channel_id = ?{}", vals.len()));
@@ -143,7 +180,12 @@ pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String
                 |r| r.get(0),
             )?;
             if !known {
-                bail!("no family {f} in the catalogue (see `glitchbook families`)");
+                return Err(crate::Error::not_found(
+                    "family",
+                    f,
+                    format!("no family {f} in the catalogue"),
+                )
+                .into());
             }
             vals.push(Value::Integer(f));
             sql.push_str(&format!(
@@ -165,6 +207,7 @@ pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String
 /// # Errors
 /// An unknown channel name, or any SQLite error.
 pub fn query_triggers(conn: &Connection, q: &TriggerQuery) -> Result<Vec<TriggerRow>> {
+    q.check()?;
     let (sql, vals) = trigger_sql(conn, q)?;
     let mut st = conn.prepare_cached(&sql)?;
     let rows = st.query_map(rusqlite::params_from_iter(vals), TriggerRow::from_row)?;

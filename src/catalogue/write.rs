@@ -8,8 +8,8 @@ use crate::scan::ChannelScan;
 use crate::segments::SegmentList;
 use crate::trigger::Trigger;
 use anyhow::{bail, Context, Result};
-use rusqlite::{params, OptionalExtension, Transaction};
-use std::path::Path;
+use rusqlite::{params, Connection, OptionalExtension, Transaction};
+use std::path::{Path, PathBuf};
 use xxhash_rust::xxh3::Xxh3;
 
 /// What produced a `scans` row.
@@ -332,6 +332,30 @@ pub fn insert_channel_scan(
         },
     )
     .with_context(|| format!("recording scan of channel {:?}", scan.channel.name))
+}
+
+/// Record channel scans, each with the bundle directory it was read from
+/// (stored as the scan's source path: later commands reopen the data
+/// there), in one immediate transaction: [`insert_channel_scan`] for each,
+/// then `also` (e.g. a provenance row) in the same transaction, then commit.
+/// All or nothing. Scans already stored (same [`run_key`]) are skipped.
+/// The path `scan`, `demo` and shard runs share.
+///
+/// # Errors
+/// As [`insert_scan`], or whatever `also` returns; nothing is written then.
+pub fn record_scans(
+    conn: &mut Connection,
+    scans: &[(ChannelScan, PathBuf)],
+    also: impl FnOnce(&Transaction) -> Result<()>,
+) -> Result<Vec<InsertOutcome>> {
+    let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+    let mut out = Vec::with_capacity(scans.len());
+    for (scan, bundle_dir) in scans {
+        out.push(insert_channel_scan(&tx, scan, bundle_dir)?);
+    }
+    also(&tx)?;
+    tx.commit()?;
+    Ok(out)
 }
 
 /// Write an import of external triggers (kind `import`).

@@ -89,17 +89,6 @@ fn maps(conn: &Connection) -> Result<BundleMaps> {
 
 /// Run `cluster`.
 pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
-    if !(a.min_snr.is_finite() && a.min_snr >= 0.0) {
-        bail!("--min-snr must be a finite number ≥ 0 (got {})", a.min_snr);
-    }
-    if !(1..=64).contains(&a.k_max) {
-        bail!("--k-max must be between 1 and 64 (got {})", a.k_max);
-    }
-    let mut conn = catalogue::open_existing(&g.db)?;
-    let src = maps(&conn)?;
-    if a.assign_only {
-        return assign(g, &mut conn, &src);
-    }
     let params = ClusterParams {
         seed: a.seed,
         min_snr: a.min_snr,
@@ -108,6 +97,12 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         select_diagonal: a.select_diagonal,
         ..Default::default()
     };
+    params.check()?;
+    let mut conn = catalogue::open_existing(&g.db)?;
+    let src = maps(&conn)?;
+    if a.assign_only {
+        return assign(g, &mut conn, &src);
+    }
     let rep = families::cluster_catalogue(&mut conn, &params, &src)?;
     g.info(&format!(
         "clustered {} triggers into {} families ({} new fingerprints, run {})",
@@ -117,7 +112,7 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         rep.run_id
     ));
     for e in &rep.events {
-        if e.kind != "kept" {
+        if e.kind != families::EventKind::Kept {
             let other = e
                 .other_family_id
                 .map(|o| format!(" (with family {o})"))
@@ -240,9 +235,6 @@ pub fn run_families(g: &Global, a: FamiliesArgs) -> Result<ExitCode> {
 
 /// Run `label`.
 pub fn run_label(g: &Global, a: LabelArgs) -> Result<ExitCode> {
-    if a.name.trim().is_empty() {
-        bail!("the label must not be empty");
-    }
     let mut conn = catalogue::open_existing(&g.db)?;
     let author = a.author.unwrap_or_else(families::default_author);
     families::label(&mut conn, a.family, &a.name, a.note.as_deref(), &author)?;

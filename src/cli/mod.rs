@@ -7,6 +7,7 @@ use std::process::ExitCode;
 
 mod channels;
 mod check;
+mod common;
 mod demo;
 mod families;
 mod import;
@@ -17,6 +18,8 @@ mod scan;
 mod triggers;
 mod vetoes;
 mod witnesses;
+
+pub use common::error_message;
 
 /// glitchbook: find, sort, track and trace noise transients in
 /// gravitational-wave detector data.
@@ -32,12 +35,14 @@ pub struct Cli {
 /// Options every command takes.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Global {
-    /// Catalogue file (SQLite).
+    /// Catalogue file (SQLite) [default: glitchbook.db; for `demo`:
+    /// DIR/glitchbook.db].
     #[arg(
         long,
         global = true,
         value_name = "PATH",
-        default_value = "glitchbook.db"
+        default_value = "glitchbook.db",
+        hide_default_value = true
     )]
     pub db: PathBuf,
     /// Print only warnings, errors and requested listings.
@@ -132,14 +137,6 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Merge(a) => plan::run_merge(g, a),
         Command::DemoData(a) => plan::run_demo_data(g, a),
         Command::CompareCatalogues(a) => plan::run_compare(g, a),
-    }
-}
-
-/// Parse an optional finite number flag.
-pub fn finite(name: &str, v: Option<f64>) -> anyhow::Result<Option<f64>> {
-    match v {
-        Some(x) if !x.is_finite() => anyhow::bail!("--{name} must be a finite number, got {x}"),
-        _ => Ok(v),
     }
 }
 

@@ -1,7 +1,7 @@
 //! Scale-out commands: `plan` (and `plan status`), `run-plan`, `merge`,
-//! `scan --shard K --plan DIR`, and two hidden helpers for the end-to-end
+//! and two hidden helpers for the end-to-end
 //! check (`demo-data`, `compare-catalogues`).
-use super::scan::ScanFlags;
+use super::common::{shard_command, ScanFlags};
 use super::{warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::plan::{self, PlanOptions, ShardState, SlurmOptions};
@@ -80,46 +80,14 @@ pub struct StatusArgs {
 }
 
 impl PlanArgs {
-    /// Check the flags (no I/O) and build the plan options.
+    /// The plan options these flags set, checked by the library
+    /// ([`PlanOptions::check`]; no I/O).
     pub fn validate(&self) -> Result<PlanOptions> {
-        let params = self.scan.validate()?;
-        if let Some(s) = self.span {
-            if !(s.is_finite() && s > 0.0) {
-                bail!("--span must be a positive number of seconds, got {s}");
-            }
-        }
-        if self.shards == Some(0) {
-            bail!("--shards must be at least 1");
-        }
-        if self.channel_groups == 0 {
-            bail!("--channel-groups must be at least 1");
-        }
-        if self.cpus == 0 {
-            bail!("--cpus must be at least 1");
-        }
-        if self.mem_mb == 0 {
-            bail!("--mem-mb must be at least 1");
-        }
-        if self.max_parallel == Some(0) {
-            bail!("--max-parallel must be at least 1");
-        }
-        // Slurm's forms: MM, MM:SS, HH:MM:SS, D-HH, D-HH:MM, D-HH:MM:SS.
-        let t = &self.time_limit;
-        let (days, rest) = t.split_once('-').unwrap_or(("0", t));
-        let parts: Vec<&str> = rest.split(':').collect();
-        let digits = |x: &str| !x.is_empty() && x.chars().all(|c| c.is_ascii_digit());
-        if !(digits(days)
-            && !parts.is_empty()
-            && parts.len() <= 3
-            && parts.iter().all(|p| digits(p)))
-        {
-            bail!("--time-limit must look like HH:MM:SS or D-HH:MM:SS (Slurm --time), got {t:?}");
-        }
         let exe = match &self.exe {
             Some(p) => p.clone(),
             None => std::env::current_exe()?,
         };
-        Ok(PlanOptions {
+        let opts = PlanOptions {
             shards: if self.span.is_some() {
                 None
             } else {
@@ -127,7 +95,7 @@ impl PlanArgs {
             },
             span_s: self.span,
             channel_groups: self.channel_groups,
-            params,
+            params: self.scan.validate()?,
             segments: self.segments.clone(),
             slurm: SlurmOptions {
                 partition: self.partition.clone(),
@@ -138,7 +106,9 @@ impl PlanArgs {
                 exe: exe.display().to_string(),
                 ..SlurmOptions::default()
             },
-        })
+        };
+        opts.check()?;
+        Ok(opts)
     }
 }
 
@@ -159,7 +129,7 @@ pub fn run(g: &Global, args: PlanArgs) -> Result<ExitCode> {
         );
     }
     let t0 = Instant::now();
-    let p = plan::make_plan(&args.bundles, &opts, out)?;
+    let p = plan::make_plan(&args.bundles, &opts, out, &shard_command())?;
     let dir = std::fs::canonicalize(out).unwrap_or_else(|_| out.clone());
     g.info(&format!(
         "plan {}: {} shards over {} channels in {:.1} s",
@@ -187,32 +157,6 @@ fn run_status(dir: &Path) -> Result<ExitCode> {
     })
 }
 
-/// `scan --shard K --plan DIR`: scan shard K and write the plan's own
-/// catalogue for it, `DIR/shards/shard-K.db` (the global --db is not used).
-pub fn run_shard(g: &Global, k: usize, dir: &Path) -> Result<ExitCode> {
-    let t0 = Instant::now();
-    let db = plan::run_shard(dir, k)?;
-    let same = |a: &Path, b: &Path| {
-        std::fs::canonicalize(a)
-            .ok()
-            .zip(std::fs::canonicalize(b).ok())
-            .is_some_and(|(x, y)| x == y)
-    };
-    if !same(&g.db, &db) && g.db != Path::new("glitchbook.db") {
-        warn(&format!(
-            "--db {} is not used with --shard: the shard catalogue is {}",
-            g.db.display(),
-            db.display()
-        ));
-    }
-    g.info(&format!(
-        "shard {k}: wrote {} in {:.1} s",
-        db.display(),
-        t0.elapsed().as_secs_f64()
-    ));
-    Ok(ExitCode::SUCCESS)
-}
-
 /// Run the shards of a plan on this machine.
 #[derive(Debug, clap::Args)]
 pub struct RunPlanArgs {
@@ -236,7 +180,7 @@ pub fn run_plan(g: &Global, args: RunPlanArgs) -> Result<ExitCode> {
         .count();
     let exe = std::env::current_exe()?;
     let t0 = Instant::now();
-    let res = plan::run_local(&args.dir, args.jobs, &exe);
+    let res = plan::run_local(&args.dir, args.jobs, &exe, &shard_command());
     let secs = t0.elapsed().as_secs_f64();
     let st = plan::status(&args.dir)?;
     print!("{}", plan::status_text(&st));
@@ -384,7 +328,7 @@ mod tests {
             let mut argv = vec!["glitchbook", "plan", "b", "--out", "d"];
             argv.extend_from_slice(x);
             match parse(&argv) {
-                Ok(Command::Plan(a)) => a.validate().unwrap_err().to_string(),
+                Ok(Command::Plan(a)) => crate::cli::error_message(&a.validate().unwrap_err()),
                 Ok(_) => panic!("not plan"),
                 Err(e) => e.to_string(),
             }

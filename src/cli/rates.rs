@@ -1,8 +1,8 @@
 //! `glitchbook rates`: trigger rates per hour of live time, with Poisson
 //! limits (Gehrels 1986) and change points (Bayesian blocks, Scargle et al.
 //! 2013), for all target triggers and each family.
-use super::witnesses::print_listing;
-use super::{finite, Global};
+use super::common::{print_listing, RateFlags};
+use super::Global;
 use anyhow::Result;
 use glitchbook::catalogue;
 use glitchbook::output::Format;
@@ -30,47 +30,6 @@ pub struct RatesArgs {
     /// Output format (csv: one row per subject and bin).
     #[arg(long, value_enum, default_value_t = Format::Table)]
     pub format: Format,
-}
-
-/// The span and rate flags shared by `rates` and `report` (same names,
-/// defaults and checks).
-#[derive(Debug, Clone, clap::Args)]
-pub struct RateFlags {
-    /// Bin width [s].
-    #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
-    pub bin: f64,
-    /// Start of the span [GPS s] [default: start of live time].
-    #[arg(long, value_name = "T")]
-    pub since: Option<f64>,
-    /// End of the span [GPS s] [default: end of live time].
-    #[arg(long, value_name = "T")]
-    pub until: Option<f64>,
-    /// Only triggers with SNR at least X.
-    #[arg(long, value_name = "X", default_value_t = 0.0)]
-    pub min_snr: f64,
-    /// One-sided confidence level of the rate limits, in (0, 1).
-    #[arg(long, value_name = "C", default_value_t = 0.9)]
-    pub cl: f64,
-    /// False-positive probability of each Bayesian-blocks change point, in (0, 1).
-    #[arg(long, value_name = "P", default_value_t = 0.05)]
-    pub p0: f64,
-}
-
-impl RateFlags {
-    /// The rate parameters these flags set (the rest default), checked.
-    pub fn rate_params(&self) -> Result<RateParams> {
-        let p = RateParams {
-            bin_s: self.bin,
-            since_gps: finite("since", self.since)?,
-            until_gps: finite("until", self.until)?,
-            min_snr: self.min_snr,
-            cl: self.cl,
-            p0: self.p0,
-            ..RateParams::default()
-        };
-        p.check()?;
-        Ok(p)
-    }
 }
 
 impl RatesArgs {
@@ -125,12 +84,10 @@ mod tests {
             (&["--since", "inf"][..], "--since"),
             (&["--min-live-fraction", "2"][..], "--min-live-fraction"),
         ] {
-            let e = parse(args).unwrap_err().to_string();
+            let e = crate::cli::error_message(&parse(args).unwrap_err());
             assert!(e.starts_with(flag), "{args:?}: {e}");
         }
-        let e = parse(&["--since", "20", "--until", "10"])
-            .unwrap_err()
-            .to_string();
+        let e = crate::cli::error_message(&parse(&["--since", "20", "--until", "10"]).unwrap_err());
         assert!(e.contains("--until") && e.contains("--since"), "{e}");
     }
 }

@@ -1,6 +1,6 @@
 //! `glitchbook report`: a static HTML report (no network, no JavaScript) of
 //! the catalogue: channels, families, rates, witnesses and veto proposals.
-use super::rates::RateFlags;
+use super::common::RateFlags;
 use super::Global;
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
@@ -49,18 +49,14 @@ impl ReportArgs {
         })
     }
 }
-/// Spectrogram images of a few representative members of each family,
-/// computed from the scanned bundles. When the data can no longer be opened
-/// the report goes on without images (warned).
-pub fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<Thumbnail>> {
-    let src = match glitchbook::maps::BundleMaps::from_catalogue(conn) {
-        Ok(s) => s,
-        Err(e) => {
-            super::warn(&format!("no spectrogram images in the report: {e:#}"));
-            return Ok(Vec::new());
-        }
-    };
-    glitchbook::families::render_family_thumbnails(conn, &src, &out_dir.join("thumbs"), 3)
+/// Spectrogram images of a few representative members of each family
+/// (`families::report_thumbnails`); without the data, none (warned).
+fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<Thumbnail>> {
+    let (images, missing) = glitchbook::families::report_thumbnails(conn, out_dir)?;
+    if let Some(why) = missing {
+        super::warn(&why);
+    }
+    Ok(images)
 }
 
 /// Run the command.
@@ -104,12 +100,12 @@ mod tests {
             (&["--out", "r", "--cl", "7"][..], "--cl"),
             (&["--out", "r", "--until", "nan"][..], "--until"),
         ] {
-            let e = parse(args).unwrap_err().to_string();
+            let e = crate::cli::error_message(&parse(args).unwrap_err());
             assert!(e.starts_with(flag), "{args:?}: {e}");
         }
-        let e = parse(&["--out", "r", "--since", "9", "--until", "3"])
-            .unwrap_err()
-            .to_string();
+        let e = crate::cli::error_message(
+            &parse(&["--out", "r", "--since", "9", "--until", "3"]).unwrap_err(),
+        );
         assert!(e.contains("--until"), "{e}");
     }
 }

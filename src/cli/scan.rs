@@ -1,12 +1,14 @@
 //! `glitchbook scan`: search bundle channels for transients and record them.
-use super::{finite, warn, Global};
+use super::common::ScanFlags;
+use super::{warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::catalogue::{self, InsertOutcome};
 use glitchbook::io::{self, Bundle, ChannelSpec};
 use glitchbook::scan::{scan_channel, ChannelScan, ScanParams};
 use std::io::IsTerminal;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
+use std::time::Instant;
 
 /// Search channels of a bundle (a directory with `bundle.toml` and `.npy`
 /// files) with the multi-resolution Q-transform and record the triggers.
@@ -32,83 +34,6 @@ pub struct ScanArgs {
     /// Work directory written by `plan` (with --shard).
     #[arg(long, value_name = "DIR", requires = "shard")]
     pub plan: Option<PathBuf>,
-}
-
-/// The scan parameter flags, shared by `scan` and `plan` (same names,
-/// defaults and checks).
-#[derive(Debug, Clone, clap::Args)]
-pub struct ScanFlags {
-    /// SNR threshold of a significant tile.
-    #[arg(long, value_name = "X", default_value_t = 5.5)]
-    pub snr_threshold: f64,
-    /// Lowest analysed frequency [Hz] [default: per channel].
-    #[arg(long, value_name = "F")]
-    pub fmin: Option<f64>,
-    /// Highest analysed frequency [Hz] [default: per channel].
-    #[arg(long, value_name = "F")]
-    pub fmax: Option<f64>,
-    /// Smallest Q (at least 2: below about 2 the tiles lose their meaning).
-    #[arg(long, value_name = "Q", default_value_t = 4.0)]
-    pub qmin: f64,
-    /// Largest Q.
-    #[arg(long, value_name = "Q", default_value_t = 64.0)]
-    pub qmax: f64,
-    /// Maximum fractional energy mismatch between neighbouring tiles.
-    #[arg(long, value_name = "M", default_value_t = 0.2)]
-    pub mismatch: f64,
-    /// Block length [s] [default: derived from the padding, at least 32 s].
-    #[arg(long, value_name = "S")]
-    pub block_s: Option<f64>,
-}
-
-impl ScanFlags {
-    /// Check the flags (no I/O) and build the scan parameters.
-    pub fn validate(&self) -> Result<ScanParams> {
-        let pos = |name: &str, x: f64| -> Result<f64> {
-            if !(x.is_finite() && x > 0.0) {
-                bail!("--{name} must be a positive number, got {x}");
-            }
-            Ok(x)
-        };
-        let snr_threshold = pos("snr-threshold", self.snr_threshold)?;
-        let fmin = finite("fmin", self.fmin)?
-            .map(|f| pos("fmin", f))
-            .transpose()?;
-        let fmax = finite("fmax", self.fmax)?
-            .map(|f| pos("fmax", f))
-            .transpose()?;
-        if let (Some(lo), Some(hi)) = (fmin, fmax) {
-            if lo >= hi {
-                bail!("--fmin ({lo} Hz) must be below --fmax ({hi} Hz)");
-            }
-        }
-        // Common practice: below Q ≈ 2 a bisquare tile no longer has a
-        // meaningful frequency extent.
-        if !(self.qmin.is_finite() && self.qmin >= 2.0) {
-            bail!("--qmin must be at least 2, got {}", self.qmin);
-        }
-        if !(self.qmax.is_finite() && self.qmax >= self.qmin) {
-            bail!(
-                "--qmax ({}) must be at least --qmin ({})",
-                self.qmax,
-                self.qmin
-            );
-        }
-        if !(self.mismatch > 0.0 && self.mismatch < 1.0) {
-            bail!("--mismatch must be between 0 and 1, got {}", self.mismatch);
-        }
-        Ok(ScanParams {
-            snr_threshold,
-            fmin,
-            fmax,
-            qmin: self.qmin,
-            qmax: self.qmax,
-            mismatch: self.mismatch,
-            block_s: finite("block-s", self.block_s)?
-                .map(|b| pos("block-s", b))
-                .transpose()?,
-        })
-    }
 }
 
 impl ScanArgs {
@@ -155,11 +80,37 @@ fn progress_bar(g: &Global, name: &str) -> indicatif::ProgressBar {
     pb
 }
 
+/// `scan --shard K --plan DIR`: scan shard K and write the plan's own
+/// catalogue for it, `DIR/shards/shard-K.db` (the global --db is not used).
+pub fn run_shard(g: &Global, k: usize, dir: &Path) -> Result<ExitCode> {
+    let t0 = Instant::now();
+    let db = glitchbook::plan::run_shard(dir, k)?;
+    let same = |a: &Path, b: &Path| {
+        std::fs::canonicalize(a)
+            .ok()
+            .zip(std::fs::canonicalize(b).ok())
+            .is_some_and(|(x, y)| x == y)
+    };
+    if !same(&g.db, &db) && g.db != Path::new("glitchbook.db") {
+        warn(&format!(
+            "--db {} is not used with --shard: the shard catalogue is {}",
+            g.db.display(),
+            db.display()
+        ));
+    }
+    g.info(&format!(
+        "shard {k}: wrote {} in {:.1} s",
+        db.display(),
+        t0.elapsed().as_secs_f64()
+    ));
+    Ok(ExitCode::SUCCESS)
+}
+
 /// Run the command. Channels are scanned one after another (each scan uses
 /// every core); all results are written in one transaction at the end.
 pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
     if let (Some(k), Some(dir)) = (args.shard, &args.plan) {
-        return super::plan::run_shard(g, k, dir);
+        return run_shard(g, k, dir);
     }
     let params = args.validate()?;
     let Some(bundle_arg) = args.bundle.clone() else {
@@ -188,10 +139,13 @@ pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
         results.push(r);
     }
     let mut conn = catalogue::open(&g.db)?;
-    let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-    let mut lines = Vec::new();
-    for r in &results {
-        let msg = match catalogue::insert_channel_scan(&tx, r, &bundle_dir)? {
+    let scans: Vec<(ChannelScan, PathBuf)> = results
+        .into_iter()
+        .map(|r| (r, bundle_dir.clone()))
+        .collect();
+    let outcomes = catalogue::record_scans(&mut conn, &scans, |_| Ok(()))?;
+    for ((r, _), outcome) in scans.iter().zip(outcomes) {
+        g.info(&match outcome {
             InsertOutcome::Inserted { n_triggers, .. } => format!(
                 "{}: {n_triggers} triggers in {:.1} s analysed",
                 r.channel.name,
@@ -200,12 +154,7 @@ pub fn run(g: &Global, args: ScanArgs) -> Result<ExitCode> {
             InsertOutcome::Skipped { .. } => {
                 format!("{}: {}", r.channel.name, InsertOutcome::SKIPPED_MESSAGE)
             }
-        };
-        lines.push(msg);
-    }
-    tx.commit()?;
-    for l in lines {
-        g.info(&l);
+        });
     }
     Ok(ExitCode::SUCCESS)
 }
@@ -232,8 +181,12 @@ mod tests {
 
     #[test]
     fn bad_flags_refused() {
-        let e = |x: &[&str]| parse(x).unwrap_err().to_string();
+        let e = |x: &[&str]| crate::cli::error_message(&parse(x).unwrap_err());
         assert!(e(&["--fmin", "100", "--fmax", "50"]).contains("--fmin"));
+        assert_eq!(
+            e(&["--qmin", "8", "--qmax", "4"]),
+            "--qmax (4) must be at least --qmin (8)"
+        );
         assert!(e(&["--qmin", "1.5"]).contains("at least 2"));
         assert!(e(&["--qmin", "8", "--qmax", "4"]).contains("--qmax"));
         assert!(e(&["--snr-threshold", "-1"]).contains("--snr-threshold"));

@@ -1,6 +1,6 @@
 //! `glitchbook triggers`: list stored triggers.
-use super::{finite, Global};
-use anyhow::{bail, Result};
+use super::Global;
+use anyhow::Result;
 use glitchbook::catalogue::{self, TriggerQuery};
 use glitchbook::output::{write_rows, Format};
 use std::process::ExitCode;
@@ -33,24 +33,18 @@ pub struct TriggersArgs {
 }
 
 impl TriggersArgs {
-    /// Check the flags (no I/O).
+    /// The query these flags set, checked by the library (no I/O).
     pub fn validate(&self) -> Result<TriggerQuery> {
-        let since = finite("since", self.since)?;
-        let until = finite("until", self.until)?;
-        let min_snr = finite("min-snr", self.min_snr)?;
-        if let (Some(a), Some(b)) = (since, until) {
-            if a >= b {
-                bail!("--since ({a}) must be before --until ({b})");
-            }
-        }
-        Ok(TriggerQuery {
+        let q = TriggerQuery {
             channel: self.channel.clone(),
-            min_snr,
-            since,
-            until,
+            min_snr: self.min_snr,
+            since: self.since,
+            until: self.until,
             limit: self.limit,
             family: self.family,
-        })
+        };
+        q.check()?;
+        Ok(q)
     }
 }
 

@@ -1,7 +1,8 @@
 //! `glitchbook vetoes`: veto rounds (hierarchical method) with a safety check
 //! against injections and one proposal per aux channel; proposals for the
 //! instrument team, never applied here.
-use super::witnesses::{print_listing, GridArgs};
+use super::common::print_listing;
+use super::witnesses::GridArgs;
 use super::{warn, Global};
 use anyhow::{bail, Context, Result};
 use glitchbook::catalogue;

@@ -1,15 +1,15 @@
 //! `glitchbook witnesses`: which aux channels fire together with target
 //! triggers (all, or per family), over a grid of aux SNR thresholds and
 //! windows, with chance and false-alarm probabilities from time slides.
-use super::{finite, warn, Global};
+use super::common::{finite, print_listing};
+use super::{warn, Global};
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
 use glitchbook::coupling::{
     run_witnesses, write_witnesses, Grid, Thresholds, WitnessParams, DEFAULT_MIN_KEPT,
     DEFAULT_SLIDES, DEFAULT_THRESHOLD_STEPS, DEFAULT_WITNESS_FALSE_ALARM,
 };
-use glitchbook::output::{escape_control, Format};
-use std::io::Write;
+use glitchbook::output::Format;
 use std::process::ExitCode;
 
 /// Grid flags shared by `witnesses` and `vetoes`.
@@ -84,29 +84,6 @@ fn sorted_unique(v: &[f64]) -> Vec<f64> {
     v.sort_by(f64::total_cmp);
     v.dedup();
     v
-}
-
-/// Write `text` to stdout; in table format each line goes through
-/// [`escape_control`] first, so user text (channel names, labels) cannot
-/// move the cursor or recolour the terminal (JSON and CSV keep exact bytes,
-/// as in `glitchbook::output`).
-/// A reader that stops early (`| head`) is not an error.
-pub fn print_listing(format: Format, text: &[u8]) -> Result<()> {
-    let write = || -> std::io::Result<()> {
-        let mut out = std::io::stdout().lock();
-        if format == Format::Table {
-            for line in String::from_utf8_lossy(text).lines() {
-                writeln!(out, "{}", escape_control(line))?;
-            }
-        } else {
-            out.write_all(text)?;
-        }
-        out.flush()
-    };
-    match write() {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
-        _ => Ok(()),
-    }
 }
 
 /// Witness channels of the target triggers: for each aux channel its best

@@ -223,7 +223,7 @@ fn insert_run(tx: &rusqlite::Transaction, kind: &str, params_json: &str) -> Resu
 /// transaction.
 ///
 /// # Errors
-/// Invalid parameters, an unknown `--family`, no target channel, SQL errors.
+/// Invalid parameters, an unknown family, no target channel, SQL errors.
 pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<WitnessReport> {
     params.check()?;
     let targets = load_targets(conn, params.target_min_snr)?;
@@ -232,7 +232,12 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     let sets: Vec<Option<i64>> = match params.family {
         Some(f) => {
             if !targets.family_ids().contains(&f) {
-                bail!("--family {f}: no target trigger belongs to family {f}");
+                return Err(crate::Error::not_found(
+                    "family",
+                    f,
+                    format!("family {f}: no target trigger belongs to it"),
+                )
+                .into());
             }
             vec![Some(f)]
         }

@@ -55,7 +55,7 @@ pub use background::DEFAULT_SLIDES;
 pub use db::{run_vetoes, run_witnesses, WitnessParams, WitnessReport};
 pub use lag::LagSummary;
 pub use output::{write_veto_segments, write_vetoes, write_witnesses, Format};
-pub use veto::{VetoParams, VetoProposal, VetoReport, VetoRound};
+pub use veto::{ProposalState, Safety, VetoParams, VetoProposal, VetoReport, VetoRound};
 
 /// Caution carried by every veto output (table footer, JSON `caution`
 /// field, CSV column, segment-file header and metadata, report).

@@ -17,7 +17,7 @@
 //! TOML gives one), the channel (1-based index and name) and the field.
 use super::npy::NpyReader;
 use super::shown;
-use anyhow::{anyhow, bail};
+use crate::{Error, Result};
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
 use toml::Spanned;
@@ -109,106 +109,122 @@ fn line_col(text: &str, offset: usize) -> (usize, usize) {
 /// finite and > 0, start not finite, fmin/fmax not finite and > 0, fmin ≥
 /// fmax, fmax above Nyquist (rate/2), an empty or repeated channel name or
 /// file, or no channels.
-pub fn parse_bundle_toml(text: &str, dir: &Path) -> anyhow::Result<Bundle> {
+pub fn parse_bundle_toml(text: &str, dir: &Path) -> Result<Bundle> {
     let toml_path = dir.join("bundle.toml");
-    let fname = toml_path.display();
     let raw: RawBundle = toml::from_str(text).map_err(|e| {
         let msg = e.message().trim().replace('\n', " ");
         match e.span() {
             Some(span) => {
                 let (line, col) = line_col(text, span.start);
-                anyhow!("{fname}:{line}:{col}: {msg}")
+                Error::parse(&toml_path, msg).at(line as u64, Some(col as u64))
             }
-            None => anyhow!("{fname}: {msg}"),
+            None => Error::parse(&toml_path, msg),
         }
     })?;
     if raw.channel.is_empty() {
-        bail!("{fname}: no channels: add at least one [[channel]] table");
+        return Err(Error::parse(
+            &toml_path,
+            "no channels: add at least one [[channel]] table",
+        ));
     }
     let mut channels: Vec<ChannelSpec> = Vec::with_capacity(raw.channel.len());
     for (i, ch) in raw.channel.into_iter().enumerate() {
         let idx = i + 1;
-        let at = |span: std::ops::Range<usize>| {
+        // `path:line:col: channel #i[ 'name']: field 'f' ...`
+        let at = |span: std::ops::Range<usize>, who: &str, field: &str, what: String| {
             let (line, col) = line_col(text, span.start);
-            format!("{fname}:{line}:{col}: channel #{idx}")
+            Error::parse(
+                &toml_path,
+                format!("channel #{idx}{who}: field '{field}' {what}"),
+            )
+            .at(line as u64, Some(col as u64))
+            .in_field(field)
         };
         let name = ch.name.get_ref().trim().to_owned();
         if name.is_empty() {
-            bail!("{}: field 'name' is empty", at(ch.name.span()));
+            return Err(at(ch.name.span(), "", "name", "is empty".into()));
         }
         if name.chars().any(char::is_control) {
-            bail!(
-                "{}: field 'name' = \"{}\" contains a control character",
-                at(ch.name.span()),
-                shown(&name)
-            );
+            return Err(at(
+                ch.name.span(),
+                "",
+                "name",
+                format!("= \"{}\" contains a control character", shown(&name)),
+            ));
         }
-        let here = |span: std::ops::Range<usize>| format!("{} '{name}'", at(span));
+        let who = format!(" '{name}'");
+        let here = |span, field: &str, what: String| at(span, &who, field, what);
         if let Some(prev) = channels.iter().position(|c| c.name == name) {
-            bail!(
-                "{}: field 'name' repeats the name of channel #{}",
-                here(ch.name.span()),
-                prev + 1
-            );
+            return Err(here(
+                ch.name.span(),
+                "name",
+                format!("repeats the name of channel #{}", prev + 1),
+            ));
         }
         let file_rel = ch.file.get_ref();
         if file_rel.trim().is_empty() {
-            bail!("{}: field 'file' is empty", here(ch.file.span()));
+            return Err(here(ch.file.span(), "file", "is empty".into()));
         }
         if file_rel.chars().any(char::is_control) {
-            bail!(
-                "{}: field 'file' = \"{}\" contains a control character",
-                here(ch.file.span()),
-                shown(file_rel)
-            );
+            return Err(here(
+                ch.file.span(),
+                "file",
+                format!("= \"{}\" contains a control character", shown(file_rel)),
+            ));
         }
         let joined = dir.join(file_rel);
         let file = std::path::absolute(&joined).unwrap_or(joined);
         if let Some(prev) = channels.iter().position(|c| c.file == file) {
-            bail!(
-                "{}: field 'file' names the same file as channel #{}",
-                here(ch.file.span()),
-                prev + 1
-            );
+            return Err(here(
+                ch.file.span(),
+                "file",
+                format!("names the same file as channel #{}", prev + 1),
+            ));
         }
         let rate = *ch.rate.get_ref();
         if !(rate.is_finite() && rate > 0.0) {
-            bail!(
-                "{}: field 'rate' = {rate} must be finite and > 0 [Hz]",
-                here(ch.rate.span())
-            );
+            return Err(here(
+                ch.rate.span(),
+                "rate",
+                format!("= {rate} must be finite and > 0 [Hz]"),
+            ));
         }
         let start = *ch.start.get_ref();
         if !start.is_finite() {
-            bail!(
-                "{}: field 'start' = {start} must be a finite GPS time [s]",
-                here(ch.start.span())
-            );
+            return Err(here(
+                ch.start.span(),
+                "start",
+                format!("= {start} must be a finite GPS time [s]"),
+            ));
         }
         let role = match ch.role.get_ref().as_str() {
             "target" => Role::Target,
             "aux" => Role::Aux,
-            other => bail!(
-                "{}: field 'role' = \"{}\" must be \"target\" or \"aux\"",
-                here(ch.role.span()),
-                shown(other)
-            ),
+            other => {
+                return Err(here(
+                    ch.role.span(),
+                    "role",
+                    format!("= \"{}\" must be \"target\" or \"aux\"", shown(other)),
+                ))
+            }
         };
         let nyquist = rate / 2.0;
-        let check_f = |f: &Option<Spanned<f64>>, field: &str| -> anyhow::Result<Option<f64>> {
+        let check_f = |f: &Option<Spanned<f64>>, field: &str| -> Result<Option<f64>> {
             let Some(f) = f else { return Ok(None) };
             let v = *f.get_ref();
             if !(v.is_finite() && v > 0.0) {
-                bail!(
-                    "{}: field '{field}' = {v} must be finite and > 0 [Hz]",
-                    here(f.span())
-                );
+                return Err(here(
+                    f.span(),
+                    field,
+                    format!("= {v} must be finite and > 0 [Hz]"),
+                ));
             }
             if v > nyquist {
-                bail!(
-                    "{}: field '{field}' = {v} Hz is above the Nyquist frequency {nyquist} Hz (rate/2)",
-                    here(f.span())
-                );
+                return Err(here(
+                    f.span(),
+                    field,
+                    format!("= {v} Hz is above the Nyquist frequency {nyquist} Hz (rate/2)"),
+                ));
             }
             Ok(Some(v))
         };
@@ -216,10 +232,11 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> anyhow::Result<Bundle> {
         let fmax = check_f(&ch.fmax, "fmax")?;
         if let (Some(lo), Some(hi), Some(span)) = (fmin, fmax, ch.fmin.as_ref().map(|s| s.span())) {
             if lo >= hi {
-                bail!(
-                    "{}: field 'fmin' = {lo} Hz must be below fmax = {hi} Hz",
-                    here(span)
-                );
+                return Err(here(
+                    span,
+                    "fmin",
+                    format!("= {lo} Hz must be below fmax = {hi} Hz"),
+                ));
             }
         }
         channels.push(ChannelSpec {
@@ -246,26 +263,31 @@ impl Bundle {
     /// A missing or unreadable `bundle.toml`, anything
     /// [`parse_bundle_toml`] rejects, or a missing or invalid `.npy` file
     /// (named with its channel).
-    pub fn open(dir: &Path) -> anyhow::Result<Bundle> {
+    pub fn open(dir: &Path) -> Result<Bundle> {
         let toml_path = dir.join("bundle.toml");
         let text = match std::fs::read(&toml_path) {
             Ok(bytes) => String::from_utf8(bytes)
-                .map_err(|_| anyhow!("{}: not valid UTF-8 text", toml_path.display()))?,
-            Err(e) if e.kind() == std::io::ErrorKind::NotFound => bail!(
-                "{}: missing: a bundle directory must hold bundle.toml",
-                toml_path.display()
-            ),
-            Err(e) => bail!("{}: cannot read: {e}", toml_path.display()),
+                .map_err(|_| Error::parse(&toml_path, "not valid UTF-8 text"))?,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+                return Err(Error::not_found(
+                    "bundle",
+                    toml_path.display(),
+                    format!(
+                        "{}: missing: a bundle directory must hold bundle.toml",
+                        toml_path.display()
+                    ),
+                ))
+            }
+            Err(e) => return Err(Error::io(&toml_path, "cannot read", e)),
         };
         let bundle = parse_bundle_toml(&text, dir)?;
         for (i, ch) in bundle.channels.iter().enumerate() {
             NpyReader::open(&ch.file).map_err(|e| {
-                anyhow!(
-                    "{}: channel #{} '{}': field 'file': {e}",
-                    toml_path.display(),
-                    i + 1,
-                    ch.name
+                Error::parse(
+                    &toml_path,
+                    format!("channel #{} '{}': field 'file': {e}", i + 1, ch.name),
                 )
+                .in_field("file")
             })?;
         }
         Ok(bundle)

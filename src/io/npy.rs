@@ -388,17 +388,18 @@ impl NpyReader {
     /// magic or corrupt header, unsupported version, dtype, order or shape,
     /// zero length, or a file shorter (truncated) or longer (trailing bytes)
     /// than the header implies.
-    pub fn open(path: &Path) -> anyhow::Result<NpyReader> {
-        let named = |e: anyhow::Error| anyhow!("{}: {e}", path.display());
-        let file = File::open(path).map_err(|e| anyhow!("{}: cannot open: {e}", path.display()))?;
+    pub fn open(path: &Path) -> crate::Result<NpyReader> {
+        use crate::Error;
+        let named = |e: anyhow::Error| Error::parse(path, e.to_string());
+        let file = File::open(path).map_err(|e| Error::io(path, "cannot open", e))?;
         let file_len = file
             .metadata()
-            .map_err(|e| anyhow!("{}: cannot stat: {e}", path.display()))?
+            .map_err(|e| Error::io(path, "cannot stat", e))?
             .len();
         // Read the fixed prefix, then exactly the header the prefix announces.
         let mut prefix = vec![0u8; file_len.min(12) as usize];
         file.read_exact_at(&mut prefix, 0)
-            .map_err(|e| anyhow!("{}: cannot read header: {e}", path.display()))?;
+            .map_err(|e| Error::io(path, "cannot read header", e))?;
         let wanted = match (prefix.len(), prefix.get(6)) {
             (10.., Some(1)) => 10 + u16::from_le_bytes([prefix[8], prefix[9]]) as usize,
             (12.., Some(2 | 3)) => {
@@ -409,7 +410,7 @@ impl NpyReader {
         let wanted = wanted.min(12 + MAX_HEADER_LEN + 1).min(file_len as usize);
         let mut head = vec![0u8; wanted];
         file.read_exact_at(&mut head, 0)
-            .map_err(|e| anyhow!("{}: cannot read header: {e}", path.display()))?;
+            .map_err(|e| Error::io(path, "cannot read header", e))?;
         let header = parse_header(&head).map_err(named)?;
         check_file_len(&header, file_len).map_err(named)?;
         Ok(NpyReader {

@@ -7,16 +7,26 @@
 use super::shown;
 use crate::segments::{Segment, SegmentList};
 use crate::trigger::{energy_from_snr, Trigger};
-use anyhow::{anyhow, bail};
+use crate::{Error, Result};
 use std::collections::HashMap;
 use std::path::Path;
+
+/// `name:line: [column 'field': ]message`.
+fn parse_at(name: &str, line: u64, field: Option<&str>, message: impl Into<String>) -> Error {
+    match field {
+        Some(f) => Error::parse(name, format!("column '{f}': {}", message.into()))
+            .at(line, None)
+            .in_field(f),
+        None => Error::parse(name, message).at(line, None),
+    }
+}
 
 /// At most this many line-level warnings are listed one by one; the rest
 /// are summarised in one more warning.
 const MAX_LISTED_WARNINGS: usize = 20;
 
-fn read_bytes(path: &Path) -> anyhow::Result<Vec<u8>> {
-    std::fs::read(path).map_err(|e| anyhow!("{}: cannot read: {e}", path.display()))
+fn read_bytes(path: &Path) -> Result<Vec<u8>> {
+    std::fs::read(path).map_err(|e| Error::io(path, "cannot read", e))
 }
 
 /// Read a segments file (`start end` per line \[GPS s\], `#` comments).
@@ -26,11 +36,11 @@ fn read_bytes(path: &Path) -> anyhow::Result<Vec<u8>> {
 ///
 /// # Errors
 /// An unreadable file, or see [`parse_segments`].
-pub fn read_segments_file(path: &Path) -> anyhow::Result<(SegmentList, Vec<String>)> {
+pub fn read_segments_file(path: &Path) -> Result<(SegmentList, Vec<String>)> {
     let bytes = read_bytes(path)?;
     let name = path.display().to_string();
-    let text =
-        std::str::from_utf8(&bytes).map_err(|e| anyhow!("{name}: not valid UTF-8 text: {e}"))?;
+    let text = std::str::from_utf8(&bytes)
+        .map_err(|e| Error::parse(&name, format!("not valid UTF-8 text: {e}")))?;
     parse_segments(text, &name)
 }
 
@@ -44,7 +54,7 @@ pub fn read_segments_file(path: &Path) -> anyhow::Result<(SegmentList, Vec<Strin
 /// `name:line: ...` for a line without exactly two columns, a non-numeric or
 /// non-finite value, or end < start; `name: ...` when the file holds no
 /// segment of positive length.
-pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Vec<String>)> {
+pub fn parse_segments(text: &str, name: &str) -> Result<(SegmentList, Vec<String>)> {
     let mut segs = Vec::new();
     let mut warnings = Vec::new();
     let mut n_warned = 0usize;
@@ -65,24 +75,41 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
         }
         let cols: Vec<&str> = content.split_whitespace().collect();
         if cols.len() != 2 {
-            bail!(
-                "{name}:{line_no}: expected 2 columns 'start end', found {}",
-                cols.len()
-            );
+            return Err(parse_at(
+                name,
+                line_no as u64,
+                None,
+                format!("expected 2 columns 'start end', found {}", cols.len()),
+            ));
         }
-        let num = |s: &str, what: &str| -> anyhow::Result<f64> {
-            let v: f64 = s
-                .parse()
-                .map_err(|_| anyhow!("{name}:{line_no}: {what} '{}' is not a number", shown(s)))?;
+        let num = |s: &str, what: &str| -> Result<f64> {
+            let v: f64 = s.parse().map_err(|_| {
+                parse_at(
+                    name,
+                    line_no as u64,
+                    None,
+                    format!("{what} '{}' is not a number", shown(s)),
+                )
+            })?;
             if !v.is_finite() {
-                bail!("{name}:{line_no}: {what} '{}' is not finite", shown(s));
+                return Err(parse_at(
+                    name,
+                    line_no as u64,
+                    None,
+                    format!("{what} '{}' is not finite", shown(s)),
+                ));
             }
             Ok(v)
         };
         let start = num(cols[0], "start")?;
         let end = num(cols[1], "end")?;
         if end < start {
-            bail!("{name}:{line_no}: end {end} is before start {start}");
+            return Err(parse_at(
+                name,
+                line_no as u64,
+                None,
+                format!("end {end} is before start {start}"),
+            ));
         }
         if end == start {
             warn(format!(
@@ -126,7 +153,7 @@ pub fn parse_segments(text: &str, name: &str) -> anyhow::Result<(SegmentList, Ve
         ));
     }
     if segs.is_empty() {
-        bail!("{name}: no segments of positive length found");
+        return Err(Error::parse(name, "no segments of positive length found"));
     }
     Ok((SegmentList::from_segments(segs), warnings))
 }
@@ -142,7 +169,7 @@ struct Table<'a> {
 }
 
 impl<'a> Table<'a> {
-    fn new(bytes: &'a [u8], name: &str) -> anyhow::Result<Table<'a>> {
+    fn new(bytes: &'a [u8], name: &str) -> Result<Table<'a>> {
         let mut reader = csv::ReaderBuilder::new()
             .has_headers(true)
             .trim(csv::Trim::All)
@@ -150,19 +177,24 @@ impl<'a> Table<'a> {
             .from_reader(bytes);
         let headers = reader
             .headers()
-            .map_err(|e| anyhow!("{name}: {}", csv_error_text(&e)))?
+            .map_err(|e| Error::parse(name, csv_error_text(&e)))?
             .clone();
         if headers.is_empty() || headers.iter().all(str::is_empty) {
-            bail!("{name}: empty file: a header row naming the columns is required");
+            return Err(Error::parse(
+                name,
+                "empty file: a header row naming the columns is required",
+            ));
         }
         let mut columns = HashMap::new();
         for (i, h) in headers.iter().enumerate() {
             let key = h.to_ascii_lowercase();
             if columns.insert(key, i).is_some() {
-                bail!(
-                    "{name}:1: column '{}' appears twice in the header",
-                    shown(h)
-                );
+                return Err(Error::parse(
+                    name,
+                    format!("column '{}' appears twice in the header", shown(h)),
+                )
+                .at(1, None)
+                .in_field(h));
             }
         }
         Ok(Table {
@@ -174,13 +206,29 @@ impl<'a> Table<'a> {
         })
     }
 
-    fn require(&self, col: &str) -> anyhow::Result<usize> {
-        self.columns.get(col).copied().ok_or_else(|| {
-            anyhow!(
-                "{}: missing required column '{col}' (the first line must be a header naming the columns)",
-                self.name
-            )
-        })
+    fn require(&self, col: &str) -> Result<usize> {
+        self.require_any(col, &[])
+    }
+
+    /// The column `col`, else the first of `aliases` present.
+    fn require_any(&self, col: &str, aliases: &[&str]) -> Result<usize> {
+        std::iter::once(&col)
+            .chain(aliases)
+            .find_map(|c| self.columns.get(*c).copied())
+            .ok_or_else(|| {
+                let also = if aliases.is_empty() {
+                    String::new()
+                } else {
+                    format!(" (or '{}')", aliases.join("', '"))
+                };
+                Error::parse(
+                    &self.name,
+                    format!(
+                        "missing required column '{col}'{also} (the first line must be a header \
+                         naming the columns)"
+                    ),
+                )
+            })
     }
 
     /// 1-based line of the record starting at byte `offset`. The CSV reader's
@@ -220,10 +268,7 @@ impl<'a> Table<'a> {
     }
 
     /// Visit each record with its 1-based line number.
-    fn for_each(
-        &mut self,
-        mut f: impl FnMut(&csv::StringRecord, u64) -> anyhow::Result<()>,
-    ) -> anyhow::Result<()> {
+    fn for_each(&mut self, mut f: impl FnMut(&csv::StringRecord, u64) -> Result<()>) -> Result<()> {
         let mut rec = csv::StringRecord::new();
         loop {
             match self.reader.read_record(&mut rec) {
@@ -234,7 +279,7 @@ impl<'a> Table<'a> {
                 }
                 Err(e) => {
                     let line = e.position().map_or(0, |p| self.line_at(p.byte()));
-                    bail!("{}:{line}: {}", self.name, csv_error_text(&e));
+                    return Err(parse_at(&self.name, line, None, csv_error_text(&e)));
                 }
             }
         }
@@ -258,7 +303,7 @@ fn cell(
     col_name: &str,
     name: &str,
     line: u64,
-) -> anyhow::Result<Option<f64>> {
+) -> Result<Option<f64>> {
     let Some(s) = col.and_then(|c| rec.get(c)) else {
         return Ok(None);
     };
@@ -266,16 +311,20 @@ fn cell(
         return Ok(None);
     }
     let v: f64 = s.parse().map_err(|_| {
-        anyhow!(
-            "{name}:{line}: column '{col_name}': '{}' is not a number",
-            shown(s)
+        parse_at(
+            name,
+            line,
+            Some(col_name),
+            format!("'{}' is not a number", shown(s)),
         )
     })?;
     if !v.is_finite() {
-        bail!(
-            "{name}:{line}: column '{col_name}': '{}' is not finite",
-            shown(s)
-        );
+        return Err(parse_at(
+            name,
+            line,
+            Some(col_name),
+            format!("'{}' is not finite", shown(s)),
+        ));
     }
     Ok(Some(v))
 }
@@ -284,14 +333,16 @@ fn cell(
 ///
 /// # Errors
 /// An unreadable file, or see [`parse_trigger_csv`].
-pub fn read_trigger_csv(path: &Path) -> anyhow::Result<Vec<Trigger>> {
+pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
     parse_trigger_csv(&read_bytes(path)?, &path.display().to_string())
 }
 
 /// Parse an external trigger CSV; `name` is used in messages.
 ///
 /// A header row is required. Required columns (any order, names matched
-/// case-insensitively): `time` \[GPS s\], `frequency` \[Hz\], `snr`. Optional:
+/// case-insensitively): `time` \[GPS s\], `frequency` \[Hz\], `snr`
+/// (`t_peak` and `f_peak` are accepted for the first two, so the CSV of
+/// `glitchbook triggers` imports back). Optional:
 /// `duration` \[s\], `bandwidth` \[Hz\], `t_start`, `t_end` \[GPS s\], `f_low`,
 /// `f_high` \[Hz\], `q`. Other columns are ignored; an empty optional cell
 /// counts as absent. Quoted cells, CRLF line ends and `#` comment lines are
@@ -309,10 +360,11 @@ pub fn read_trigger_csv(path: &Path) -> anyhow::Result<Vec<Trigger>> {
 /// 'c': ...` for a non-numeric or non-finite cell, `snr` or `frequency` ≤ 0,
 /// a negative `duration` or `bandwidth`, `q` ≤ 0, or extents that do not
 /// contain the peak (`t_start ≤ time ≤ t_end`, `0 ≤ f_low ≤ frequency ≤ f_high`).
-pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger>> {
+pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
     let mut table = Table::new(bytes, name)?;
-    let c_time = table.require("time")?;
-    let c_freq = table.require("frequency")?;
+    // `t_peak` and `f_peak` are how `glitchbook triggers --format csv` names them.
+    let c_time = table.require_any("time", &["t_peak"])?;
+    let c_freq = table.require_any("frequency", &["f_peak"])?;
     let c_snr = table.require("snr")?;
     let opt = |c: &str| table.columns.get(c).copied();
     let (c_dur, c_bw, c_ts, c_te, c_fl, c_fh, c_q) = (
@@ -327,25 +379,45 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
     let mut out = Vec::new();
     table.for_each(|rec, line| {
         let get = |c: Option<usize>, n: &str| cell(rec, c, n, name, line);
-        let need = |c: usize, n: &str| -> anyhow::Result<f64> {
-            get(Some(c), n)?.ok_or_else(|| anyhow!("{name}:{line}: column '{n}': empty cell"))
+        let need = |c: usize, n: &str| -> Result<f64> {
+            get(Some(c), n)?.ok_or_else(|| parse_at(name, line, Some(n), "empty cell"))
         };
         let time = need(c_time, "time")?;
         let freq = need(c_freq, "frequency")?;
         let snr = need(c_snr, "snr")?;
         if freq <= 0.0 {
-            bail!("{name}:{line}: column 'frequency': {freq} must be > 0");
+            return Err(parse_at(
+                name,
+                line,
+                Some("frequency"),
+                format!("{freq} must be > 0"),
+            ));
         }
         if snr <= 0.0 {
-            bail!("{name}:{line}: column 'snr': {snr} must be > 0");
+            return Err(parse_at(
+                name,
+                line,
+                Some("snr"),
+                format!("{snr} must be > 0"),
+            ));
         }
         let dur = get(c_dur, "duration")?;
         let bw = get(c_bw, "bandwidth")?;
         if let Some(d) = dur.filter(|&d| d < 0.0) {
-            bail!("{name}:{line}: column 'duration': {d} must be ≥ 0");
+            return Err(parse_at(
+                name,
+                line,
+                Some("duration"),
+                format!("{d} must be ≥ 0"),
+            ));
         }
         if let Some(b) = bw.filter(|&b| b < 0.0) {
-            bail!("{name}:{line}: column 'bandwidth': {b} must be ≥ 0");
+            return Err(parse_at(
+                name,
+                line,
+                Some("bandwidth"),
+                format!("{b} must be ≥ 0"),
+            ));
         }
         let ts_col = get(c_ts, "t_start")?;
         let te_col = get(c_te, "t_end")?;
@@ -362,14 +434,29 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
             (f_high, "f_high"),
         ] {
             if !value.is_finite() {
-                bail!("{name}:{line}: column '{col}': derived value {value} is not finite");
+                return Err(parse_at(
+                    name,
+                    line,
+                    Some(col),
+                    format!("derived value {value} is not finite"),
+                ));
             }
         }
         if t_start > time {
-            bail!("{name}:{line}: column 't_start': {t_start} is after the peak time {time}");
+            return Err(parse_at(
+                name,
+                line,
+                Some("t_start"),
+                format!("{t_start} is after the peak time {time}"),
+            ));
         }
         if t_end < time {
-            bail!("{name}:{line}: column 't_end': {t_end} is before the peak time {time}");
+            return Err(parse_at(
+                name,
+                line,
+                Some("t_end"),
+                format!("{t_end} is before the peak time {time}"),
+            ));
         }
         if f_low < 0.0 {
             let col = if fl_col.is_some() {
@@ -377,32 +464,59 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
             } else {
                 "bandwidth"
             };
-            bail!("{name}:{line}: column '{col}': lower frequency edge {f_low} Hz is negative");
+            return Err(parse_at(
+                name,
+                line,
+                Some(col),
+                format!("lower frequency edge {f_low} Hz is negative"),
+            ));
         }
         if f_low > freq {
-            bail!("{name}:{line}: column 'f_low': {f_low} is above the frequency {freq}");
+            return Err(parse_at(
+                name,
+                line,
+                Some("f_low"),
+                format!("{f_low} is above the frequency {freq}"),
+            ));
         }
         if f_high < freq {
-            bail!("{name}:{line}: column 'f_high': {f_high} is below the frequency {freq}");
+            return Err(parse_at(
+                name,
+                line,
+                Some("f_high"),
+                format!("{f_high} is below the frequency {freq}"),
+            ));
         }
         let bandwidth = bw.or(match (fl_col, fh_col) {
             (Some(lo), Some(hi)) => Some(hi - lo),
             _ => None,
         });
         let q = match get(c_q, "q")? {
-            Some(q) if q <= 0.0 => bail!("{name}:{line}: column 'q': {q} must be > 0"),
+            Some(q) if q <= 0.0 => {
+                return Err(parse_at(name, line, Some("q"), format!("{q} must be > 0")))
+            }
             Some(q) => q,
             None => match bandwidth {
                 Some(b) if b > 0.0 && (freq / b).is_finite() => freq / b,
                 Some(b) if b > 0.0 => {
-                    bail!("{name}:{line}: column 'bandwidth': {b} Hz is too small to derive q")
+                    return Err(parse_at(
+                        name,
+                        line,
+                        Some("bandwidth"),
+                        format!("{b} Hz is too small to derive q"),
+                    ))
                 }
                 _ => f64::NAN,
             },
         };
         let energy = energy_from_snr(snr);
         if !energy.is_finite() {
-            bail!("{name}:{line}: column 'snr': {snr} is too large (energy 1 + snr²/2 overflows)");
+            return Err(parse_at(
+                name,
+                line,
+                Some("snr"),
+                format!("{snr} is too large (energy 1 + snr²/2 overflows)"),
+            ));
         }
         out.push(Trigger {
             t_peak: time,
@@ -425,7 +539,7 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> anyhow::Result<Vec<Trigger
 ///
 /// # Errors
 /// An unreadable file, or see [`parse_injections`].
-pub fn read_injections(path: &Path) -> anyhow::Result<Vec<f64>> {
+pub fn read_injections(path: &Path) -> Result<Vec<f64>> {
     parse_injections(&read_bytes(path)?, &path.display().to_string())
 }
 
@@ -435,13 +549,13 @@ pub fn read_injections(path: &Path) -> anyhow::Result<Vec<f64>> {
 /// # Errors
 /// `name: ...` for a missing header or `time` column; `name:line: column
 /// 'time': ...` for an empty, non-numeric or non-finite cell.
-pub fn parse_injections(bytes: &[u8], name: &str) -> anyhow::Result<Vec<f64>> {
+pub fn parse_injections(bytes: &[u8], name: &str) -> Result<Vec<f64>> {
     let mut table = Table::new(bytes, name)?;
     let c_time = table.require("time")?;
     let mut out = Vec::new();
     table.for_each(|rec, line| {
         let t = cell(rec, Some(c_time), "time", name, line)?
-            .ok_or_else(|| anyhow!("{name}:{line}: column 'time': empty cell"))?;
+            .ok_or_else(|| parse_at(name, line, Some("time"), "empty cell"))?;
         out.push(t);
         Ok(())
     })?;

@@ -174,11 +174,15 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             }
         }
         if !notes.is_empty() && !force {
-            bail!(
-                "{}: {}; refusing to merge (use --force to merge anyway)",
-                db.display(),
-                notes.join("; ")
-            );
+            return Err(crate::Error::invalid(
+                "force",
+                format!(
+                    "is needed to merge {}: {}; refusing to merge without it",
+                    db.display(),
+                    notes.join("; ")
+                ),
+            )
+            .into());
         }
         // Keep spans by channel name (a name may come from several bundles).
         let mut keep_by_channel: HashMap<&str, crate::segments::SegmentList> = HashMap::new();

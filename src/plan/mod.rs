@@ -30,7 +30,7 @@ pub use compare::{compare_catalogues, ChannelComparison, Comparison};
 pub use merge::{merge, MergeReport};
 pub use run::{
     clip_to_shard, run_local, run_shard, run_shard_with, shard_db_path, status, status_text,
-    write_shard_catalogue, ShardState, ShardStatus,
+    write_shard_catalogue, ShardArg, ShardCommand, ShardState, ShardStatus,
 };
 pub use slurm::{slurm_script, SlurmOptions};
 
@@ -75,6 +75,33 @@ impl Default for PlanOptions {
             segments: None,
             slurm: SlurmOptions::default(),
         }
+    }
+}
+
+impl PlanOptions {
+    /// Check the options (no I/O): the scan parameters, the split and the
+    /// Slurm resources.
+    ///
+    /// # Errors
+    /// [`crate::Error::InvalidParameter`] naming the field.
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
+        self.params.check()?;
+        if let Some(s) = self.span_s {
+            if !(s.is_finite() && s > 0.0) {
+                return Err(Error::invalid(
+                    "span_s",
+                    format!("must be a positive number of seconds, got {s}"),
+                ));
+            }
+        }
+        if self.shards == Some(0) {
+            return Err(Error::invalid("shards", "must be at least 1"));
+        }
+        if self.channel_groups == 0 {
+            return Err(Error::invalid("channel_groups", "must be at least 1"));
+        }
+        self.slurm.check()
     }
 }
 
@@ -193,11 +220,18 @@ pub(crate) fn from_pairs(p: &[[f64; 2]]) -> SegmentList {
 }
 
 /// Survey the channels of `bundles` (reads every sample once for dropouts)
-/// and write a plan to `out_dir` (see [`make_plan_from_channels`]).
+/// and write a plan to `out_dir` (see [`make_plan_from_channels`]); the
+/// batch script runs `shard_command` for each shard.
 ///
 /// # Errors
 /// Unreadable bundles, segment files or sample files; bad options.
-pub fn make_plan(bundles: &[PathBuf], opts: &PlanOptions, out_dir: &Path) -> Result<Plan> {
+pub fn make_plan(
+    bundles: &[PathBuf],
+    opts: &PlanOptions,
+    out_dir: &Path,
+    shard_command: &ShardCommand,
+) -> Result<Plan> {
+    opts.check()?;
     let mut channels = Vec::new();
     for dir in bundles {
         let bundle = crate::io::Bundle::open(dir)?;
@@ -231,7 +265,7 @@ pub fn make_plan(bundles: &[PathBuf], opts: &PlanOptions, out_dir: &Path) -> Res
         Some(p) => Some(crate::io::read_segments_file(p)?.0),
         None => None,
     };
-    make_plan_from_channels(channels, segments.as_ref(), opts, out_dir)
+    make_plan_from_channels(channels, segments.as_ref(), opts, out_dir, shard_command)
 }
 
 /// Build a [`PlanChannel`] (resolving the parameters for its rate).
@@ -270,22 +304,17 @@ pub fn plan_channel(
 }
 
 /// Nominal time-piece boundaries over `[t0, t1)`.
-fn piece_bounds(t0: f64, t1: f64, opts: &PlanOptions) -> Result<Vec<f64>> {
+fn piece_bounds(t0: f64, t1: f64, opts: &PlanOptions) -> Vec<f64> {
+    // Options are checked by `PlanOptions::check`.
     let n = match (opts.span_s, opts.shards) {
-        (Some(s), _) => {
-            if !(s.is_finite() && s > 0.0) {
-                bail!("--span must be a positive number of seconds (got {s})");
-            }
-            ((t1 - t0) / s).ceil().max(1.0) as usize
-        }
-        (None, Some(n)) if n >= 1 => n,
-        (None, Some(_)) => bail!("--shards must be at least 1"),
+        (Some(s), _) => ((t1 - t0) / s).ceil().max(1.0) as usize,
+        (None, Some(n)) => n.max(1),
         (None, None) => 1,
     };
     let width = opts.span_s.unwrap_or((t1 - t0) / n as f64);
     let mut b: Vec<f64> = (0..n).map(|i| t0 + i as f64 * width).collect();
     b.push(t1);
-    Ok(b)
+    b
 }
 
 /// Partition one channel's usable time into keep spans, one per time piece
@@ -371,7 +400,8 @@ pub fn usable_time(ch: &PlanChannel, segments: Option<&SegmentList>) -> SegmentL
 }
 
 /// Lay out the shards for surveyed channels and write the work directory
-/// (`plan.json`, `run-array.sh`, `README.txt`, `shards/`, `logs/`, `status/`).
+/// (`plan.json`, `run-array.sh` running `shard_command` per shard,
+/// `README.txt`, `shards/`, `logs/`, `status/`).
 ///
 /// # Errors
 /// No channels, bad options, or an unwritable `out_dir`.
@@ -380,12 +410,11 @@ pub fn make_plan_from_channels(
     segments: Option<&SegmentList>,
     opts: &PlanOptions,
     out_dir: &Path,
+    shard_command: &ShardCommand,
 ) -> Result<Plan> {
+    opts.check()?;
     if channels.is_empty() {
         bail!("plan: no channels in the given bundles");
-    }
-    if opts.channel_groups == 0 {
-        bail!("plan: --channel-groups must be at least 1");
     }
     let usable: Vec<SegmentList> = channels.iter().map(|c| usable_time(c, segments)).collect();
     let all = usable
@@ -394,7 +423,7 @@ pub fn make_plan_from_channels(
     let Some(extent) = all.extent() else {
         bail!("plan: no valid data inside the analysis segments");
     };
-    let bounds = piece_bounds(extent.start, extent.end, opts)?;
+    let bounds = piece_bounds(extent.start, extent.end, opts);
     let n_pieces = bounds.len() - 1;
     let groups = opts.channel_groups.min(channels.len());
     let pieces: Vec<Vec<(SegmentList, SegmentList)>> = channels
@@ -436,11 +465,11 @@ pub fn make_plan_from_channels(
     let body = serde_json::to_vec(&plan)?;
     plan.plan_id = format!("{:032x}", xxhash_rust::xxh3::xxh3_128(&body));
     plan.created_utc = now_utc();
-    write_plan_dir(&plan, out_dir)?;
+    write_plan_dir(&plan, out_dir, shard_command)?;
     Ok(plan)
 }
 
-fn write_plan_dir(plan: &Plan, out_dir: &Path) -> Result<()> {
+fn write_plan_dir(plan: &Plan, out_dir: &Path, shard_command: &ShardCommand) -> Result<()> {
     for sub in ["", "shards", "logs", "status"] {
         let d = out_dir.join(sub);
         std::fs::create_dir_all(&d).with_context(|| format!("creating {}", d.display()))?;
@@ -451,7 +480,7 @@ fn write_plan_dir(plan: &Plan, out_dir: &Path) -> Result<()> {
         std::fs::write(&p, text).with_context(|| format!("writing {}", p.display()))
     };
     write("plan.json", &serde_json::to_string_pretty(plan)?)?;
-    write("run-array.sh", &slurm_script(plan, &dir))?;
+    write("run-array.sh", &slurm_script(plan, &dir, shard_command))?;
     #[cfg(unix)]
     {
         use std::os::unix::fs::PermissionsExt;

@@ -21,6 +21,60 @@ fn failed_path(plan_dir: &Path, k: usize) -> PathBuf {
     plan_dir.join("status").join(format!("shard-{k}.failed"))
 }
 
+/// One argument of the command line that runs a shard.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ShardArg {
+    /// Literal text.
+    Text(String),
+    /// The shard index K.
+    Index,
+    /// The plan's work directory.
+    PlanDir,
+    /// The shard's catalogue, `DIR/shards/shard-K.db`.
+    ShardDb,
+}
+
+/// The command line that runs shard K of a plan, after the executable. The
+/// library does not know the executable's syntax: the caller (the CLI)
+/// passes it to [`super::make_plan`] (for the batch script) and
+/// [`run_local`]. The command must write the shard catalogue
+/// ([`run_shard`] does).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ShardCommand {
+    /// The arguments, in order.
+    pub args: Vec<ShardArg>,
+}
+
+impl ShardCommand {
+    /// The arguments for shard `k` of the plan in `dir`.
+    pub fn args_for(&self, dir: &Path, k: usize) -> Vec<std::ffi::OsString> {
+        self.args
+            .iter()
+            .map(|a| match a {
+                ShardArg::Text(s) => s.into(),
+                ShardArg::Index => k.to_string().into(),
+                ShardArg::PlanDir => dir.as_os_str().to_owned(),
+                ShardArg::ShardDb => shard_db_path(dir, k).into_os_string(),
+            })
+            .collect()
+    }
+
+    /// The arguments as shell words for the batch script, where the shell
+    /// variables `K` and `DIR` hold the shard index and the work directory.
+    pub fn shell_words(&self) -> String {
+        self.args
+            .iter()
+            .map(|a| match a {
+                ShardArg::Text(s) => super::slurm::shell_word(s),
+                ShardArg::Index => "\"$K\"".to_string(),
+                ShardArg::PlanDir => "\"$DIR\"".to_string(),
+                ShardArg::ShardDb => "\"$DIR/shards/shard-$K.db\"".to_string(),
+            })
+            .collect::<Vec<_>>()
+            .join(" ")
+    }
+}
+
 /// Keep what shard owns: triggers with `t_peak` in `keep`, analysed time ∩ `keep`.
 pub fn clip_to_shard(mut scan: ChannelScan, keep: &SegmentList) -> ChannelScan {
     scan.triggers.retain(|t| keep.contains(t.t_peak));
@@ -32,7 +86,7 @@ pub fn clip_to_shard(mut scan: ChannelScan, keep: &SegmentList) -> ChannelScan {
 /// temporary file renamed into place), replacing an older one: re-running a
 /// shard is safe. Each scan comes with its bundle directory, recorded as the
 /// scan's source path (later commands reopen the data from there). Rows are
-/// written by [`crate::catalogue::insert_channel_scan`], as `scan` does, plus
+/// written by [`crate::catalogue::record_scans`], as `scan` does, plus
 /// one `shard_runs` row naming the plan and shard.
 ///
 /// # Errors
@@ -54,15 +108,13 @@ pub fn write_shard_catalogue(
     }
     {
         let mut conn = crate::catalogue::open(&tmp)?;
-        let tx = conn.transaction()?;
-        for (s, bundle) in scans {
-            crate::catalogue::insert_channel_scan(&tx, s, bundle)?;
-        }
-        tx.execute(
-            "INSERT INTO shard_runs(plan_id, shard, tool_version, created_utc) VALUES (?1, ?2, ?3, ?4)",
-            params![plan_id, k as i64, TOOL_VERSION, now_utc()],
-        )?;
-        tx.commit()?;
+        crate::catalogue::record_scans(&mut conn, scans, |tx| {
+            tx.execute(
+                "INSERT INTO shard_runs(plan_id, shard, tool_version, created_utc) VALUES (?1, ?2, ?3, ?4)",
+                params![plan_id, k as i64, TOOL_VERSION, now_utc()],
+            )?;
+            Ok(())
+        })?;
         // Fold the WAL back so the renamed file is self-contained.
         conn.pragma_update(None, "journal_mode", "DELETE")?;
     }
@@ -205,13 +257,19 @@ pub fn status(dir: &Path) -> Result<Vec<ShardStatus>> {
 }
 
 /// Run every shard not yet done on this machine, `jobs` at a time, each as
-/// `exe --db DIR/shards/shard-K.db scan --shard K --plan DIR` with output in
+/// `exe` with the arguments of `command` (for glitchbook's CLI: `--db
+/// DIR/shards/shard-K.db scan --shard K --plan DIR`), output in
 /// `DIR/logs/shard-K.log`. Returns the final status of all shards.
 ///
 /// # Errors
 /// An unreadable plan, a process that cannot be started, or (after all
 /// shards ran) one error listing every failed shard with its log path.
-pub fn run_local(dir: &Path, jobs: usize, exe: &Path) -> Result<Vec<ShardStatus>> {
+pub fn run_local(
+    dir: &Path,
+    jobs: usize,
+    exe: &Path,
+    command: &ShardCommand,
+) -> Result<Vec<ShardStatus>> {
     let jobs = jobs.max(1);
     let todo: Vec<usize> = status(dir)?
         .into_iter()
@@ -229,10 +287,7 @@ pub fn run_local(dir: &Path, jobs: usize, exe: &Path) -> Result<Vec<ShardStatus>
             let log = std::fs::File::create(log_path(dir, k))
                 .with_context(|| format!("creating {}", log_path(dir, k).display()))?;
             let child = Command::new(exe)
-                .arg("--db")
-                .arg(shard_db_path(dir, k))
-                .args(["scan", "--shard", &k.to_string(), "--plan"])
-                .arg(dir)
+                .args(command.args_for(dir, k))
                 .stdin(Stdio::null())
                 .stdout(log.try_clone()?)
                 .stderr(log)
@@ -305,4 +360,42 @@ pub fn status_text(statuses: &[ShardStatus]) -> String {
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn shard_command_fills_in_index_and_paths() {
+        let cmd = ShardCommand {
+            args: vec![
+                ShardArg::Text("--db".into()),
+                ShardArg::ShardDb,
+                ShardArg::Text("scan it".into()),
+                ShardArg::Index,
+                ShardArg::PlanDir,
+            ],
+        };
+        let dir = Path::new("/w/run a");
+        let args: Vec<String> = cmd
+            .args_for(dir, 7)
+            .into_iter()
+            .map(|a| a.into_string().unwrap())
+            .collect();
+        assert_eq!(
+            args,
+            [
+                "--db",
+                "/w/run a/shards/shard-7.db",
+                "scan it",
+                "7",
+                "/w/run a"
+            ]
+        );
+        assert_eq!(
+            cmd.shell_words(),
+            r#"--db "$DIR/shards/shard-$K.db" 'scan it' "$K" "$DIR""#
+        );
+    }
 }

@@ -1,5 +1,5 @@
 //! The Slurm batch script (one job array over the shards) and the README note.
-use super::Plan;
+use super::{Plan, ShardCommand};
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 
@@ -36,13 +36,60 @@ impl Default for SlurmOptions {
     }
 }
 
+impl SlurmOptions {
+    /// Check the resources (no I/O).
+    ///
+    /// # Errors
+    /// [`crate::Error::InvalidParameter`] naming the field: zero CPUs,
+    /// memory or parallel limit, or a time limit not in one of Slurm's
+    /// `--time` forms (`MM`, `MM:SS`, `HH:MM:SS`, `D-HH`, `D-HH:MM`,
+    /// `D-HH:MM:SS`).
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
+        if self.cpus == 0 {
+            return Err(Error::invalid("cpus", "must be at least 1"));
+        }
+        if self.mem_mb == 0 {
+            return Err(Error::invalid("mem_mb", "must be at least 1"));
+        }
+        if self.max_parallel == Some(0) {
+            return Err(Error::invalid("max_parallel", "must be at least 1"));
+        }
+        let t = &self.time_limit;
+        let (days, rest) = t.split_once('-').unwrap_or(("0", t));
+        let parts: Vec<&str> = rest.split(':').collect();
+        let digits = |x: &str| !x.is_empty() && x.chars().all(|c| c.is_ascii_digit());
+        if !(digits(days) && parts.len() <= 3 && parts.iter().all(|p| digits(p))) {
+            return Err(Error::invalid(
+                "time_limit",
+                format!("must look like HH:MM:SS or D-HH:MM:SS (Slurm's time limit), got {t:?}"),
+            ));
+        }
+        Ok(())
+    }
+}
+
 /// Shell-quote a string (single quotes).
 fn sq(s: &str) -> String {
     format!("'{}'", s.replace('\'', r"'\''"))
 }
 
-/// The batch script for `plan` living in `dir` (absolute).
-pub fn slurm_script(plan: &Plan, dir: &Path) -> String {
+/// A shell word for `s`: as is when it holds only characters the shell
+/// leaves alone, else single-quoted.
+pub(crate) fn shell_word(s: &str) -> String {
+    let plain = !s.is_empty()
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || "-_./=:,+@%".contains(c));
+    if plain {
+        s.to_string()
+    } else {
+        sq(s)
+    }
+}
+
+/// The batch script for `plan` living in `dir` (absolute); each array task
+/// runs the executable with the arguments of `command`.
+pub fn slurm_script(plan: &Plan, dir: &Path, command: &ShardCommand) -> String {
     let o = &plan.slurm;
     let n = plan.shards.len();
     let dir_s = dir.display().to_string();
@@ -82,7 +129,7 @@ if [ -n "${{GLITCHBOOK_SHARD_CMD:-}}" ]; then
     bash -c "$GLITCHBOOK_SHARD_CMD"
 else
     # The real per-shard scan: writes $DIR/shards/shard-$K.db atomically.
-    "$EXE" --db "$DIR/shards/shard-$K.db" scan --shard "$K" --plan "$DIR"
+    "$EXE" {args}
 fi
 rc=$?
 if [ $rc -ne 0 ]; then
@@ -94,6 +141,7 @@ exit $rc
         dir = sq(&dir_s),
         exe = sq(&o.exe),
         cpus = o.cpus,
+        args = command.shell_words(),
     ));
     s
 }

@@ -7,7 +7,7 @@
 
 use crate::catalogue::from_ns;
 use crate::segments::{Segment, SegmentList};
-use anyhow::{bail, Context, Result};
+use anyhow::{Context, Result};
 use rusqlite::{params, Connection, OptionalExtension};
 
 /// Live time of channel `channel_id`: union of its scans' analysed segments.
@@ -55,7 +55,14 @@ pub fn resolve_channel(conn: &Connection, name: Option<&str>) -> Result<ChannelR
                 id,
                 name: name.to_string(),
             }),
-            None => bail!("channel {name:?} is not in the catalogue"),
+            None => {
+                return Err(crate::Error::not_found(
+                    "channel",
+                    name,
+                    format!("channel {name:?} is not in the catalogue"),
+                )
+                .into())
+            }
         };
     }
     let mut stmt =
@@ -69,15 +76,24 @@ pub fn resolve_channel(conn: &Connection, name: Option<&str>) -> Result<ChannelR
         })?
         .collect::<rusqlite::Result<Vec<_>>>()?;
     match rows.len() {
-        0 => bail!("the catalogue has no target channel (scan or import one first)"),
+        0 => Err(crate::Error::not_found(
+            "channel",
+            "target",
+            "the catalogue has no target channel (scan or import one first)",
+        )
+        .into()),
         1 => Ok(rows.into_iter().next().unwrap()),
-        _ => bail!(
-            "the catalogue has several target channels ({}): choose one with --channel",
-            rows.iter()
-                .map(|c| c.name.as_str())
-                .collect::<Vec<_>>()
-                .join(", ")
-        ),
+        _ => Err(crate::Error::invalid(
+            "channel",
+            format!(
+                "must name one of the catalogue's several target channels ({})",
+                rows.iter()
+                    .map(|c| c.name.as_str())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        )
+        .into()),
     }
 }
 

@@ -78,35 +78,59 @@ impl RateParams {
     /// Validate the parameters (before any I/O).
     ///
     /// # Errors
-    /// A one-line message naming the offending option.
-    pub fn check(&self) -> Result<()> {
+    /// [`crate::Error::InvalidParameter`] naming the field.
+    pub fn check(&self) -> crate::Result<()> {
+        use crate::Error;
         if !(self.bin_s.is_finite() && self.bin_s > 0.0) {
-            bail!(
-                "--bin must be a positive number of seconds, got {}",
-                self.bin_s
-            );
+            return Err(Error::invalid(
+                "bin_s",
+                format!("must be a positive number of seconds, got {}", self.bin_s),
+            ));
         }
         if !(self.cl > 0.0 && self.cl < 1.0) {
-            bail!("--cl must be strictly between 0 and 1, got {}", self.cl);
+            return Err(Error::invalid(
+                "cl",
+                format!("must be strictly between 0 and 1, got {}", self.cl),
+            ));
         }
         if !(self.p0 > 0.0 && self.p0 < 1.0) {
-            bail!("--p0 must be strictly between 0 and 1, got {}", self.p0);
+            return Err(Error::invalid(
+                "p0",
+                format!("must be strictly between 0 and 1, got {}", self.p0),
+            ));
         }
         if !self.min_snr.is_finite() {
-            bail!("--min-snr must be a number, got {}", self.min_snr);
+            return Err(Error::invalid(
+                "min_snr",
+                format!("must be a number, got {}", self.min_snr),
+            ));
         }
         if !(0.0..=1.0).contains(&self.min_live_fraction) {
-            bail!(
-                "--min-live-fraction must be in [0, 1], got {}",
-                self.min_live_fraction
-            );
+            return Err(Error::invalid(
+                "min_live_fraction",
+                format!("must be in [0, 1], got {}", self.min_live_fraction),
+            ));
         }
         if self.max_cells < 2 {
-            bail!("--max-cells must be at least 2, got {}", self.max_cells);
+            return Err(Error::invalid(
+                "max_cells",
+                format!("must be at least 2, got {}", self.max_cells),
+            ));
+        }
+        for (field, t) in [("since_gps", self.since_gps), ("until_gps", self.until_gps)] {
+            if let Some(x) = t.filter(|x| !x.is_finite()) {
+                return Err(Error::invalid(
+                    field,
+                    format!("must be a finite number, got {x}"),
+                ));
+            }
         }
         if let (Some(a), Some(b)) = (self.since_gps, self.until_gps) {
             if b <= a {
-                bail!("--until ({b}) must be after --since ({a})");
+                return Err(Error::invalid(
+                    "until_gps",
+                    format!("({b}) must be after {{since_gps}} ({a})"),
+                ));
             }
         }
         Ok(())
@@ -480,10 +504,20 @@ pub fn rates(conn: &Connection, p: &RateParams) -> Result<RateReport> {
     };
     if let Some(f) = p.family {
         if !has_families {
-            bail!("--family {f}: the catalogue has no families yet (run cluster first)");
+            return Err(crate::Error::not_found(
+                "family",
+                f,
+                format!("family {f}: the catalogue has no families yet (cluster it first)"),
+            )
+            .into());
         }
         if !families.contains_key(&f) {
-            bail!("--family {f}: no such family in the catalogue");
+            return Err(crate::Error::not_found(
+                "family",
+                f,
+                format!("family {f}: no such family in the catalogue"),
+            )
+            .into());
         }
     }
     let all_live = live_time(conn, channel.id)?;

@@ -112,7 +112,7 @@ pub struct WitnessRow {
     /// `targets_poisson`, `aux_binomial` or `slides`.
     pub chance_basis: String,
     /// False-alarm probability of the channel's best cell (None for runs
-    /// from before migration 0005).
+    /// from before migration 0006_coupling_words).
     pub false_alarm: Option<f64>,
     /// `slides`, `slides_tail` or `bonferroni`.
     pub false_alarm_basis: Option<String>,
@@ -160,7 +160,7 @@ pub struct VetoRow {
     pub aux_hit_fraction: f64,
     /// Chance probability of the picked cell.
     pub chance_p: f64,
-    /// False-alarm probability over channels and cells (None before 0005).
+    /// False-alarm probability over channels and cells (None before migration 0006_coupling_words).
     pub false_alarm: Option<f64>,
     /// Cumulative efficiency.
     pub total_efficiency: f64,

@@ -1,4 +1,4 @@
--- 0005: coupling results in glitchbook's own words, with the false-alarm
+-- 0006_coupling_words: coupling results in glitchbook's own words, with the false-alarm
 -- figures of the time-slide background, safety that says when it was not
 -- checked, and one consolidated proposal per aux channel.
 --
@@ -52,7 +52,7 @@ CREATE TABLE witness_stats (
         CHECK (chance_basis IN ('targets_poisson', 'aux_binomial', 'slides')),
     slides             INTEGER NOT NULL,
     slide_p            REAL,
-    false_alarm        REAL,                    -- NULL: rows from before 0005
+    false_alarm        REAL,                    -- NULL: rows from before this migration
     false_alarm_basis  TEXT
         CHECK (false_alarm_basis IN ('slides', 'slides_tail', 'bonferroni')),
     false_alarm_any    REAL,
@@ -92,7 +92,7 @@ CREATE TABLE veto_rounds (
     chance_p_log10     REAL NOT NULL,
     chance_basis       TEXT NOT NULL
         CHECK (chance_basis IN ('targets_poisson', 'aux_binomial', 'slides')),
-    false_alarm        REAL,                    -- over channels and cells; NULL before 0005
+    false_alarm        REAL,                    -- over channels and cells; NULL before this migration
     false_alarm_basis  TEXT
         CHECK (false_alarm_basis IN ('slides', 'slides_tail', 'bonferroni')),
     channels_compared  INTEGER,
@@ -129,9 +129,9 @@ CREATE TABLE veto_proposals (
 );
 
 -- Powers of ten for the conversion.
-CREATE TEMP TABLE pow10_0005 (k INTEGER PRIMARY KEY, v REAL NOT NULL);
+CREATE TEMP TABLE pow10_0006 (k INTEGER PRIMARY KEY, v REAL NOT NULL);
 WITH RECURSIVE p(k, v) AS (SELECT 0, 1.0 UNION ALL SELECT k + 1, v * 0.1 FROM p WHERE k < 330)
-INSERT INTO pow10_0005 SELECT k, v FROM p;
+INSERT INTO pow10_0006 SELECT k, v FROM p;
 
 INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, window_s, targets,
     targets_hit, aux_triggers, aux_hit, covered_s, analysed_s, deadtime, efficiency,
@@ -139,7 +139,7 @@ INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, windo
 SELECT o.run_id, o.family_id, o.aux_channel_id, o.snr_threshold, o.window_s, o.n_target,
     o.n_coinc, o.n_aux, o.n_aux_used, o.vetoed_s, o.analysed_s, o.deadtime, o.efficiency,
     o.use_percentage / 100.0, o.efficiency_over_deadtime, o.expected,
-    coalesce((SELECT v FROM pow10_0005 WHERE k = o.n), 0.0) * (1.0 + o.x * (1.0 + o.x / 2.0 * (1.0 + o.x / 3.0 * (1.0 + o.x / 4.0 * (1.0 + o.x / 5.0 * (1.0 + o.x / 6.0 * (1.0 + o.x / 7.0 * (1.0 + o.x / 8.0 * (1.0 + o.x / 9.0 * (1.0 + o.x / 10.0 * (1.0 + o.x / 11.0 * (1.0 + o.x / 12.0 * (1.0 + o.x / 13.0 * (1.0 + o.x / 14.0 * (1.0 + o.x / 15.0 * (1.0 + o.x / 16.0 * (1.0 + o.x / 17.0 * (1.0 + o.x / 18.0 * (1.0 + o.x / 19.0 * (1.0 + o.x / 20.0 * (1.0 + o.x / 21.0 * (1.0 + o.x / 22.0 * (1.0 + o.x / 23.0 * (1.0 + o.x / 24.0 * 1.0)))))))))))))))))))))))),
+    coalesce((SELECT v FROM pow10_0006 WHERE k = o.n), 0.0) * (1.0 + o.x * (1.0 + o.x / 2.0 * (1.0 + o.x / 3.0 * (1.0 + o.x / 4.0 * (1.0 + o.x / 5.0 * (1.0 + o.x / 6.0 * (1.0 + o.x / 7.0 * (1.0 + o.x / 8.0 * (1.0 + o.x / 9.0 * (1.0 + o.x / 10.0 * (1.0 + o.x / 11.0 * (1.0 + o.x / 12.0 * (1.0 + o.x / 13.0 * (1.0 + o.x / 14.0 * (1.0 + o.x / 15.0 * (1.0 + o.x / 16.0 * (1.0 + o.x / 17.0 * (1.0 + o.x / 18.0 * (1.0 + o.x / 19.0 * (1.0 + o.x / 20.0 * (1.0 + o.x / 21.0 * (1.0 + o.x / 22.0 * (1.0 + o.x / 23.0 * (1.0 + o.x / 24.0 * 1.0)))))))))))))))))))))))),
     -o.significance, 'targets_poisson', 0
 FROM (SELECT *, CAST(significance AS INTEGER) AS n,
              -(significance - CAST(significance AS INTEGER)) * 2.302585092994046 AS x
@@ -152,7 +152,7 @@ INSERT INTO veto_rounds (run_id, mode, family_id, round, aux_channel_id, aux_min
 SELECT o.run_id, o.mode, o.family_id, o.round, o.aux_channel_id, o.snr_threshold, o.window_s,
     o.n_target, o.n_coinc, o.efficiency, o.deadtime, o.use_percentage / 100.0,
     CASE WHEN o.deadtime > 0 THEN o.efficiency / o.deadtime ELSE 0.0 END,
-    coalesce((SELECT v FROM pow10_0005 WHERE k = o.n), 0.0) * (1.0 + o.x * (1.0 + o.x / 2.0 * (1.0 + o.x / 3.0 * (1.0 + o.x / 4.0 * (1.0 + o.x / 5.0 * (1.0 + o.x / 6.0 * (1.0 + o.x / 7.0 * (1.0 + o.x / 8.0 * (1.0 + o.x / 9.0 * (1.0 + o.x / 10.0 * (1.0 + o.x / 11.0 * (1.0 + o.x / 12.0 * (1.0 + o.x / 13.0 * (1.0 + o.x / 14.0 * (1.0 + o.x / 15.0 * (1.0 + o.x / 16.0 * (1.0 + o.x / 17.0 * (1.0 + o.x / 18.0 * (1.0 + o.x / 19.0 * (1.0 + o.x / 20.0 * (1.0 + o.x / 21.0 * (1.0 + o.x / 22.0 * (1.0 + o.x / 23.0 * (1.0 + o.x / 24.0 * 1.0)))))))))))))))))))))))),
+    coalesce((SELECT v FROM pow10_0006 WHERE k = o.n), 0.0) * (1.0 + o.x * (1.0 + o.x / 2.0 * (1.0 + o.x / 3.0 * (1.0 + o.x / 4.0 * (1.0 + o.x / 5.0 * (1.0 + o.x / 6.0 * (1.0 + o.x / 7.0 * (1.0 + o.x / 8.0 * (1.0 + o.x / 9.0 * (1.0 + o.x / 10.0 * (1.0 + o.x / 11.0 * (1.0 + o.x / 12.0 * (1.0 + o.x / 13.0 * (1.0 + o.x / 14.0 * (1.0 + o.x / 15.0 * (1.0 + o.x / 16.0 * (1.0 + o.x / 17.0 * (1.0 + o.x / 18.0 * (1.0 + o.x / 19.0 * (1.0 + o.x / 20.0 * (1.0 + o.x / 21.0 * (1.0 + o.x / 22.0 * (1.0 + o.x / 23.0 * (1.0 + o.x / 24.0 * 1.0)))))))))))))))))))))))),
     -o.significance, 'targets_poisson', o.vetoed_s, o.cum_efficiency, o.cum_deadtime, o.n_inj, o.n_inj_vetoed,
     o.inj_expected, o.safety_p_binomial, o.safety_p,
     CASE WHEN o.n_inj IS NULL THEN 'unchecked' WHEN o.safe = 1 THEN 'safe' ELSE 'unsafe' END
@@ -174,7 +174,7 @@ SELECT o.run_id, o.family_id, o.aux_channel_id, o.snr_threshold, o.window_s,
     o.n_pairs, -o.peak_lag_s, -o.median_lag_s, o.freq_relation, o.freq_ratio_median
 FROM witness_lags_0003 o;
 
-DROP TABLE pow10_0005;
+DROP TABLE pow10_0006;
 DROP TABLE witness_stats_0003;
 DROP TABLE witness_lags_0003;
 DROP TABLE veto_rounds_0003;
