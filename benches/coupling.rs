@@ -62,7 +62,7 @@ fn main() {
                     }
                 })
                 .collect();
-            AuxChannel::new(c, &format!("AV1:BENCH-AUX-{c:03}"), trig, analysed.clone())
+            AuxChannel::new(c, &format!("AV1:BENCH_AUX_{c:03}"), trig, analysed.clone())
         })
         .collect();
     let sets = [None, Some(1), Some(2), Some(3), Some(4)];
