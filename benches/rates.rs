@@ -59,7 +59,7 @@ fn main() {
         .unwrap();
         tx.execute(
             "INSERT INTO scans VALUES (1, 1, 'scan', 'k', 'bench', 'x', '{}', 'bench', '2026-01-01T00:00:00Z', ?1, ?2, 0)",
-            params![to_ns(T0), to_ns(T0 + run_s)],
+            params![to_ns(T0).unwrap(), to_ns(T0 + run_s).unwrap()],
         )
         .unwrap();
         // One 40-minute dropout per day.
@@ -68,7 +68,7 @@ fn main() {
             for (s, e) in [(a, a + 40_000.0), (a + 42_400.0, a + 86_400.0)] {
                 tx.execute(
                     "INSERT INTO analysed_segments VALUES (1, ?1, ?2)",
-                    params![to_ns(s), to_ns(e)],
+                    params![to_ns(s).unwrap(), to_ns(e).unwrap()],
                 )
                 .unwrap();
             }
@@ -110,7 +110,7 @@ fn main() {
             ins_t
                 .execute(params![
                     id,
-                    to_ns(T0 + t),
+                    to_ns(T0 + t).unwrap(),
                     30.0 * *f as f64,
                     snr,
                     1.0 + snr * snr / 2.0

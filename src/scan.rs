@@ -307,6 +307,18 @@ pub fn resolve_params(
             format!("({block_s} s) must be at least 4 × the padding ({pad_s} s)"),
         ));
     }
+    let tiles = tiles_per_block_estimate(p.qmin, p.qmax, p.mismatch, fmin, fmax, rate_hz, block_s);
+    if tiles > MAX_TILES_PER_BLOCK as f64 {
+        return Err(Error::invalid(
+            "mismatch",
+            format!(
+                "({}) with Q {}–{}, {fmin}–{fmax} Hz and {block_s} s blocks makes about {:.1e} \
+                 tiles per block; at most {MAX_TILES_PER_BLOCK} are allowed (raise the \
+                 mismatch, narrow the Q or frequency range, or shorten the blocks)",
+                p.mismatch, p.qmin, p.qmax, tiles
+            ),
+        ));
+    }
     Ok(ResolvedParams {
         snr_threshold: p.snr_threshold,
         fmin,
@@ -318,6 +330,46 @@ pub fn resolve_params(
         pad_s,
         welch_s,
     })
+}
+
+/// The most tiles one block may hold (all planes and rows): 2³⁰, about
+/// 170× the default tiling of a 16384 Hz channel (6.3e6 tiles in its 64-s
+/// blocks), so only parameters that imply absurd work are refused, before
+/// any is done (a mismatch of 1e-4 makes ~5e11; the work grows as
+/// mismatch^-1.5).
+pub const MAX_TILES_PER_BLOCK: u64 = 1 << 30;
+
+/// Tiles per block of the tiling these parameters make, counted from the
+/// plane and row layout without planning FFTs (a row at `f` of quality `q`
+/// has about `block_s / dτ` tiles, `dτ = step Q / (2π f)`; the plan rounds
+/// each up to a power of two, so this is within a factor 2 of
+/// [`crate::tf::QPlan::tiles_per_block`]).
+pub fn tiles_per_block_estimate(
+    qmin: f64,
+    qmax: f64,
+    mismatch: f64,
+    fmin: f64,
+    fmax: f64,
+    rate_hz: f64,
+    block_s: f64,
+) -> f64 {
+    let step = crate::tf::mismatch_step(mismatch);
+    let mut total = 0.0;
+    for q in crate::tf::q_planes(qmin, qmax, mismatch) {
+        let top = fmax.min(crate::tf::plane_fmax_limit(q, rate_hz));
+        let n_rows = ((top / fmin).ln() * (2.0 + q * q).sqrt() / 2.0 / step).ceil();
+        if n_rows.is_nan() || n_rows < 1.0 {
+            continue;
+        }
+        // Σ_rows f over log-spaced rows = n × mean f (exact for the layout
+        // of `row_freqs`, up to the half-step offset).
+        let mean_f = (top - fmin) / (top / fmin).ln();
+        total += block_s * 2.0 * std::f64::consts::PI * n_rows * mean_f / (step * q);
+        if total > 1e15 {
+            break;
+        }
+    }
+    total
 }
 
 /// A block to process: samples `[i0, i0 + n)`, keeping tiles whose centres
@@ -687,4 +739,67 @@ pub fn scan_channel(
         triggers,
         input_checksum,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The tile-count estimate behind [`MAX_TILES_PER_BLOCK`] follows the
+    /// planned tiling within its stated factor 2, and the defaults are far
+    /// below the cap at every common rate.
+    #[test]
+    fn tile_estimate_tracks_the_plan() {
+        for (fs, mismatch, qmax) in [
+            (4096.0, 0.2, 64.0),
+            (1024.0, 0.05, 100.0),
+            (256.0, 0.2, 64.0),
+        ] {
+            let p = ScanParams {
+                mismatch,
+                qmax,
+                ..ScanParams::default()
+            };
+            let r = resolve_params(&p, fs, None, None).unwrap();
+            let n = (r.block_s * fs) as usize;
+            let tiling = crate::tf::Tiling {
+                fmin: r.fmin,
+                fmax: r.fmax,
+                qmin: r.qmin,
+                qmax: r.qmax,
+                mismatch: r.mismatch,
+            };
+            let mut planner = rustfft::FftPlanner::new();
+            let plan = crate::tf::QPlan::new(fs, n, &tiling, (0.0, 0.0), &mut planner).unwrap();
+            let planned = plan.tiles_per_block() as f64;
+            let est =
+                tiles_per_block_estimate(r.qmin, r.qmax, r.mismatch, r.fmin, r.fmax, fs, r.block_s);
+            assert!(
+                est <= planned * 1.05 && est >= planned / 2.5,
+                "{fs} Hz: estimate {est} vs planned {planned}"
+            );
+        }
+        let d = ScanParams::default();
+        let r = resolve_params(&d, 16384.0, None, None).unwrap();
+        let est = tiles_per_block_estimate(
+            r.qmin, r.qmax, r.mismatch, r.fmin, r.fmax, 16384.0, r.block_s,
+        );
+        assert!(est * 100.0 < MAX_TILES_PER_BLOCK as f64, "default: {est}");
+        // Mismatch 0.02 (10× finer than the default) still runs.
+        let fine = ScanParams {
+            mismatch: 0.02,
+            ..ScanParams::default()
+        };
+        resolve_params(&fine, 16384.0, None, None).unwrap();
+        // The issue's case: --mismatch 0.0001 is refused, naming the flag's field.
+        let tiny = ScanParams {
+            mismatch: 1e-4,
+            ..ScanParams::default()
+        };
+        let e = resolve_params(&tiny, 4096.0, None, None).unwrap_err();
+        assert!(
+            matches!(&e, Error::InvalidParameter { field, .. } if field == "mismatch"),
+            "{e}"
+        );
+    }
 }

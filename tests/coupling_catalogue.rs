@@ -31,8 +31,8 @@ fn add_channel(
         params![
             ch,
             name,
-            to_ns(segs[0].0),
-            to_ns(segs[segs.len() - 1].1),
+            to_ns(segs[0].0).unwrap(),
+            to_ns(segs[segs.len() - 1].1).unwrap(),
             trig.len() as i64
         ],
     )
@@ -41,7 +41,7 @@ fn add_channel(
     for &(a, b) in segs {
         conn.execute(
             "INSERT INTO analysed_segments (scan_id, start_ns, end_ns) VALUES (?1, ?2, ?3)",
-            params![scan, to_ns(a), to_ns(b)],
+            params![scan, to_ns(a).unwrap(), to_ns(b).unwrap()],
         )
         .unwrap();
     }
@@ -53,7 +53,8 @@ fn add_channel(
         )
         .unwrap();
     for &(t, snr, f) in trig {
-        st.execute(params![scan, ch, to_ns(t), f, snr]).unwrap();
+        st.execute(params![scan, ch, to_ns(t).unwrap(), f, snr])
+            .unwrap();
     }
     drop(st);
     ch

@@ -72,7 +72,7 @@ fn add(conn: &Connection, w: &mut World, n: usize, seed: u64) {
         conn.execute(
             "INSERT INTO triggers (scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy) \
              VALUES (1, 1, ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
-            params![to_ns(t), to_ns(t - dur), to_ns(t + dur), f0, f0 * (1.0 - 1.0 / q), f0 * (1.0 + 1.0 / q), snr, q, 1.0 + 0.5 * snr * snr],
+            params![to_ns(t).unwrap(), to_ns(t - dur).unwrap(), to_ns(t + dur).unwrap(), f0, f0 * (1.0 - 1.0 / q), f0 * (1.0 + 1.0 / q), snr, q, 1.0 + 0.5 * snr * snr],
         )
         .unwrap();
         if !quiet {
@@ -214,7 +214,7 @@ fn cluster_recluster_label_assign() {
     conn.execute(
         "INSERT INTO triggers (scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy) \
          VALUES (1, 1, ?1, ?2, ?3, 20, 19, 21, 60, 60, 1801)",
-        params![to_ns(t_odd), to_ns(t_odd - 1.5), to_ns(t_odd + 1.5)],
+        params![to_ns(t_odd).unwrap(), to_ns(t_odd - 1.5).unwrap(), to_ns(t_odd + 1.5).unwrap()],
     )
     .unwrap();
     let odd_id = conn.last_insert_rowid();

@@ -49,13 +49,13 @@ pub fn demo_catalogue(dir: &Path, families: bool) -> PathBuf {
         tx.execute(
             "INSERT INTO scans(id, channel_id, kind, run_key, source_path, input_checksum, params_json, tool_version, created_utc, span_start_ns, span_end_ns, n_triggers)
              VALUES (?1, ?2, 'scan', ?3, 'demo', 'x', '{}', 'test', '2026-01-01T00:00:00Z', ?4, ?5, 0)",
-            params![id, ch, format!("k{id}"), to_ns(T0), to_ns(T0 + RUN_S)],
+            params![id, ch, format!("k{id}"), to_ns(T0).unwrap(), to_ns(T0 + RUN_S).unwrap()],
         )
         .unwrap();
         for (a, b) in [(0.0, GAP.0), (GAP.1, RUN_S)] {
             tx.execute(
                 "INSERT INTO analysed_segments(scan_id, start_ns, end_ns) VALUES (?1, ?2, ?3)",
-                params![id, to_ns(T0 + a), to_ns(T0 + b)],
+                params![id, to_ns(T0 + a).unwrap(), to_ns(T0 + b).unwrap()],
             )
             .unwrap();
         }
@@ -100,7 +100,7 @@ pub fn demo_catalogue(dir: &Path, families: bool) -> PathBuf {
             tx.execute(
                 "INSERT INTO triggers(id, scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy)
                  VALUES (?1, 1, 1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, 8.0, ?9)",
-                params![tid, to_ns(T0 + t), to_ns(T0 + t - 0.05), to_ns(T0 + t + 0.05), fp, fp * 0.8, fp * 1.2, snr, 1.0 + snr * snr / 2.0],
+                params![tid, to_ns(T0 + t).unwrap(), to_ns(T0 + t - 0.05).unwrap(), to_ns(T0 + t + 0.05).unwrap(), fp, fp * 0.8, fp * 1.2, snr, 1.0 + snr * snr / 2.0],
             )
             .unwrap();
             if families && (fam.is_some() || novel) {
@@ -185,7 +185,7 @@ fn bins_count_live_time_and_flag_low_live() {
         .query_row(
             "SELECT count(*) FROM triggers t JOIN family_members m ON m.trigger_id = t.id
              WHERE m.family_id = 1 AND t.snr >= 15.5 AND t.t_peak_ns >= ?1 AND t.t_peak_ns < ?2",
-            params![to_ns(T0), to_ns(T0 + 7200.0)],
+            params![to_ns(T0).unwrap(), to_ns(T0 + 7200.0).unwrap()],
             |r| r.get(0),
         )
         .unwrap();
@@ -338,7 +338,7 @@ fn live_time_is_union_over_scans() {
     // [20000, 31000): overlaps live [.., 30000) and fills 1000 s of the gap.
     c.execute(
         "INSERT INTO analysed_segments VALUES (9, ?1, ?2)",
-        params![to_ns(T0 + 20_000.0), to_ns(T0 + 31_000.0)],
+        params![to_ns(T0 + 20_000.0).unwrap(), to_ns(T0 + 31_000.0).unwrap()],
     )
     .unwrap();
     let after = live_time(&c, 1).unwrap().total();

@@ -68,5 +68,8 @@ mod reliability_injection;
 mod reliability_kill;
 /// Issue 6 reliability: SIGKILL during scan, cluster and label (ignored; run by .ci/run).
 mod reliability_kill_pipeline;
+/// Issue 15 reliability: read-only listings, GPS range, bounded work, safe report output,
+/// quoted batch scripts, checked shards.
+mod reliability_round2;
 /// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
 mod reliability_upgrade;

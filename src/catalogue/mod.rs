@@ -67,16 +67,41 @@ pub fn now_utc() -> String {
     humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string()
 }
 
+/// The largest |GPS time| glitchbook stores \[s\]. Times are kept as
+/// integer nanoseconds in 64 bits (±9.22e9 s); 9e9 s (about the year 2265)
+/// leaves room so a time plus a duration cannot wrap either.
+pub const GPS_LIMIT_S: f64 = 9.0e9;
+
+/// Whether `t` is a GPS time the catalogue can store: finite and
+/// |t| ≤ [`GPS_LIMIT_S`].
+pub fn gps_ok(t: f64) -> bool {
+    t.is_finite() && t.abs() <= GPS_LIMIT_S
+}
+
+/// Why `t` is not a storable GPS time (the end of an error message).
+pub fn gps_range_message(t: f64) -> String {
+    format!("{t} s is outside the GPS times glitchbook stores (|t| ≤ 9e9 s)")
+}
+
 /// GPS seconds → integer nanoseconds (rounded).
 ///
 /// Whole and fractional seconds are converted separately so no precision is
 /// lost to the f64 product `t × 1e9` (its spacing near 1.4e18 is 256 ns):
 /// a GPS time exactly representable to the ns, such as 1400000010.25,
 /// round-trips exactly.
-pub fn to_ns(t_gps: f64) -> i64 {
+///
+/// # Errors
+/// [`crate::Error::InvalidParameter`] (field `gps_time`) for a time outside
+/// ±[`GPS_LIMIT_S`] or not finite: the product would wrap. Inputs are
+/// checked where they are read (with their file and line); this is the
+/// last guard.
+pub fn to_ns(t_gps: f64) -> crate::Result<i64> {
+    if !gps_ok(t_gps) {
+        return Err(crate::Error::invalid("gps_time", gps_range_message(t_gps)));
+    }
     let whole = t_gps.floor();
     let frac = t_gps - whole; // exact (Sterbenz)
-    (whole as i64) * 1_000_000_000 + (frac * 1e9).round() as i64
+    Ok((whole as i64) * 1_000_000_000 + (frac * 1e9).round() as i64)
 }
 
 /// Integer nanoseconds → GPS seconds (the nearest f64, up to one rounding).
@@ -141,6 +166,103 @@ pub fn open_existing(path: &Path) -> Result<Connection> {
     open(path)
 }
 
+/// Open an existing catalogue for reading only, as every listing command
+/// does (`triggers`, `channels`, `families`, `rates`, `check`, `report`,
+/// `thumbnail`): nothing is written, so a catalogue shared read-only on a
+/// cluster (file and directory without write permission) can be read.
+///
+/// The connection is opened read-only and `query_only`. If SQLite cannot
+/// set up its shared-memory index (a WAL catalogue whose `-shm`/`-wal`
+/// files are absent and cannot be created in a read-only directory), it
+/// is reopened as immutable: no writer can hold a WAL catalogue without
+/// those files, so there is nothing to miss. An older catalogue is
+/// upgraded first when the file can be written (as [`open`]); a read-only
+/// one of an older schema is refused, naming what to do.
+///
+/// # Errors
+/// No file at `path`, not a glitchbook catalogue, a newer schema, or an
+/// older schema that cannot be upgraded here.
+pub fn open_read_only(path: &Path) -> Result<Connection> {
+    use rusqlite::OpenFlags;
+    if !path.exists() {
+        return open_existing(path);
+    }
+    let flags = OpenFlags::SQLITE_OPEN_READ_ONLY
+        | OpenFlags::SQLITE_OPEN_URI
+        | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+    let version_of = |conn: &Connection| -> Result<i64> {
+        conn.query_row("PRAGMA user_version", [], |r| r.get(0))
+            .with_context(|| {
+                format!(
+                    "{}: not a glitchbook catalogue (SQLite could not read it)",
+                    path.display()
+                )
+            })
+    };
+    let plain = Connection::open_with_flags(path, flags)
+        .with_context(|| format!("opening catalogue {} read-only", path.display()));
+    let (conn, version) = match plain.and_then(|c| {
+        c.busy_timeout(std::time::Duration::from_secs(60))?;
+        let v = version_of(&c)?;
+        Ok((c, v))
+    }) {
+        Ok(cv) => cv,
+        Err(first) => {
+            // immutable=1: read the file as it is, without the WAL index.
+            let uri = format!("file:{}?immutable=1", uri_path(path));
+            match Connection::open_with_flags(&uri, flags) {
+                Ok(c) => match version_of(&c) {
+                    Ok(v) => (c, v),
+                    Err(_) => return Err(first),
+                },
+                Err(_) => return Err(first),
+            }
+        }
+    };
+    if version > schema_version() {
+        return Err(crate::Error::SchemaTooNew {
+            path: path.to_path_buf(),
+            found: version,
+            supported: schema_version(),
+        }
+        .into());
+    }
+    if version < schema_version() {
+        drop(conn);
+        // Upgrading writes: only when the file can be written.
+        return match open(path) {
+            Ok(c) => {
+                c.pragma_update(None, "query_only", "ON")?;
+                Ok(c)
+            }
+            Err(e) => Err(e.context(format!(
+                "{}: catalogue schema version {version} is older than this glitchbook's \
+                 ({}) and cannot be upgraded without write access; ask its owner to run \
+                 `glitchbook check` on it once",
+                path.display(),
+                schema_version()
+            ))),
+        };
+    }
+    conn.pragma_update(None, "query_only", "ON")?;
+    Ok(conn)
+}
+
+/// `path` as the path part of an SQLite `file:` URI (`%`, `?`, `#` escaped).
+fn uri_path(path: &Path) -> String {
+    let abs = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
+    let mut out = String::new();
+    for c in abs.to_string_lossy().chars() {
+        match c {
+            '%' => out.push_str("%25"),
+            '?' => out.push_str("%3f"),
+            '#' => out.push_str("%23"),
+            c => out.push(c),
+        }
+    }
+    out
+}
+
 /// Apply every pending migration and the version bump in one immediate
 /// transaction (so two processes cannot both migrate). An up-to-date
 /// catalogue takes no write lock, so readers never wait for a writer here.
@@ -197,13 +319,19 @@ mod tests {
     #[test]
     fn ns_round_trip() {
         let t = 1_400_000_123.456_789;
-        assert!((from_ns(to_ns(t)) - t).abs() < 1e-6);
+        assert!((from_ns(to_ns(t).unwrap()) - t).abs() < 1e-6);
         // Exactly representable times come back bit-identical.
         for t in [1_400_000_010.25, 1_400_000_010.5, -1.5, 0.0, 1e9 + 0.125] {
-            assert_eq!(from_ns(to_ns(t)), t, "{t}");
+            assert_eq!(from_ns(to_ns(t).unwrap()), t, "{t}");
         }
-        assert_eq!(to_ns(1_400_000_010.25), 1_400_000_010_250_000_000);
-        assert_eq!(to_ns(-1.5), -1_500_000_000);
+        assert_eq!(to_ns(1_400_000_010.25).unwrap(), 1_400_000_010_250_000_000);
+        assert_eq!(to_ns(-1.5).unwrap(), -1_500_000_000);
+        // Beyond ±9e9 s the nanoseconds would wrap (9.3e9 s was once stored
+        // as -9146744073.7 s): refused, never wrapped.
+        for t in [9.3e9, -9.3e9, 1e300, f64::INFINITY, f64::NAN] {
+            assert!(to_ns(t).is_err(), "{t}");
+        }
+        assert_eq!(to_ns(9e9).unwrap(), 9_000_000_000_000_000_000);
     }
 
     #[test]

@@ -125,6 +125,14 @@ impl TriggerQuery {
                 ));
             }
         }
+        for (field, v) in [("since", self.since), ("until", self.until)] {
+            if let Some(x) = v.filter(|&x| !crate::catalogue::gps_ok(x)) {
+                return Err(Error::invalid(
+                    field,
+                    crate::catalogue::gps_range_message(x),
+                ));
+            }
+        }
         if let (Some(a), Some(b)) = (self.since, self.until) {
             if a >= b {
                 return Err(Error::invalid(
@@ -159,11 +167,11 @@ pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String
         sql.push_str(&format!(" AND t.channel_id = ?{}", vals.len()));
     }
     if let Some(t) = q.since {
-        vals.push(Value::Integer(to_ns(t)));
+        vals.push(Value::Integer(to_ns(t)?));
         sql.push_str(&format!(" AND t.t_peak_ns >= ?{}", vals.len()));
     }
     if let Some(t) = q.until {
-        vals.push(Value::Integer(to_ns(t)));
+        vals.push(Value::Integer(to_ns(t)?));
         sql.push_str(&format!(" AND t.t_peak_ns < ?{}", vals.len()));
     }
     if let Some(s) = q.min_snr {

@@ -296,12 +296,15 @@ fn run_key_separates_fields() {
     let s = SegmentList::new();
     // Length prefixes: moving a byte between fields changes the key.
     assert_ne!(
-        run_key("ab", "c", &s, "{}", ScanKind::Scan),
-        run_key("a", "bc", &s, "{}", ScanKind::Scan)
+        run_key("ab", "c", &s, "{}", ScanKind::Scan).unwrap(),
+        run_key("a", "bc", &s, "{}", ScanKind::Scan).unwrap()
     );
     assert_ne!(
-        run_key("a", "b", &s, "{}", ScanKind::Scan),
-        run_key("a", "b", &s, "{}", ScanKind::Import)
+        run_key("a", "b", &s, "{}", ScanKind::Scan).unwrap(),
+        run_key("a", "b", &s, "{}", ScanKind::Import).unwrap()
     );
-    assert_eq!(run_key("a", "b", &s, "{}", ScanKind::Scan).len(), 32);
+    assert_eq!(
+        run_key("a", "b", &s, "{}", ScanKind::Scan).unwrap().len(),
+        32
+    );
 }

@@ -114,7 +114,7 @@ pub fn run_key(
     analysed: &SegmentList,
     params_json: &str,
     kind: ScanKind,
-) -> String {
+) -> crate::Result<String> {
     let mut h = Xxh3::new();
     let mut field = |bytes: &[u8]| {
         h.update(&(bytes.len() as u64).to_le_bytes());
@@ -124,13 +124,13 @@ pub fn run_key(
     field(input_checksum.as_bytes());
     let mut segs = Vec::with_capacity(16 * analysed.segments().len());
     for s in analysed.segments() {
-        segs.extend_from_slice(&to_ns(s.start).to_le_bytes());
-        segs.extend_from_slice(&to_ns(s.end).to_le_bytes());
+        segs.extend_from_slice(&to_ns(s.start)?.to_le_bytes());
+        segs.extend_from_slice(&to_ns(s.end)?.to_le_bytes());
     }
     field(&segs);
     field(params_json.as_bytes());
     field(kind.as_str().as_bytes());
-    format!("{:032x}", h.digest128())
+    Ok(format!("{:032x}", h.digest128()))
 }
 
 /// Find or create the channel `name`; returns its id.
@@ -191,7 +191,7 @@ pub fn insert_scan(tx: &Transaction, rec: &ScanRecord) -> Result<InsertOutcome> 
         rec.analysed,
         rec.params_json,
         rec.kind,
-    );
+    )?;
     let existing: Option<i64> = tx
         .prepare_cached("SELECT id FROM scans WHERE run_key = ?1")?
         .query_row([&key], |r| r.get(0))
@@ -201,7 +201,7 @@ pub fn insert_scan(tx: &Transaction, rec: &ScanRecord) -> Result<InsertOutcome> 
     }
     let channel_id = upsert_channel(tx, rec.channel, rec.role, rec.rate_hz)?;
     let (span_start, span_end) = match rec.analysed.extent() {
-        Some(s) => (to_ns(s.start), to_ns(s.end)),
+        Some(s) => (to_ns(s.start)?, to_ns(s.end)?),
         None => {
             let lo = rec
                 .triggers
@@ -214,7 +214,7 @@ pub fn insert_scan(tx: &Transaction, rec: &ScanRecord) -> Result<InsertOutcome> 
                 .map(|t| t.t_end)
                 .fold(f64::NAN, f64::max);
             if lo.is_finite() && hi.is_finite() {
-                (to_ns(lo), to_ns(hi))
+                (to_ns(lo)?, to_ns(hi)?)
             } else {
                 (0, 0)
             }
@@ -243,7 +243,7 @@ pub fn insert_scan(tx: &Transaction, rec: &ScanRecord) -> Result<InsertOutcome> 
             "INSERT INTO analysed_segments (scan_id, start_ns, end_ns) VALUES (?1, ?2, ?3)",
         )?;
         for s in rec.analysed.segments() {
-            let (a, b) = (to_ns(s.start), to_ns(s.end));
+            let (a, b) = (to_ns(s.start)?, to_ns(s.end)?);
             if b > a {
                 st.execute(params![scan_id, a, b])?;
             }
@@ -291,9 +291,9 @@ fn insert_triggers(
         st.execute(params![
             scan_id,
             channel_id,
-            to_ns(t.t_peak),
-            to_ns(t.t_start),
-            to_ns(t.t_end),
+            to_ns(t.t_peak)?,
+            to_ns(t.t_start)?,
+            to_ns(t.t_end)?,
             t.f_peak,
             t.f_low,
             t.f_high,

@@ -15,7 +15,7 @@ pub struct ChannelsArgs {
 
 /// Run the command.
 pub fn run(g: &Global, args: ChannelsArgs) -> Result<ExitCode> {
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     let rows = catalogue::channels(&conn)?;
     write_rows(&mut std::io::stdout().lock(), args.format, &rows)?;
     Ok(ExitCode::SUCCESS)

@@ -15,7 +15,7 @@ pub struct CheckArgs {
 
 /// Run the command.
 pub fn run(g: &Global, args: CheckArgs) -> Result<ExitCode> {
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     let report = catalogue::check(&conn)?;
     write_rows(&mut std::io::stdout().lock(), args.format, &report.items)?;
     if report.ok() {

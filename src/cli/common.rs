@@ -74,10 +74,10 @@ impl ScanFlags {
 /// defaults and checks).
 #[derive(Debug, Clone, clap::Args)]
 pub struct RateFlags {
-    /// Bin width [s].
+    /// Bin width [s]; at most 100,000 bins over the span are allowed.
     #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
     pub bin: f64,
-    /// Start of the span [GPS s] [default: start of live time].
+    /// Start of the span [GPS s, |T| ≤ 9e9] [default: start of live time].
     #[arg(long, value_name = "T")]
     pub since: Option<f64>,
     /// End of the span [GPS s] [default: end of live time].
@@ -172,6 +172,9 @@ pub const FLAGS: &[(&str, &str)] = &[
     ("mem_mb", "--mem-mb"),
     ("max_parallel", "--max-parallel"),
     ("time_limit", "--time-limit"),
+    ("partition", "--partition"),
+    ("exe", "--exe"),
+    ("plan_dir", "--out"),
     // merge
     ("force", "--force"),
     // rates, report (RateParams)

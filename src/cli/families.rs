@@ -229,7 +229,7 @@ fn print_families(conn: &Connection, format: Format) -> Result<ExitCode> {
 
 /// Run `families`.
 pub fn run_families(g: &Global, a: FamiliesArgs) -> Result<ExitCode> {
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     print_families(&conn, a.format)
 }
 
@@ -247,7 +247,7 @@ pub fn run_thumbnail(g: &Global, a: ThumbnailArgs) -> Result<ExitCode> {
     if a.out.extension().and_then(|e| e.to_str()) != Some("png") {
         bail!("--out must name a .png file (got {})", a.out.display());
     }
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     let src = maps(&conn)?;
     let e = families::render_trigger_thumbnail(&conn, a.trigger_id, &src, &a.out)?;
     g.info(&format!(

@@ -1,6 +1,6 @@
 //! `glitchbook import`: record triggers from an external CSV file.
 use super::{warn, Global};
-use anyhow::{bail, Context, Result};
+use anyhow::{bail, Result};
 use glitchbook::catalogue::{self, ImportRecord, InsertOutcome};
 use glitchbook::io::{self, Role};
 use glitchbook::segments::SegmentList;
@@ -56,8 +56,8 @@ impl ImportArgs {
 
 /// Read the CSV and the segments; returns the record (role filled in later).
 fn gather(args: &ImportArgs) -> Result<ImportRecord> {
-    let bytes =
-        std::fs::read(&args.csv).with_context(|| format!("{}: cannot read", args.csv.display()))?;
+    // Bounded: a file over 2 GiB or with a line over 1 MiB is refused early.
+    let bytes = io::text::read_text_input(&args.csv)?;
     let checksum = format!("{:032x}", xxhash_rust::xxh3::xxh3_128(&bytes));
     let triggers = io::text::parse_trigger_csv(&bytes, &args.csv.display().to_string())?;
     let (analysed, source) = match &args.segments {

@@ -49,7 +49,7 @@ impl RatesArgs {
 /// Run the command.
 pub fn run(g: &Global, args: RatesArgs) -> Result<ExitCode> {
     let p = args.validate()?;
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     let report = rates(&conn, &p)?;
     let text = render(&report, args.format)?;
     print_listing(args.format, text.as_bytes())?;

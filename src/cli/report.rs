@@ -2,7 +2,7 @@
 //! the catalogue: channels, families, rates, witnesses and veto proposals.
 use super::common::RateFlags;
 use super::Global;
-use anyhow::{bail, Result};
+use anyhow::{bail, Context, Result};
 use glitchbook::catalogue;
 use glitchbook::families::Thumbnail;
 use glitchbook::report::{gather, write_report, ReportParams};
@@ -68,10 +68,13 @@ pub fn run(g: &Global, args: ReportArgs) -> Result<ExitCode> {
             args.out.display()
         );
     }
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     let data = gather(&conn, &params)?;
-    let thumbs = thumbnails(&conn, &args.out)?;
-    let index = write_report(&data, &args.out, &thumbs)?;
+    let staging = glitchbook::report::Staging::new(&args.out)
+        .with_context(|| format!("--out {}", args.out.display()))?;
+    let thumbs = thumbnails(&conn, staging.path())?;
+    write_report(&data, staging.path(), &thumbs)?;
+    let index = staging.publish()?;
     // Absolute, so it can be pasted into a browser from anywhere.
     let index = std::path::absolute(&index).unwrap_or(index);
     writeln!(std::io::stdout(), "{}", index.display())?;

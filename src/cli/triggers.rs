@@ -51,7 +51,7 @@ impl TriggersArgs {
 /// Run the command.
 pub fn run(g: &Global, args: TriggersArgs) -> Result<ExitCode> {
     let q = args.validate()?;
-    let conn = catalogue::open_existing(&g.db)?;
+    let conn = catalogue::open_read_only(&g.db)?;
     let rows = catalogue::query_triggers(&conn, &q)?;
     write_rows(&mut std::io::stdout().lock(), args.format, &rows)?;
     Ok(ExitCode::SUCCESS)

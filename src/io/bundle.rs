@@ -197,6 +197,13 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> Result<Bundle> {
                 format!("= {start} must be a finite GPS time [s]"),
             ));
         }
+        if !crate::catalogue::gps_ok(start) {
+            return Err(here(
+                ch.start.span(),
+                "start",
+                format!("= {}", crate::catalogue::gps_range_message(start)),
+            ));
+        }
         let role = match ch.role.get_ref().as_str() {
             "target" => Role::Target,
             "aux" => Role::Aux,
@@ -282,13 +289,26 @@ impl Bundle {
         };
         let bundle = parse_bundle_toml(&text, dir)?;
         for (i, ch) in bundle.channels.iter().enumerate() {
-            NpyReader::open(&ch.file).map_err(|e| {
+            let reader = NpyReader::open(&ch.file).map_err(|e| {
                 Error::parse(
                     &toml_path,
                     format!("channel #{} '{}': field 'file': {e}", i + 1, ch.name),
                 )
                 .in_field("file")
             })?;
+            let end = ch.start + reader.len as f64 / ch.rate;
+            if !crate::catalogue::gps_ok(end) {
+                return Err(Error::parse(
+                    &toml_path,
+                    format!(
+                        "channel #{} '{}': field 'start': the data end at {}",
+                        i + 1,
+                        ch.name,
+                        crate::catalogue::gps_range_message(end)
+                    ),
+                )
+                .in_field("start"));
+            }
         }
         Ok(bundle)
     }

@@ -25,8 +25,59 @@ fn parse_at(name: &str, line: u64, field: Option<&str>, message: impl Into<Strin
 /// are summarised in one more warning.
 const MAX_LISTED_WARNINGS: usize = 20;
 
-fn read_bytes(path: &Path) -> Result<Vec<u8>> {
-    std::fs::read(path).map_err(|e| Error::io(path, "cannot read", e))
+/// The largest text input read \[bytes\]: 2 GiB, about 20 million CSV rows.
+pub const MAX_TEXT_BYTES: u64 = 2 << 30;
+
+/// The longest line of a text input \[bytes\]: 1 MiB. A longer line means
+/// the file is not text of this kind (`/dev/zero`, a binary file), so
+/// reading stops there instead of filling memory.
+pub const MAX_LINE_BYTES: usize = 1 << 20;
+
+/// Read a text input whole, refusing (before reading further) a file
+/// larger than [`MAX_TEXT_BYTES`] or a line longer than [`MAX_LINE_BYTES`].
+///
+/// # Errors
+/// An unreadable file, or one over either limit (`file:line: ...`).
+pub fn read_text_input(path: &Path) -> Result<Vec<u8>> {
+    use std::io::Read;
+    let file = std::fs::File::open(path).map_err(|e| Error::io(path, "cannot read", e))?;
+    let mut reader = file.take(MAX_TEXT_BYTES + 1);
+    let mut out = Vec::new();
+    let mut chunk = vec![0u8; 1 << 20];
+    let (mut line_len, mut line_no) = (0usize, 1u64);
+    loop {
+        let n = match reader.read(&mut chunk) {
+            Ok(0) => break,
+            Ok(n) => n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => return Err(Error::io(path, "cannot read", e)),
+        };
+        for piece in chunk[..n].split_inclusive(|&b| b == b'\n') {
+            line_len += piece.len();
+            if line_len > MAX_LINE_BYTES + 1 {
+                return Err(Error::parse(
+                    path,
+                    format!(
+                        "line longer than {MAX_LINE_BYTES} bytes: not a text file of this kind \
+                         (stopped reading)"
+                    ),
+                )
+                .at(line_no, None));
+            }
+            if piece.last() == Some(&b'\n') {
+                line_len = 0;
+                line_no += 1;
+            }
+        }
+        out.extend_from_slice(&chunk[..n]);
+        if out.len() as u64 > MAX_TEXT_BYTES {
+            return Err(Error::parse(
+                path,
+                format!("larger than {MAX_TEXT_BYTES} bytes, the most a text input may hold"),
+            ));
+        }
+    }
+    Ok(out)
 }
 
 /// Read a segments file (`start end` per line \[GPS s\], `#` comments).
@@ -37,7 +88,7 @@ fn read_bytes(path: &Path) -> Result<Vec<u8>> {
 /// # Errors
 /// An unreadable file, or see [`parse_segments`].
 pub fn read_segments_file(path: &Path) -> Result<(SegmentList, Vec<String>)> {
-    let bytes = read_bytes(path)?;
+    let bytes = read_text_input(path)?;
     let name = path.display().to_string();
     let text = std::str::from_utf8(&bytes)
         .map_err(|e| Error::parse(&name, format!("not valid UTF-8 text: {e}")))?;
@@ -97,6 +148,14 @@ pub fn parse_segments(text: &str, name: &str) -> Result<(SegmentList, Vec<String
                     line_no as u64,
                     None,
                     format!("{what} '{}' is not finite", shown(s)),
+                ));
+            }
+            if !crate::catalogue::gps_ok(v) {
+                return Err(parse_at(
+                    name,
+                    line_no as u64,
+                    None,
+                    format!("{what}: {}", crate::catalogue::gps_range_message(v)),
                 ));
             }
             Ok(v)
@@ -334,7 +393,7 @@ fn cell(
 /// # Errors
 /// An unreadable file, or see [`parse_trigger_csv`].
 pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
-    parse_trigger_csv(&read_bytes(path)?, &path.display().to_string())
+    parse_trigger_csv(&read_text_input(path)?, &path.display().to_string())
 }
 
 /// Parse an external trigger CSV; `name` is used in messages.
@@ -442,6 +501,17 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
                 ));
             }
         }
+        // Times are stored as integer ns: beyond ±9e9 s they would wrap.
+        for (value, col) in [(time, "time"), (t_start, "t_start"), (t_end, "t_end")] {
+            if !crate::catalogue::gps_ok(value) {
+                return Err(parse_at(
+                    name,
+                    line,
+                    Some(col),
+                    crate::catalogue::gps_range_message(value),
+                ));
+            }
+        }
         if t_start > time {
             return Err(parse_at(
                 name,
@@ -540,7 +610,7 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
 /// # Errors
 /// An unreadable file, or see [`parse_injections`].
 pub fn read_injections(path: &Path) -> Result<Vec<f64>> {
-    parse_injections(&read_bytes(path)?, &path.display().to_string())
+    parse_injections(&read_text_input(path)?, &path.display().to_string())
 }
 
 /// Parse an injections CSV: a header row with a `time` column \[GPS s\]
@@ -556,6 +626,14 @@ pub fn parse_injections(bytes: &[u8], name: &str) -> Result<Vec<f64>> {
     table.for_each(|rec, line| {
         let t = cell(rec, Some(c_time), "time", name, line)?
             .ok_or_else(|| parse_at(name, line, Some("time"), "empty cell"))?;
+        if !crate::catalogue::gps_ok(t) {
+            return Err(parse_at(
+                name,
+                line,
+                Some("time"),
+                crate::catalogue::gps_range_message(t),
+            ));
+        }
         out.push(t);
         Ok(())
     })?;

@@ -114,10 +114,29 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
         let shard =
             rusqlite::Connection::open_with_flags(&db, rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY)
                 .with_context(|| format!("opening shard catalogue {}", db.display()))?;
+        let shard_schema: i64 = shard
+            .query_row("PRAGMA user_version", [], |r| r.get(0))
+            .with_context(|| {
+                format!(
+                    "{}: not a glitchbook shard catalogue (SQLite could not read it)",
+                    db.display()
+                )
+            })?;
+        if shard_schema != crate::catalogue::schema_version() {
+            bail!(
+                "{}: shard catalogue schema version {shard_schema}, but this glitchbook writes \
+                 version {}; run the shard again with this glitchbook (refusing to merge)",
+                db.display(),
+                crate::catalogue::schema_version()
+            );
+        }
         let runs: Vec<(String, i64, String)> = shard
-            .prepare("SELECT plan_id, shard, tool_version FROM shard_runs")?
-            .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?
-            .collect::<rusqlite::Result<_>>()?;
+            .prepare("SELECT plan_id, shard, tool_version FROM shard_runs")
+            .and_then(|mut st| {
+                st.query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?
+                    .collect::<rusqlite::Result<_>>()
+            })
+            .with_context(|| format!("{}: not a glitchbook shard catalogue", db.display()))?;
         if runs.len() != 1 || runs[0].0 != plan.plan_id || runs[0].1 != k as i64 {
             bail!(
                 "{}: not shard {k} of plan {} (shard_runs says {:?}); refusing to merge",
@@ -285,7 +304,16 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             n_in += trigs.len();
             let shard_max = trigs.iter().map(|t| t.2 - t.1).max().unwrap_or(0);
             max_len_ns = max_len_ns.max(shard_max);
-            let keep = keep_by_channel.get(s.channel.as_str());
+            // The keep span's segments in ns, converted once (checked).
+            let keep_ns: Option<Vec<(i64, i64)>> = keep_by_channel
+                .get(s.channel.as_str())
+                .map(|kl| {
+                    kl.segments()
+                        .iter()
+                        .map(|g| Ok((to_ns(g.start)?, to_ns(g.end)?)))
+                        .collect::<crate::Result<_>>()
+                })
+                .transpose()?;
             let mut twins = tx.prepare_cached(
                 "SELECT t.id, t.snr, t.t_peak_ns, t.f_peak_hz, t.q FROM triggers t \
                  JOIN merged_scans ms ON ms.scan_id = t.scan_id \
@@ -303,9 +331,8 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             for t in &trigs {
                 // Only triggers within one longest-trigger length of an edge
                 // of this shard's keep span can have a twin.
-                let near_edge = keep.is_none_or(|kl| {
-                    kl.segments().iter().any(|g| {
-                        let (a, b) = (to_ns(g.start), to_ns(g.end));
+                let near_edge = keep_ns.as_ref().is_none_or(|kl| {
+                    kl.iter().any(|&(a, b)| {
                         let w = max_len_ns;
                         (t.1 - w < a && t.2 + w >= a) || (t.1 - w <= b && t.2 + w > b)
                     })

@@ -470,11 +470,13 @@ pub fn make_plan_from_channels(
 }
 
 fn write_plan_dir(plan: &Plan, out_dir: &Path, shard_command: &ShardCommand) -> Result<()> {
+    slurm::check_batch_dir(&std::path::absolute(out_dir)?)?;
     for sub in ["", "shards", "logs", "status"] {
         let d = out_dir.join(sub);
         std::fs::create_dir_all(&d).with_context(|| format!("creating {}", d.display()))?;
     }
     let dir = std::fs::canonicalize(out_dir)?;
+    slurm::check_batch_dir(&dir)?;
     let write = |name: &str, text: &str| -> Result<()> {
         let p = dir.join(name);
         std::fs::write(&p, text).with_context(|| format!("writing {}", p.display()))

@@ -55,6 +55,40 @@ impl SlurmOptions {
         if self.max_parallel == Some(0) {
             return Err(Error::invalid("max_parallel", "must be at least 1"));
         }
+        // Written into `#SBATCH` lines: only characters Slurm takes in these
+        // names, so no value can start a new line or break the script.
+        let name_ok = |x: &str, extra: &str| {
+            !x.is_empty()
+                && x.len() <= 200
+                && x.chars()
+                    .all(|c| c.is_ascii_alphanumeric() || "_.-".contains(c) || extra.contains(c))
+        };
+        if !name_ok(&self.job_name, "+") {
+            return Err(Error::invalid(
+                "job_name",
+                format!(
+                    "{:?}: use letters, digits and _ . + - only (at most 200)",
+                    self.job_name
+                ),
+            ));
+        }
+        if let Some(p) = &self.partition {
+            if !(name_ok(p, ",") && !p.starts_with(',') && !p.ends_with(',') && !p.contains(",,")) {
+                return Err(Error::invalid(
+                    "partition",
+                    format!(
+                        "{p:?}: a Slurm partition name (letters, digits, _ . -), or several \
+                         separated by commas"
+                    ),
+                ));
+            }
+        }
+        if self.exe.is_empty() || self.exe.chars().any(char::is_control) {
+            return Err(Error::invalid(
+                "exe",
+                format!("{:?}: must be a path without control characters", self.exe),
+            ));
+        }
         let t = &self.time_limit;
         let (days, rest) = t.split_once('-').unwrap_or(("0", t));
         let parts: Vec<&str> = rest.split(':').collect();
@@ -67,6 +101,32 @@ impl SlurmOptions {
         }
         Ok(())
     }
+}
+
+/// Check a plan directory can be written into the batch script: its path
+/// goes into `#SBATCH --output="..."` lines, where Slurm reads `%` as a
+/// file-name pattern and a double quote or backslash would end or escape
+/// the quoted path, and into the shell, where a control character would
+/// break the line.
+///
+/// # Errors
+/// [`crate::Error::InvalidParameter`] (field `plan_dir`) naming the
+/// character.
+pub fn check_batch_dir(dir: &Path) -> crate::Result<()> {
+    let s = dir.display().to_string();
+    if let Some(c) = s
+        .chars()
+        .find(|&c| c.is_control() || c == '"' || c == '\\' || c == '%')
+    {
+        return Err(crate::Error::invalid(
+            "plan_dir",
+            format!(
+                "{s:?}: the path holds {c:?}, which cannot be written into the batch script's \
+                 #SBATCH lines; choose a directory without it"
+            ),
+        ));
+    }
+    Ok(())
 }
 
 /// Shell-quote a string (single quotes).
@@ -109,8 +169,10 @@ pub fn slurm_script(plan: &Plan, dir: &Path, command: &ShardCommand) -> String {
     ));
     s.push_str(&format!("#SBATCH --mem={}M\n", o.mem_mb));
     s.push_str(&format!("#SBATCH --time={}\n", o.time_limit));
-    s.push_str(&format!("#SBATCH --output={dir_s}/logs/shard-%a.log\n"));
-    s.push_str(&format!("#SBATCH --error={dir_s}/logs/shard-%a.log\n"));
+    // Quoted: sbatch reads a double-quoted value as one argument, so a
+    // directory with spaces works (see check_batch_dir for what cannot).
+    s.push_str(&format!("#SBATCH --output=\"{dir_s}/logs/shard-%a.log\"\n"));
+    s.push_str(&format!("#SBATCH --error=\"{dir_s}/logs/shard-%a.log\"\n"));
     s.push_str(&format!(
         "# glitchbook plan {} ({} shards), tool version {}\n",
         plan.plan_id, n, plan.tool_version

@@ -57,6 +57,11 @@ pub struct RateParams {
     pub max_cells: usize,
 }
 
+/// The most time bins one `rates` or `report` run makes: a bin length that
+/// would make more is refused up front (each bin holds a row of output and
+/// a Poisson interval; 100,000 bins is a year in 5-minute bins).
+pub const MAX_BINS: u64 = 100_000;
+
 impl Default for RateParams {
     fn default() -> Self {
         RateParams {
@@ -122,6 +127,12 @@ impl RateParams {
                 return Err(Error::invalid(
                     field,
                     format!("must be a finite number, got {x}"),
+                ));
+            }
+            if let Some(x) = t.filter(|&x| !crate::catalogue::gps_ok(x)) {
+                return Err(Error::invalid(
+                    field,
+                    crate::catalogue::gps_range_message(x),
                 ));
             }
         }
@@ -248,7 +259,7 @@ pub fn load_events(
     min_snr: f64,
     with_families: bool,
 ) -> Result<Vec<(f64, Option<i64>)>> {
-    let (ns0, ns1) = (to_ns(since_gps), to_ns(until_gps));
+    let (ns0, ns1) = (to_ns(since_gps)?, to_ns(until_gps)?);
     let workers = rayon::current_num_threads().clamp(1, 8) as i64;
     let path = conn.path().filter(|p| !p.is_empty()).map(str::to_string);
     let mut rows: Vec<(i64, Option<i64>)> = match path {
@@ -262,13 +273,10 @@ pub fn load_events(
                     if a >= b {
                         return Ok(Vec::new());
                     }
-                    let c = Connection::open_with_flags(
-                        &path,
-                        rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY
-                            | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
-                    )
-                    .with_context(|| format!("opening {path} for reading"))?;
-                    c.busy_timeout(std::time::Duration::from_secs(60))?;
+                    // Read-only like the listing commands (works on a
+                    // catalogue shared without write access).
+                    let c = crate::catalogue::open_read_only(std::path::Path::new(&path))
+                        .with_context(|| format!("opening {path} for reading"))?;
                     load_chunk(&c, channel_id, a, b, min_snr, with_families)
                 })
                 .collect::<Result<Vec<_>>>()?;
@@ -540,6 +548,18 @@ pub fn rates(conn: &Connection, p: &RateParams) -> Result<RateReport> {
     };
     if end <= start {
         bail!("empty span: start {start} is not before end {end} [GPS s]");
+    }
+    let n_bins = ((end - start) / p.bin_s).ceil();
+    if n_bins > MAX_BINS as f64 {
+        return Err(crate::Error::invalid(
+            "bin_s",
+            format!(
+                "{} s over the span {start}–{end} [GPS s] makes {n_bins:.0} bins; at most \
+                 {MAX_BINS} are allowed (choose a longer bin or a shorter span)",
+                p.bin_s
+            ),
+        )
+        .into());
     }
     let live = all_live.intersection(&SegmentList::single(start, end));
     let events = load_events(conn, channel.id, start, end, p.min_snr, has_families)?;

@@ -261,7 +261,7 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     };
     let rates = rates(conn, &rp)?;
     let (t0, t1) = (rates.span_start_gps, rates.span_end_gps);
-    let (n0, n1) = (crate::catalogue::to_ns(t0), crate::catalogue::to_ns(t1));
+    let (n0, n1) = (crate::catalogue::to_ns(t0)?, crate::catalogue::to_ns(t1)?);
 
     // Channels: triggers in the span and live time.
     let mut channels = Vec::new();
