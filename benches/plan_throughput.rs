@@ -43,7 +43,7 @@ fn main() {
     };
     let params = ScanParams::default();
     let spec = ChannelSpec {
-        name: "X1:STRAIN".into(),
+        name: "AV1:STRAIN".into(),
         file: "/virtual/x.npy".into(),
         rate: fs,
         start: t0,
@@ -66,7 +66,7 @@ fn main() {
     let (valid, _) = src.survey().unwrap();
     let pc = plan::plan_channel(
         Path::new("/virtual"),
-        "X1:STRAIN",
+        "AV1:STRAIN",
         Role::Target,
         fs,
         t0,

@@ -254,9 +254,10 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
     let veto_dir = o.out.join("vetoes");
     let files = coupling::write_veto_segments(&vet, &veto_dir)?;
     say(format!(
-        "4. witnesses: {} rows; vetoes: {} rounds, {} proposed, segment files in {} ({:.1} s)",
+        "4. witnesses: {} rows; vetoes: {} rounds, {} channel proposals ({} with segment files in {}) ({:.1} s)",
         wit.rows.len(),
         vet.rounds.len(),
+        vet.proposals.len(),
         files.len() / 2,
         veto_dir.display(),
         t.elapsed().as_secs_f64()
@@ -264,10 +265,27 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
     for (fam, name) in &names {
         if let Some(best) = wit.best.iter().find(|r| r.family_id == Some(*fam)) {
             say(format!(
-                "   family {fam} ({name}): best witness {} (threshold {}, window {} s, efficiency {:.2}, significance {:.1})",
-                best.channel, best.snr_threshold, best.window_s, best.efficiency, best.significance
+                "   family {fam} ({name}): best witness {} (aux SNR >= {}, window {} s, efficiency {:.2}, false alarm {:.1e}{})",
+                best.aux_channel,
+                crate::output::fixed(best.aux_min_snr, 2),
+                best.window_s,
+                best.efficiency,
+                best.false_alarm_any,
+                if best.beyond_chance { "" } else { ", consistent with chance" }
             ));
         }
+    }
+    if let Some(l) = wit
+        .lags
+        .iter()
+        .find(|l| l.family_id.is_some() && l.pairs > 0)
+    {
+        say(format!(
+            "   lags are {}: e.g. {} median {:+.4} s",
+            coupling::lag::LAG_DEFINITION,
+            l.aux_channel,
+            l.lag_median_s.unwrap_or(0.0)
+        ));
     }
     say(format!("   {}", coupling::VETO_CAUTION));
 

@@ -9,10 +9,11 @@
 //! - unrelated `Z1:MAG-Y`: 50 triggers at T0 + 15 + 40 k (SNR 30), ≥ 5 s from
 //!   any target.
 //!
-//! Best witness combination: threshold 20 (the highest that keeps the 40
-//! loud triggers; ties go to the higher threshold), window ±0.05 s (the
-//! smallest containing the 0.02 s lag): 40 coincidences, deadtime
-//! 40 × 0.1 s / 2000 s = 0.002, expected 100 × 0.002 = 0.2, use 100 %.
+//! The witness channel's own thresholds (quantiles of its SNRs, kept counts
+//! 100, 72, 52, 37, 27, 19, 14, 10) are 9 and 25. Best cell: threshold 25
+//! (the 40 loud triggers), window ±0.05 s (the smallest containing the
+//! 0.02 s lag): 40 targets hit, deadtime 40 × 0.1 s / 2000 s = 0.002,
+//! expected 100 × 0.002 = 0.2, every used aux trigger hits (fraction 1).
 //! Reference numbers: tests/data/cli/cli_coupling.json (SciPy 1.17.1, script
 //! beside it).
 use crate::cli_util::Dir;
@@ -90,39 +91,59 @@ fn witnesses_rank_the_planted_channel_first() {
     let w = v["witnesses"].as_array().unwrap();
     assert_eq!(w.len(), 2, "one best row per aux channel: {v}");
     let best = &w[0];
-    assert_eq!(best["channel"], WITNESS);
+    assert_eq!(best["aux_channel"], WITNESS);
     assert_eq!(best["family_id"], Value::Null, "all target triggers");
     // Hand-worked (module header).
-    assert_eq!(best["snr_threshold"].as_f64(), Some(20.0));
+    assert_eq!(best["aux_min_snr"].as_f64(), Some(25.0));
     assert_eq!(best["window_s"].as_f64(), Some(0.05));
-    assert_eq!(best["n_target"].as_u64(), Some(100));
-    assert_eq!(best["n_coinc"].as_u64(), Some(40));
-    assert_eq!(best["n_aux"].as_u64(), Some(40));
-    assert_eq!(best["use_percentage"].as_f64(), Some(100.0));
+    assert_eq!(best["targets"].as_u64(), Some(100));
+    assert_eq!(best["targets_hit"].as_u64(), Some(40));
+    assert_eq!(best["aux_triggers"].as_u64(), Some(40));
+    assert_eq!(best["aux_hit_fraction"].as_f64(), Some(1.0));
     assert!((best["deadtime"].as_f64().unwrap() - 0.002).abs() < 1e-8);
-    assert!((best["expected"].as_f64().unwrap() - 0.2).abs() < 1e-6);
-    // −log10 P(N ≥ 40 | Poisson 0.2): SciPy 1.17.1
-    // `-poisson.logsf(39, 0.2) / log(10)` (fixture). Tolerance covers the
-    // f64 rounding of window edges at GPS ~1.4e9.
+    assert!((best["targets_hit_chance"].as_f64().unwrap() - 0.2).abs() < 1e-6);
+    // Targets 20 s apart do not clump: the fast Poisson figure on targets,
+    // P(N ≥ 40 | Poisson 0.2): SciPy 1.17.1 `poisson.logsf(39, 0.2)`
+    // (fixture, as −log10). Tolerance covers the f64 rounding of window
+    // edges at GPS ~1.4e9.
+    assert_eq!(best["chance_basis"], "targets_poisson");
     let want = fx["witness"]["significance"].as_f64().unwrap();
+    let got = -best["chance_p"].as_f64().unwrap().log10();
+    assert!((got - want).abs() < 1e-3, "{best}");
+    // 500 time slides resolve nothing this extreme: the tail extrapolation.
+    // The targets here are exactly periodic (20 s), so the slides whose
+    // offset is near a multiple of 20 s line the witness up with other
+    // targets: they measure a large effective number of cells, and the
+    // false-alarm probability (about 1e-14) is far above the chance
+    // probability (1e-76) — still far beyond chance.
+    assert_eq!(best["slides"].as_u64(), Some(500));
+    assert_eq!(best["false_alarm_basis"], "slides_tail");
+    let fa = best["false_alarm_any"].as_f64().unwrap();
     assert!(
-        (best["significance"].as_f64().unwrap() - want).abs() < 1e-3,
+        fa < 1e-8 && fa > best["chance_p"].as_f64().unwrap(),
         "{best}"
     );
+    assert_eq!(best["beyond_chance"], true);
     // The unrelated channel never coincides within ±1 s.
-    assert_eq!(w[1]["channel"], OTHER);
-    assert_eq!(w[1]["n_coinc"].as_u64(), Some(0));
-    assert_eq!(w[1]["significance"].as_f64(), Some(0.0));
-    // Lag summary of the best witness: t_target − t_aux = +0.02 s.
+    assert_eq!(w[1]["aux_channel"], OTHER);
+    assert_eq!(w[1]["targets_hit"].as_u64(), Some(0));
+    assert_eq!(w[1]["chance_p"].as_f64(), Some(1.0));
+    assert_eq!(w[1]["beyond_chance"], false);
+    // Lag summary of the best witness: t_aux − t_target = −0.02 s.
+    assert!(v["lag_definition"]
+        .as_str()
+        .unwrap()
+        .starts_with("t_aux - t_target"));
     let lag = &v["lags"][0];
-    assert_eq!(lag["channel"], WITNESS);
-    assert_eq!(lag["n_pairs"].as_u64(), Some(40));
-    assert!((lag["median_lag_s"].as_f64().unwrap() - 0.02).abs() < 1e-6);
+    assert_eq!(lag["aux_channel"], WITNESS);
+    assert_eq!(lag["pairs"].as_u64(), Some(40));
+    assert!((lag["lag_median_s"].as_f64().unwrap() + 0.02).abs() < 1e-6);
     assert_eq!(lag["freq_relation"], "same");
 
-    // The whole grid: 2 channels × 8 default thresholds × 6 default windows.
+    // The whole grid: the witness has 2 thresholds of its own, the other
+    // channel (all SNR 30) one; 6 default windows.
     let all = json(&d, &["witnesses", "--all-rows", "--format", "json"]);
-    assert_eq!(all["witnesses"].as_array().unwrap().len(), 2 * 8 * 6);
+    assert_eq!(all["witnesses"].as_array().unwrap().len(), (2 + 1) * 6);
     // A custom grid, and CSV: header + one row per channel.
     let out = d.ok(&[
         "witnesses",
@@ -135,7 +156,7 @@ fn witnesses_rank_the_planted_channel_first() {
     ]);
     let lines: Vec<&str> = out.lines().collect();
     assert_eq!(lines.len(), 3, "{out}");
-    assert!(lines[0].starts_with("family_id,aux_channel_id,channel,"));
+    assert!(lines[0].starts_with("family_id,aux_channel_id,aux_channel,aux_min_snr,"));
     // Table: header, then the witness channel's row first.
     let table = d.ok(&["witnesses"]);
     let rows: Vec<&str> = table.lines().collect();
@@ -181,21 +202,25 @@ fn vetoes_write_segments_and_metadata_with_the_caution() {
         (r["mode"].as_str(), r["round"].as_u64()),
         (Some("all"), Some(1))
     );
-    assert_eq!(r["channel"], WITNESS);
-    assert_eq!(r["n_coinc"].as_u64(), Some(40));
-    assert!((r["cum_efficiency"].as_f64().unwrap() - 0.4).abs() < 1e-12);
-    // Safety: 30 injections inside, none vetoed: P(N ≥ 0) = 1.
-    assert_eq!(r["n_inj"].as_u64(), Some(30));
-    assert_eq!(r["n_inj_vetoed"].as_u64(), Some(0));
-    assert_eq!(r["safety_p"].as_f64(), Some(1.0));
+    assert_eq!(r["aux_channel"], WITNESS);
+    assert_eq!(r["targets_hit"].as_u64(), Some(40));
+    assert!((r["total_efficiency"].as_f64().unwrap() - 0.4).abs() < 1e-12);
+    // Safety: 30 injections inside, none vetoed: P(X ≥ 0) = 1.
+    assert_eq!(r["injections"].as_u64(), Some(30));
+    assert_eq!(r["injections_vetoed"].as_u64(), Some(0));
+    assert_eq!(r["safety_binomial_p"].as_f64(), Some(1.0));
+    assert_eq!(r["safety_poisson_p"].as_f64(), Some(1.0));
+    assert_eq!(r["safety"], "safe");
+    let p = &v["proposals"][0];
     assert_eq!(
-        (r["safe"].as_bool(), r["proposed"].as_bool()),
-        (Some(true), Some(true))
+        (p["aux_channel"].as_str(), p["state"].as_str()),
+        (Some(WITNESS), Some("proposed"))
     );
+    assert!((p["deadtime"].as_f64().unwrap() - 0.002).abs() < 1e-8);
 
     // Segment file: the 40 windows [t − 0.02 − 0.05, t − 0.02 + 0.05).
     let dir = d.path().join("vetoes");
-    let stem = "veto_1_Z1_SEIS-X__pier___b_";
+    let stem = "veto_Z1_SEIS-X__pier___b_";
     let txt = std::fs::read_to_string(dir.join(format!("{stem}.txt"))).unwrap();
     assert!(txt.contains(caution), "{txt}");
     let segs: Vec<(f64, f64)> = txt
@@ -217,8 +242,8 @@ fn vetoes_write_segments_and_metadata_with_the_caution() {
         serde_json::from_str(&std::fs::read_to_string(dir.join(format!("{stem}.json"))).unwrap())
             .unwrap();
     assert_eq!(meta["caution"], caution);
-    assert_eq!(meta["safety_checked"], true);
-    assert_eq!(meta["round"]["n_inj_vetoed"].as_u64(), Some(0));
+    assert_eq!(meta["state"], "proposed");
+    assert_eq!(meta["proposal"]["injections_vetoed"].as_u64(), Some(0));
     let summary: Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("vetoes.json")).unwrap()).unwrap();
     assert_eq!(summary["caution"], caution);
@@ -227,6 +252,7 @@ fn vetoes_write_segments_and_metadata_with_the_caution() {
     let table = d.ok(&["vetoes"]);
     assert!(table.contains(&format!("CAUTION: {caution}")), "{table}");
     assert!(table.contains("Safety: NOT CHECKED"), "{table}");
+    assert!(table.contains("UNCHECKED"), "{table}");
     let out = d.run(&["vetoes", "--format", "csv"]);
     let csv_out = String::from_utf8(out.stdout).unwrap();
     let mut rdr = csv::Reader::from_reader(csv_out.as_bytes());
@@ -235,6 +261,10 @@ fn vetoes_write_segments_and_metadata_with_the_caution() {
     let rows: Vec<csv::StringRecord> = rdr.records().map(|r| r.unwrap()).collect();
     assert_eq!(rows.len(), 1);
     assert_eq!(&rows[0][col], caution);
+    let safety = head.iter().position(|h| h == "safety").unwrap();
+    assert_eq!(&rows[0][safety], "unchecked");
+    let state = head.iter().position(|h| h == "proposal_state").unwrap();
+    assert_eq!(&rows[0][state], "unchecked");
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("safety NOT CHECKED"), "{err}");
 }
@@ -262,19 +292,22 @@ fn unsafe_veto_is_not_proposed_and_writes_no_segments() {
         ],
     );
     let r = &v["rounds"][0];
-    assert_eq!(r["channel"], WITNESS);
+    assert_eq!(r["aux_channel"], WITNESS);
     assert_eq!(
-        (r["n_inj"].as_u64(), r["n_inj_vetoed"].as_u64()),
+        (r["injections"].as_u64(), r["injections_vetoed"].as_u64()),
         (Some(20), Some(20))
     );
-    assert_eq!(
-        (r["safe"].as_bool(), r["proposed"].as_bool()),
-        (Some(false), Some(false))
-    );
-    // P(N ≥ 20 | Poisson 20 × 0.002): SciPy 1.17.1 `poisson.sf(19, 0.04)`.
+    assert_eq!(r["safety"], "unsafe");
+    // Decides: P(X ≥ 20 | Binomial(20, 0.002)) = 0.002^20 (every injection
+    // vetoed; exact by hand).
+    let got = r["safety_binomial_p"].as_f64().unwrap();
+    assert!((got / 0.002f64.powi(20) - 1.0).abs() < 1e-3, "{got}");
+    // Reference: P(N ≥ 20 | Poisson 20 × 0.002): SciPy 1.17.1
+    // `poisson.sf(19, 0.04)` (fixture).
     let want = fx["unsafe_veto"]["safety_p"].as_f64().unwrap();
-    let got = r["safety_p"].as_f64().unwrap();
+    let got = r["safety_poisson_p"].as_f64().unwrap();
     assert!((got / want - 1.0).abs() < 1e-3, "{got} vs {want}");
+    assert_eq!(v["proposals"].as_array().unwrap().len(), 0, "{v}");
     let files: Vec<String> = std::fs::read_dir(d.path().join("v"))
         .unwrap()
         .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
@@ -340,9 +373,13 @@ fn report_escapes_channel_names_and_prints_index_path() {
     assert!(html.contains("Z1:SEIS-X &quot;pier&quot; &lt;b&gt;"));
     assert!(!html.contains(WITNESS) && !html.contains(TARGET));
     assert!(html.contains(OTHER));
-    // Both the latest witnesses run (its table has a "coincident" column)
+    // Both the latest witnesses run (its table has the false-alarm columns)
     // and the latest vetoes run (its table carries the caution) are shown.
-    assert!(html.contains("<th>coincident</th>"));
+    assert!(html.contains("<th>false alarm, any channel</th>"));
+    assert!(
+        html.contains("UNCHECKED"),
+        "no injections: nothing shown as safe"
+    );
     assert!(html.contains(glitchbook::report::VETO_CAUTION));
     assert!(html.matches("Z1:SEIS-X &quot;pier&quot; &lt;b&gt;").count() >= 3);
 }
@@ -374,7 +411,7 @@ fn tables_escape_control_characters_in_channel_names() {
         .as_array()
         .unwrap()
         .iter()
-        .map(|w| w["channel"].as_str().unwrap())
+        .map(|w| w["aux_channel"].as_str().unwrap())
         .collect();
     assert!(names.contains(&name), "{names:?}");
 }
@@ -388,10 +425,7 @@ fn bad_flags_are_one_error_line_and_change_nothing() {
         (&["rates", "--cl", "1.5"][..], "--cl"),
         (&["rates", "--family", "9"][..], "--family 9"),
         (&["vetoes", "--safety-p", "2"][..], "--safety-p"),
-        (
-            &["vetoes", "--min-significance", "-1"][..],
-            "--min-significance",
-        ),
+        (&["vetoes", "--false-alarm", "0"][..], "--false-alarm"),
         (
             &["vetoes", "--injections", "missing.csv"][..],
             "missing.csv",

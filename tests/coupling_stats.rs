@@ -101,3 +101,61 @@ fn poisson_edge_cases() {
     assert_eq!(binomial_ln_sf(1, 10, 0.0), f64::NEG_INFINITY);
     assert_eq!(binomial_ln_sf(10, 10, 1.0), 0.0);
 }
+
+#[derive(Deserialize)]
+struct SafetyRow {
+    k: u64,
+    n: u64,
+    deadtime: f64,
+    binom_p: f64,
+    poisson_p: f64,
+    limit: f64,
+    #[serde(rename = "unsafe")]
+    is_unsafe: bool,
+    note: String,
+    source: String,
+}
+
+// The safety decision against scipy.stats.binom.sf (SciPy 1.17.1; fixture
+// tests/data/coupling/safety_cases.json): the binomial decides, the Poisson
+// is carried beside it; issue 13's case (deadtime 0.205, 25 of 50 vetoed)
+// is unsafe although its Poisson figure would pass.
+#[test]
+fn safety_decision_matches_scipy_binomial() {
+    use glitchbook::coupling::veto::{safety_check, Safety};
+    let rows: Vec<SafetyRow> = load("safety_cases.json");
+    assert!(rows.len() >= 10);
+    let mut issue_case = false;
+    for r in &rows {
+        let c = safety_check(Some((r.n, r.k)), r.deadtime, r.limit);
+        let (b, p) = (c.binomial_p.unwrap(), c.poisson_p.unwrap());
+        assert!(
+            (b - r.binom_p).abs() <= 1e-9 * r.binom_p + 1e-300,
+            "{} of {} at {}: binomial {b} vs {} ({})",
+            r.k,
+            r.n,
+            r.deadtime,
+            r.binom_p,
+            r.source
+        );
+        assert!((p - r.poisson_p).abs() <= 1e-9 * r.poisson_p + 1e-300);
+        let want = if r.is_unsafe {
+            Safety::Unsafe
+        } else {
+            Safety::Safe
+        };
+        assert_eq!(
+            c.safety, want,
+            "{} of {} at {} ({})",
+            r.k, r.n, r.deadtime, r.note
+        );
+        assert_eq!(c.injections_chance, Some(r.n as f64 * r.deadtime));
+        if r.k == 25 && r.n == 50 && r.deadtime == 0.205 {
+            issue_case = true;
+            assert!(r.poisson_p > r.limit && c.safety == Safety::Unsafe);
+        }
+    }
+    assert!(issue_case);
+    // Without injections: unchecked, never safe.
+    assert_eq!(safety_check(None, 0.205, 1e-5).safety, Safety::Unchecked);
+}

@@ -283,12 +283,12 @@ fn plan_keep_spans_partition_usable_time() {
     }
     let chans = vec![
         Chan {
-            name: "X1:STRAIN",
+            name: "AV1:STRAIN",
             rate_hz: 1024.0,
             data: a,
         },
         Chan {
-            name: "X1:AUX-ACC",
+            name: "AV1:ACC_AUX",
             rate_hz: 256.0,
             data: noise(256 * 600, 2),
         },
@@ -384,12 +384,12 @@ fn plan_sharded_scan_equals_one_go_with_triggers_on_edges() {
     let n = (fs as usize) * 400;
     let mut chans = vec![
         Chan {
-            name: "X1:STRAIN",
+            name: "AV1:STRAIN",
             rate_hz: fs,
             data: noise(n, 11),
         },
         Chan {
-            name: "X1:AUX-MAG",
+            name: "AV1:MAG_AUX",
             rate_hz: 512.0,
             data: noise(n / 2, 12),
         },
@@ -465,7 +465,7 @@ fn plan_sharded_scan_equals_one_go_with_triggers_on_edges() {
 fn plan_merge_refuses_other_parameters_unless_forced() {
     let fs = 512.0;
     let chans = vec![Chan {
-        name: "X1:STRAIN",
+        name: "AV1:STRAIN",
         rate_hz: fs,
         data: noise(512 * 200, 5),
     }];
@@ -516,7 +516,7 @@ fn plan_merge_refuses_other_parameters_unless_forced() {
 #[test]
 fn plan_status_and_local_runner_report_failures_with_logs() {
     let chans = vec![Chan {
-        name: "X1:STRAIN",
+        name: "AV1:STRAIN",
         rate_hz: 256.0,
         data: noise(256 * 400, 7),
     }];
@@ -581,13 +581,13 @@ fn plan_merge_folds_edge_twins_into_the_louder() {
     // transient, keep the louder) and a neighbour at another frequency whose
     // extent overlaps but whose peak tile does not (two transients, keep both).
     let chans = vec![Chan {
-        name: "X1:STRAIN",
+        name: "AV1:STRAIN",
         rate_hz: 256.0,
         data: noise(256 * 400, 9),
     }];
     let dir = tempfile::tempdir().unwrap();
     let p = plan_for(&chans, None, &opts(2), dir.path());
-    let e = interior_edges(&p, "X1:STRAIN")[0];
+    let e = interior_edges(&p, "AV1:STRAIN")[0];
     let trig = |t: f64, f: f64, q: f64, snr: f64, half: f64| Trigger {
         t_peak: t,
         t_start: t - half,
@@ -630,7 +630,7 @@ fn plan_merge_folds_edge_twins_into_the_louder() {
         let rep = merge(dir.path(), &db, false).unwrap();
         assert_eq!(rep.n_triggers_in, 4);
         assert_eq!(rep.n_edge_duplicates, 1, "{rep:?}");
-        let got = &read_triggers(&db)["X1:STRAIN"];
+        let got = &read_triggers(&db)["AV1:STRAIN"];
         let snrs: Vec<f64> = got.iter().map(|t| t.snr).collect();
         assert_eq!(snrs, vec![12.0, 7.0, 20.0], "{got:?}");
     }

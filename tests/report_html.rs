@@ -19,33 +19,50 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
     )
     .unwrap();
     c.execute(
-        "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, snr_threshold, window_s, n_target,
-           n_coinc, n_aux, n_aux_used, vetoed_s, analysed_s, deadtime, efficiency, use_percentage,
-           expected, significance, efficiency_over_deadtime)
-         VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 35.6, 0.52, 250.3, 573.4),
-                (1, 1, 2, 12.0, 0.1, 480, 200, 400, 210, 60.0, 82800.0, 0.00072, 0.417, 52.5, 0.21, 77.7, 579.2)",
+        "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, window_s, targets,
+           targets_hit, aux_triggers, aux_hit, covered_s, analysed_s, deadtime, efficiency,
+           aux_hit_fraction, lift, targets_hit_chance, aux_hit_chance, target_clumping, aux_clumping,
+           chance_p, chance_p_log10, chance_basis, slides, slide_p, false_alarm, false_alarm_basis, false_alarm_any,
+           channels_compared, beyond_chance)
+         VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 0.356, 573.4,
+                 0.52, 2.1, 1.0, 1.0, 5.0e-251, -250.3, 'targets_poisson', 500, 0.002, 9.0e-250, 'slides_tail',
+                 2.7e-249, 3, 1),
+                (1, 1, 2, 12.0, 0.1, 480, 200, 400, 210, 60.0, 82800.0, 0.00072, 0.417, 0.525, 579.2,
+                 0.21, 0.9, 1.0, 1.0, 2.0e-78, -77.7, 'targets_poisson', 500, 0.002, 3.6e-77, 'slides_tail',
+                 1.1e-76, 3, 1)",
         [],
     )
     .unwrap();
     c.execute(
-        "INSERT INTO witness_lags (run_id, family_id, aux_channel_id, snr_threshold, window_s,
-           lag_hist_json, n_pairs, peak_lag_s, median_lag_s, freq_relation, freq_ratio_median)
+        "INSERT INTO witness_lags (run_id, family_id, aux_channel_id, aux_min_snr, window_s,
+           lag_hist_json, pairs, lag_peak_s, lag_median_s, freq_relation, freq_ratio_median)
          VALUES (1, 1, 2, 8.0, 0.1, ?1, 300, 0.0, 0.0, 'same', 1.01)",
-        params![r#"{"edges_s":[-0.1,-0.05,0.0,0.05,0.1],"counts":[3,40,250,7]}"#],
+        params![r#"{"lag":"t_aux - t_target","edges_s":[-0.1,-0.05,0.0,0.05,0.1],"counts":[3,40,250,7]}"#],
     )
     .unwrap();
     for (mode, fam) in [("family", Some(1)), ("all", None)] {
         c.execute(
-            "INSERT INTO veto_rounds (run_id, mode, family_id, round, aux_channel_id, snr_threshold,
-           window_s, n_target, n_coinc, efficiency, deadtime, use_percentage, expected, significance,
-           vetoed_s, cum_efficiency, cum_deadtime, n_inj, n_inj_vetoed, inj_expected, safety_p,
-           safety_p_binomial, safe, proposed)
-         VALUES (2, ?1, ?2, 1, 2, 8.0, 0.1, 480, 300, 0.625, 0.00109, 35.6, 0.52, 250.3, 90.0,
-           0.625, 0.00109, 100, 0, 0.11, 1.0, 1.0, 1, 1)",
+            "INSERT INTO veto_rounds (run_id, mode, family_id, round, aux_channel_id, aux_min_snr,
+           window_s, targets, targets_hit, efficiency, deadtime, aux_hit_fraction, lift, chance_p,
+           chance_p_log10, chance_basis, false_alarm, false_alarm_basis, channels_compared, covered_s,
+           total_efficiency, total_deadtime, injections, injections_vetoed, injections_chance,
+           safety_binomial_p, safety_poisson_p, safety)
+         VALUES (2, ?1, ?2, 1, 2, 8.0, 0.1, 480, 300, 0.625, 0.00109, 0.356, 573.4, 5.0e-251,
+           -250.3, 'targets_poisson', 2.7e-249, 'slides_tail', 3, 90.0, 0.625, 0.00109, 100, 0, 0.11, 1.0,
+           1.0, 'safe')",
             params![mode, fam],
         )
         .unwrap();
     }
+    c.execute(
+        "INSERT INTO veto_proposals (run_id, aux_channel_id, rounds, round_count, segment_count,
+           covered_s, analysed_s, deadtime, targets, targets_vetoed, efficiency, injections,
+           injections_vetoed, injections_chance, safety_binomial_p, safety_poisson_p, safety, state)
+         VALUES (2, 2, 'all#1 (snr>=8, window 0.1 s); family 1#1 (snr>=8, window 0.1 s)', 2, 300,
+           90.0, 82800.0, 0.00109, 480, 300, 0.625, 100, 0, 0.11, 1.0, 1.0, 'safe', 'proposed')",
+        [],
+    )
+    .unwrap();
     let mut out = Vec::new();
     for k in 0..2u8 {
         let img = image::RgbImage::from_fn(64, 48, |x, y| {
@@ -117,8 +134,14 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     assert!(html.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"));
     assert!(html.contains(VETO_CAUTION));
     assert!(html.contains("safety p"));
+    // One proposal per channel with its combined deadtime and state.
+    assert!(html.contains("Proposals, one per aux channel") && html.contains("all#1 (snr&gt;=8"));
     // The witness table shows each channel's best grid row only.
-    assert!(html.contains(">250.3<") && !html.contains(">77.7<"));
+    assert!(html.contains("5.00e-251") && !html.contains("2.00e-78"));
+    assert!(html.contains("beyond chance"));
+    // The lag axis says which way the lag goes.
+    let lag = std::fs::read_to_string(index.parent().unwrap().join("img/lag_f1_0.svg")).unwrap();
+    assert!(lag.contains("t_aux − t_target"), "lag axis label");
     assert!(html.contains("(1 of 2 grid rows;"));
     assert!(html.contains("img/thumb_f1_0.png") && html.contains("img/thumb_f1_1.png"));
     // Spectrograms are drawn with axes (16..2048 Hz in powers of two inside

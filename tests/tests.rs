@@ -17,6 +17,10 @@ mod coupling_cases;
 // Coupling: catalogue round trip, writers and segment files.
 mod coupling_catalogue;
 
+// Coupling: trains, many channels and cells (issue 13): the trains case and
+// the calibration of false-alarm probabilities on random channels.
+mod coupling_background;
+
 // Rates: Poisson limits (Gehrels 1986, SciPy), Bayesian blocks (Astropy),
 // catalogue rates; report: HTML content and a headless-browser check.
 mod rates_blocks;

@@ -50,6 +50,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0004_merges",
         include_str!("../../migrations/0004_merges.sql"),
     ),
+    (
+        "0006_coupling_words",
+        include_str!("../../migrations/0006_coupling_words.sql"),
+    ),
 ];
 
 /// Schema version this build writes.

@@ -53,7 +53,7 @@ fn insert_query_round_trip_and_skip() {
         .collect();
     ts[3].q = f64::NAN; // unknown q is stored as NULL
     let tx = conn.transaction().unwrap();
-    let out = insert_scan(&tx, &record("L0:STRAIN", "abc", &seg, &ts)).unwrap();
+    let out = insert_scan(&tx, &record("AV1:STRAIN", "abc", &seg, &ts)).unwrap();
     assert_eq!(
         out,
         InsertOutcome::Inserted {
@@ -65,7 +65,7 @@ fn insert_query_round_trip_and_skip() {
     let before = logical_checksum(&conn).unwrap();
 
     let tx = conn.transaction().unwrap();
-    let out = insert_scan(&tx, &record("L0:STRAIN", "abc", &seg, &ts)).unwrap();
+    let out = insert_scan(&tx, &record("AV1:STRAIN", "abc", &seg, &ts)).unwrap();
     assert_eq!(out, InsertOutcome::Skipped { scan_id: 1 });
     tx.commit().unwrap();
     assert_eq!(before, logical_checksum(&conn).unwrap());
@@ -77,7 +77,7 @@ fn insert_query_round_trip_and_skip() {
         // at 1.4e9 s, 2.4e-7 s).
         assert!((r.t_peak - t.t_peak).abs() < 5e-7);
         assert_eq!(r.snr, t.snr);
-        assert_eq!(r.channel, "L0:STRAIN");
+        assert_eq!(r.channel, "AV1:STRAIN");
     }
     assert_eq!(rows[3].q, None);
     assert!(rows[3].to_trigger().q.is_nan());

@@ -172,7 +172,9 @@ struct FamilyJson<'a> {
 
 fn print_families(conn: &Connection, format: Format) -> Result<ExitCode> {
     let fams = families::list_families(conn)?;
-    // Flag families whose latest Bayesian block rate differs from the run's median.
+    // Flag families whose latest Bayesian block rate differs from the run's
+    // median: an exact two-sided Poisson test at level 1 − CL, 10% at the
+    // default CL 0.9 (rates::RateSeries::latest_differs).
     let changed: Vec<i64> = match rates::rates(conn, &RateParams::default()) {
         Ok(r) => r
             .series

@@ -7,7 +7,7 @@ use super::lag::{lag_summary, LagSummary};
 use super::veto::{veto_report, VetoParams, VetoReport};
 use super::{
     best_per_set, better, witness_table, AuxChannel, AuxTrigger, Grid, TargetSet, TargetTrigger,
-    WitnessStat,
+    WitnessStat, DEFAULT_SLIDES, DEFAULT_WITNESS_FALSE_ALARM,
 };
 use crate::catalogue::from_ns;
 use crate::segments::{Segment, SegmentList};
@@ -24,8 +24,14 @@ pub struct WitnessParams {
     pub grid: Grid,
     /// Only target triggers with `snr ≥` this (default: all).
     pub target_min_snr: Option<f64>,
-    /// Bins of the lag histogram over `[−w, w]` (default 21).
+    /// Bins of the lag histogram (default 21).
     pub lag_bins: usize,
+    /// Time slides per (channel, set) for the background (default
+    /// [`DEFAULT_SLIDES`]; 0 = Bonferroni over the grid).
+    pub slides: usize,
+    /// A row is beyond chance when its false-alarm probability over all
+    /// channels compared is below this (default 0.01).
+    pub false_alarm: f64,
 }
 
 impl Default for WitnessParams {
@@ -35,7 +41,26 @@ impl Default for WitnessParams {
             grid: Grid::default(),
             target_min_snr: None,
             lag_bins: 21,
+            slides: DEFAULT_SLIDES,
+            false_alarm: DEFAULT_WITNESS_FALSE_ALARM,
         }
+    }
+}
+
+impl WitnessParams {
+    /// Validate the parameters.
+    ///
+    /// # Errors
+    /// A one-line message naming the offending field.
+    pub fn check(&self) -> Result<()> {
+        self.grid.check()?;
+        if !(self.false_alarm > 0.0 && self.false_alarm < 1.0) {
+            bail!("false_alarm: {} must lie in (0, 1)", self.false_alarm);
+        }
+        if self.lag_bins == 0 {
+            bail!("lag_bins must be at least 1");
+        }
+        Ok(())
     }
 }
 
@@ -46,8 +71,10 @@ pub struct WitnessReport {
     pub run_id: i64,
     /// Parameters used.
     pub params: WitnessParams,
-    /// Best (threshold, window) for each (target set, channel), sorted by
-    /// target set (all first, then family id) and significance, descending.
+    /// Lag convention of the lag summaries.
+    pub lag_definition: String,
+    /// Best cell for each (target set, channel), sorted by target set (all
+    /// first, then family id) and by [`better`], best first.
     pub best: Vec<WitnessStat>,
     /// Lag/frequency summary of the best (channel, threshold, window) of
     /// each target set.
@@ -137,7 +164,8 @@ pub fn load_aux(conn: &Connection) -> Result<Vec<AuxChannel>> {
         .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
         .collect::<rusqlite::Result<_>>()?;
     let mut st = conn.prepare(
-        "SELECT t_peak_ns, snr, f_peak_hz FROM triggers WHERE channel_id = ?1 ORDER BY t_peak_ns",
+        "SELECT t_peak_ns, t_start_ns, t_end_ns, snr, f_peak_hz FROM triggers \
+         WHERE channel_id = ?1 ORDER BY t_peak_ns",
     )?;
     let mut out = Vec::with_capacity(chans.len());
     for (id, name) in chans {
@@ -145,8 +173,10 @@ pub fn load_aux(conn: &Connection) -> Result<Vec<AuxChannel>> {
             .query_map([id], |r| {
                 Ok(AuxTrigger {
                     t_peak: from_ns(r.get(0)?),
-                    snr: r.get(1)?,
-                    f_peak: r.get(2)?,
+                    t_start: from_ns(r.get(1)?),
+                    t_end: from_ns(r.get(2)?),
+                    snr: r.get(3)?,
+                    f_peak: r.get(4)?,
                 })
             })?
             .collect::<rusqlite::Result<Vec<_>>>()?;
@@ -188,13 +218,14 @@ fn insert_run(tx: &rusqlite::Transaction, kind: &str, params_json: &str) -> Resu
 }
 
 /// Compute the witness table (all target triggers and every family, or one
-/// family), the lag/frequency summary of each set's best combination, and
-/// store everything under a new `witness_runs` row in one transaction.
+/// family) with its background, the lag/frequency summary of each set's
+/// best row, and store everything under a new `witness_runs` row in one
+/// transaction.
 ///
 /// # Errors
 /// Invalid parameters, an unknown family, no target channel, SQL errors.
 pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<WitnessReport> {
-    params.grid.check()?;
+    params.check()?;
     let targets = load_targets(conn, params.target_min_snr)?;
     let aux = load_aux(conn)?;
     let warnings = coverage_warnings(&targets, &aux);
@@ -214,7 +245,14 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
             .chain(targets.family_ids().into_iter().map(Some))
             .collect(),
     };
-    let rows = witness_table(&targets, &sets, &aux, &params.grid);
+    let rows = witness_table(
+        &targets,
+        &sets,
+        &aux,
+        &params.grid,
+        params.slides,
+        params.false_alarm,
+    );
     // Best row per (set, channel) in one pass, then sorted per set.
     let mut best_of: std::collections::HashMap<(Option<i64>, i64), &WitnessStat> =
         std::collections::HashMap::new();
@@ -240,7 +278,7 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     }
     let lags: Vec<LagSummary> = best_per_set(&rows, &sets)
         .into_iter()
-        .filter(|b| b.n_coinc > 0)
+        .filter(|b| b.targets_hit > 0)
         .map(|b| {
             let ch = aux
                 .iter()
@@ -250,7 +288,7 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
                 &targets,
                 b.family_id,
                 ch,
-                b.snr_threshold,
+                b.aux_min_snr,
                 b.window_s,
                 params.lag_bins,
             )
@@ -260,49 +298,69 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     let run_id = insert_run(&tx, "witnesses", &serde_json::to_string(params)?)?;
     {
         let mut st = tx.prepare_cached(
-            "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, snr_threshold, \
-             window_s, n_target, n_coinc, n_aux, n_aux_used, vetoed_s, analysed_s, deadtime, \
-             efficiency, use_percentage, expected, significance, efficiency_over_deadtime) \
-             VALUES (?1,?2,?3,?4,?5,?6,?7,?8,?9,?10,?11,?12,?13,?14,?15,?16,?17)",
+            "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, \
+             window_s, targets, targets_hit, aux_triggers, aux_hit, covered_s, analysed_s, \
+             deadtime, efficiency, aux_hit_fraction, lift, targets_hit_chance, aux_hit_chance, \
+             target_clumping, aux_clumping, chance_p, chance_p_log10, chance_basis, slides, \
+             slide_p, false_alarm, false_alarm_basis, false_alarm_any, channels_compared, \
+             beyond_chance) \
+             VALUES (?1,?2,?3,?4,?5,?6,?7,?8,?9,?10,?11,?12,?13,?14,?15,?16,?17,?18,?19,?20,\
+             ?21,?22,?23,?24,?25,?26,?27,?28,?29)",
         )?;
         for r in &rows {
             st.execute(params![
                 run_id,
                 r.family_id,
                 r.aux_channel_id,
-                r.snr_threshold,
+                r.aux_min_snr,
                 r.window_s,
-                r.n_target as i64,
-                r.n_coinc as i64,
-                r.n_aux as i64,
-                r.n_aux_used as i64,
-                r.vetoed_s,
+                r.targets as i64,
+                r.targets_hit as i64,
+                r.aux_triggers as i64,
+                r.aux_hit as i64,
+                r.covered_s,
                 r.analysed_s,
                 r.deadtime,
                 r.efficiency,
-                r.use_percentage,
-                r.expected,
-                r.significance,
-                r.efficiency_over_deadtime,
+                r.aux_hit_fraction,
+                r.lift,
+                r.targets_hit_chance,
+                r.aux_hit_chance,
+                r.target_clumping,
+                r.aux_clumping,
+                r.chance_p,
+                r.chance_p_log10,
+                r.chance_basis.as_str(),
+                r.slides,
+                r.slide_p,
+                r.false_alarm,
+                r.false_alarm_basis.as_str(),
+                r.false_alarm_any,
+                r.channels_compared,
+                r.beyond_chance,
             ])?;
         }
         let mut st = tx.prepare_cached(
-            "INSERT INTO witness_lags (run_id, family_id, aux_channel_id, snr_threshold, \
-             window_s, lag_hist_json, n_pairs, peak_lag_s, median_lag_s, freq_relation, \
+            "INSERT INTO witness_lags (run_id, family_id, aux_channel_id, aux_min_snr, \
+             window_s, lag_hist_json, pairs, lag_peak_s, lag_median_s, freq_relation, \
              freq_ratio_median) VALUES (?1,?2,?3,?4,?5,?6,?7,?8,?9,?10,?11)",
         )?;
         for l in &lags {
-            let hist = serde_json::json!({ "edges_s": l.edges_s, "counts": l.counts });
+            let hist = serde_json::json!({
+                "lag": super::lag::LAG_DEFINITION,
+                "edges_s": l.edges_s,
+                "counts": l.counts,
+            });
             st.execute(params![
                 run_id,
                 l.family_id,
                 l.aux_channel_id,
-                l.snr_threshold,
+                l.aux_min_snr,
                 l.window_s,
                 hist.to_string(),
-                l.n_pairs as i64,
-                l.peak_lag_s,
-                l.median_lag_s,
+                l.pairs as i64,
+                l.lag_peak_s,
+                l.lag_median_s,
                 l.freq_relation,
                 l.freq_ratio_median,
             ])?;
@@ -312,6 +370,7 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     Ok(WitnessReport {
         run_id,
         params: params.clone(),
+        lag_definition: super::lag::LAG_DEFINITION.to_string(),
         best,
         lags,
         rows,
@@ -319,10 +378,11 @@ pub fn run_witnesses(conn: &mut Connection, params: &WitnessParams) -> Result<Wi
     })
 }
 
-/// Run the hierarchical veto rounds (mode `all`, and per family when
+/// Run the veto rounds (mode `all`, and per family when
 /// `params.per_family`), with the safety check when `injections` \[GPS s\]
-/// are given, and store the rounds under a new `witness_runs` row in one
-/// transaction (the report's `run_id` names the row).
+/// are given, consolidate one proposal per channel, and store rounds and
+/// proposals under a new `witness_runs` row in one transaction (the
+/// report's `run_id` names the row).
 ///
 /// # Errors
 /// Invalid parameters, no target channel, SQL errors.
@@ -343,11 +403,13 @@ pub fn run_vetoes(
     {
         let mut st = tx.prepare_cached(
             "INSERT INTO veto_rounds (run_id, mode, family_id, round, aux_channel_id, \
-             snr_threshold, window_s, n_target, n_coinc, efficiency, deadtime, use_percentage, \
-             expected, significance, vetoed_s, cum_efficiency, cum_deadtime, n_inj, \
-             n_inj_vetoed, inj_expected, safety_p, safety_p_binomial, safe, proposed) \
+             aux_min_snr, window_s, targets, targets_hit, efficiency, deadtime, \
+             aux_hit_fraction, lift, chance_p, chance_p_log10, chance_basis, false_alarm, \
+             false_alarm_basis, channels_compared, covered_s, total_efficiency, total_deadtime, \
+             injections, injections_vetoed, injections_chance, safety_binomial_p, \
+             safety_poisson_p, safety) \
              VALUES (?1,?2,?3,?4,?5,?6,?7,?8,?9,?10,?11,?12,?13,?14,?15,?16,?17,?18,?19,?20,\
-             ?21,?22,?23,?24)",
+             ?21,?22,?23,?24,?25,?26,?27,?28)",
         )?;
         for r in &report.rounds {
             st.execute(params![
@@ -356,25 +418,58 @@ pub fn run_vetoes(
                 r.family_id,
                 r.round,
                 r.aux_channel_id,
-                r.snr_threshold,
+                r.aux_min_snr,
                 r.window_s,
-                r.n_target as i64,
-                r.n_coinc as i64,
+                r.targets as i64,
+                r.targets_hit as i64,
                 r.efficiency,
                 r.deadtime,
-                r.use_percentage,
-                r.expected,
-                r.significance,
-                r.vetoed_s,
-                r.cum_efficiency,
-                r.cum_deadtime,
-                r.n_inj.map(|x| x as i64),
-                r.n_inj_vetoed.map(|x| x as i64),
-                r.inj_expected,
-                r.safety_p,
-                r.safety_p_binomial,
-                r.safe,
-                r.proposed,
+                r.aux_hit_fraction,
+                r.lift,
+                r.chance_p,
+                r.chance_p_log10,
+                r.chance_basis.as_str(),
+                r.false_alarm,
+                r.false_alarm_basis.as_str(),
+                r.channels_compared,
+                r.covered_s,
+                r.total_efficiency,
+                r.total_deadtime,
+                r.injections.map(|x| x as i64),
+                r.injections_vetoed.map(|x| x as i64),
+                r.injections_chance,
+                r.safety_binomial_p,
+                r.safety_poisson_p,
+                r.safety.as_str(),
+            ])?;
+        }
+        let mut st = tx.prepare_cached(
+            "INSERT INTO veto_proposals (run_id, aux_channel_id, rounds, round_count, \
+             segment_count, covered_s, analysed_s, deadtime, targets, targets_vetoed, \
+             efficiency, injections, injections_vetoed, injections_chance, safety_binomial_p, \
+             safety_poisson_p, safety, state) \
+             VALUES (?1,?2,?3,?4,?5,?6,?7,?8,?9,?10,?11,?12,?13,?14,?15,?16,?17,?18)",
+        )?;
+        for p in &report.proposals {
+            st.execute(params![
+                run_id,
+                p.aux_channel_id,
+                p.rounds,
+                p.round_count,
+                p.segment_count as i64,
+                p.covered_s,
+                p.analysed_s,
+                p.deadtime,
+                p.targets as i64,
+                p.targets_vetoed as i64,
+                p.efficiency,
+                p.injections.map(|x| x as i64),
+                p.injections_vetoed.map(|x| x as i64),
+                p.injections_chance,
+                p.safety_binomial_p,
+                p.safety_poisson_p,
+                p.safety.as_str(),
+                p.state.as_str(),
             ])?;
         }
     }

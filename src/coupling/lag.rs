@@ -1,10 +1,13 @@
 //! Lag histogram and frequency relation for one (target set, aux channel,
 //! threshold, window).
 //!
-//! For every target trigger coincident with a used aux trigger (nearest aux
-//! trigger within ±w), the lag `t_target − t_aux` \[s\] goes into a histogram
-//! over `[−w, w]`, and the ratio `f_aux / f_target` of peak frequencies is
-//! collected. A consistent lag indicates a propagation delay; the median
+//! For every target trigger inside the window of a used aux trigger (the
+//! aux trigger's extent widened by `w`; of several, the one with the
+//! nearest peak), the lag **`t_aux − t_target`** of peak times \[s\]
+//! (negative when the aux trigger comes first; the one convention of the
+//! whole tool) goes into a histogram over `[−r, r]`, `r` the larger of `w`
+//! and the largest lag, and the ratio `f_aux / f_target` of peak
+//! frequencies is collected. A consistent lag indicates a propagation delay; the median
 //! frequency ratio is classified as:
 //! - `same`: within 10% of 1;
 //! - `harmonic`: within 5% of k or 1/k for k = 2, 3, 4;
@@ -13,9 +16,12 @@
 //!
 //! These tolerances are our own rule of thumb, not from a publication.
 
-use super::coinc::nearest_offsets;
+use super::coinc::distance_to;
 use super::{AuxChannel, TargetSet};
 use serde::{Deserialize, Serialize};
+
+/// The lag convention of the whole tool, written beside lag figures.
+pub const LAG_DEFINITION: &str = "t_aux - t_target (negative: the aux trigger comes first)";
 
 /// Lag histogram and frequency relation of coincident pairs.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -25,21 +31,22 @@ pub struct LagSummary {
     /// Aux channel id.
     pub aux_channel_id: i64,
     /// Aux channel name.
-    pub channel: String,
-    /// Aux SNR threshold.
-    pub snr_threshold: f64,
-    /// Window half-width \[s\].
+    pub aux_channel: String,
+    /// Aux triggers with `snr ≥` this are used.
+    pub aux_min_snr: f64,
+    /// Padding around the aux extents \[s\].
     pub window_s: f64,
-    /// Histogram bin edges over `[−w, w]` \[s\] (`counts.len() + 1` values).
+    /// Histogram bin edges \[s\] (`counts.len() + 1` values, symmetric).
     pub edges_s: Vec<f64>,
-    /// Pairs per bin of `t_target − t_aux`.
+    /// Pairs per bin of `t_aux − t_target`.
     pub counts: Vec<u64>,
-    /// Number of coincident pairs.
-    pub n_pairs: u64,
-    /// Centre of the fullest bin \[s\] (`None` without pairs).
-    pub peak_lag_s: Option<f64>,
-    /// Median of `t_target − t_aux` \[s\].
-    pub median_lag_s: Option<f64>,
+    /// Number of pairs.
+    pub pairs: u64,
+    /// Centre of the fullest bin of `t_aux − t_target` \[s\] (`None`
+    /// without pairs).
+    pub lag_peak_s: Option<f64>,
+    /// Median of `t_aux − t_target` \[s\].
+    pub lag_median_s: Option<f64>,
     /// Median of `f_aux / f_target`.
     pub freq_ratio_median: Option<f64>,
     /// `same`, `harmonic`, `low_frequency_driver`, `other` or `none`.
@@ -70,9 +77,9 @@ pub fn classify_freq_ratio(r: Option<f64>) -> &'static str {
     }
 }
 
-/// Lag histogram (`n_bins` bins over `[−w, w]`; an odd number keeps 0 in a
-/// bin centre) and frequency relation for `family` of `targets` against
-/// `aux` at threshold `rho` and window `w` \[s\].
+/// Lag histogram (`n_bins` bins; an odd number keeps 0 in a bin centre)
+/// and frequency relation for `family` of `targets` against `aux` at
+/// threshold `rho` and padding `w` \[s\].
 pub fn lag_summary(
     targets: &TargetSet,
     family: Option<i64>,
@@ -83,37 +90,52 @@ pub fn lag_summary(
 ) -> LagSummary {
     let n_bins = n_bins.max(1);
     let common = targets.analysed.intersection(&aux.analysed);
-    let members: Vec<(f64, f64)> = targets
+    // Used aux triggers, sorted by peak, and the largest peak-to-edge span.
+    let used: Vec<_> = aux
+        .triggers
+        .iter()
+        .filter(|a| {
+            a.snr >= rho && distance_to(&common, a.t_start.min(a.t_peak), a.t_end.max(a.t_peak)) < w
+        })
+        .collect();
+    let span = used
+        .iter()
+        .map(|a| (a.t_peak - a.t_start).max(a.t_end - a.t_peak).max(0.0))
+        .fold(0.0, f64::max);
+    let (mut lags, mut ratios) = (Vec::new(), Vec::new());
+    for t in targets
         .triggers
         .iter()
         .filter(|t| (family.is_none() || t.family == family) && common.contains(t.t_peak))
-        .map(|t| (t.t_peak, t.f_peak))
-        .collect();
-    let t_times: Vec<f64> = members.iter().map(|m| m.0).collect();
-    let used: Vec<(f64, f64)> = aux
-        .triggers
-        .iter()
-        .filter(|a| a.snr >= rho && common.contains(a.t_peak))
-        .map(|a| (a.t_peak, a.f_peak))
-        .collect();
-    let a_times: Vec<f64> = used.iter().map(|u| u.0).collect();
-    let width = 2.0 * w / n_bins as f64;
-    let edges_s: Vec<f64> = (0..=n_bins).map(|i| -w + i as f64 * width).collect();
-    let mut counts = vec![0u64; n_bins];
-    let (mut lags, mut ratios) = (Vec::new(), Vec::new());
-    for (m, off) in members.iter().zip(nearest_offsets(&t_times, &a_times)) {
-        let Some((j, lag)) = off else { continue };
-        if lag.abs() > w {
-            continue;
-        }
-        let bin = (((lag + w) / width).floor() as usize).min(n_bins - 1);
-        counts[bin] += 1;
-        lags.push(lag);
-        if m.1 > 0.0 {
-            ratios.push(used[j].1 / m.1);
+    {
+        let lo = used.partition_point(|a| a.t_peak < t.t_peak - w - span);
+        let best = used[lo..]
+            .iter()
+            .take_while(|a| a.t_peak <= t.t_peak + w + span)
+            .filter(|a| {
+                a.t_start.min(a.t_peak) - w <= t.t_peak && t.t_peak <= a.t_end.max(a.t_peak) + w
+            })
+            .min_by(|a, b| {
+                (a.t_peak - t.t_peak)
+                    .abs()
+                    .total_cmp(&(b.t_peak - t.t_peak).abs())
+            });
+        if let Some(a) = best {
+            lags.push(a.t_peak - t.t_peak);
+            if t.f_peak > 0.0 {
+                ratios.push(a.f_peak / t.f_peak);
+            }
         }
     }
-    let peak_lag_s = if lags.is_empty() {
+    let range = lags.iter().map(|l| l.abs()).fold(w, f64::max);
+    let width = 2.0 * range / n_bins as f64;
+    let edges_s: Vec<f64> = (0..=n_bins).map(|i| -range + i as f64 * width).collect();
+    let mut counts = vec![0u64; n_bins];
+    for &lag in &lags {
+        let bin = (((lag + range) / width).floor().max(0.0) as usize).min(n_bins - 1);
+        counts[bin] += 1;
+    }
+    let lag_peak_s = if lags.is_empty() {
         None
     } else {
         let (i, _) = counts
@@ -127,14 +149,14 @@ pub fn lag_summary(
     LagSummary {
         family_id: family,
         aux_channel_id: aux.id,
-        channel: aux.name.clone(),
-        snr_threshold: rho,
+        aux_channel: aux.name.clone(),
+        aux_min_snr: rho,
         window_s: w,
         edges_s,
         counts,
-        n_pairs: lags.len() as u64,
-        peak_lag_s,
-        median_lag_s: median(&lags),
+        pairs: lags.len() as u64,
+        lag_peak_s,
+        lag_median_s: median(&lags),
         freq_ratio_median,
         freq_relation: classify_freq_ratio(freq_ratio_median).to_string(),
     }

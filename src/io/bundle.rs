@@ -4,7 +4,7 @@
 //! description = "free text for humans (optional, not used by the tool)"
 //!
 //! [[channel]]
-//! name = "X1:STRAIN"       # free-form, unique in the bundle
+//! name = "AV1:STRAIN"      # free-form, unique in the bundle
 //! file = "strain.npy"      # relative to the bundle directory
 //! rate = 4096              # samples per second, > 0
 //! start = 1400000000.0     # GPS time of the first sample [s]

@@ -100,7 +100,7 @@ pub fn to_table(r: &RateReport) -> String {
             s.mean_rate_per_hour,
             s.median_rate_per_hour,
             if s.latest_differs {
-                "  [latest block differs from median]"
+                "  [latest block differs from median: two-sided exact test]"
             } else {
                 ""
             }

@@ -207,7 +207,13 @@ pub struct RateSeries {
     pub change_times_gps: Vec<f64>,
     /// Live-time-weighted median of the block rates \[1/h\].
     pub median_rate_per_hour: f64,
-    /// The latest block's confidence interval excludes the median rate.
+    /// The latest block's rate differs from the median block rate by an
+    /// exact two-sided Poisson test at level `1 − cl` (equal tails; 10% at
+    /// the default `cl` 0.9): the median lies outside the latest block's
+    /// central interval made of one-sided limits at `(1 + cl) / 2`
+    /// (Gehrels 1986). Shown as `rate_changed` by `families`. (The block
+    /// limits shown beside it are one-sided at `cl` each, so together an
+    /// interval of `2 cl − 1`, 80% at the default.)
     pub latest_differs: bool,
 }
 
@@ -426,7 +432,9 @@ fn bin_cells_exact(times: &[f64]) -> (Vec<f64>, Vec<f64>) {
 }
 
 /// Block rates with limits, the live-weighted median block rate and whether
-/// the latest block's interval excludes that median.
+/// the latest block differs from it (see [`RateSeries::latest_differs`]:
+/// an exact two-sided test at level `1 − cl`, not the pair of one-sided
+/// limits at `cl` shown in the tables).
 pub fn summarise_blocks(blocks: &[Block], cache: &mut LimitCache) -> (Vec<BlockRate>, f64, bool) {
     let rates: Vec<BlockRate> = blocks
         .iter()
@@ -454,9 +462,12 @@ pub fn summarise_blocks(blocks: &[Block], cache: &mut LimitCache) -> (Vec<BlockR
             .map(|r| (r.rate_per_hour, r.live_s))
             .collect::<Vec<_>>(),
     );
-    let differs = match rates.last() {
-        Some(last) if rates.len() > 1 => {
-            median < last.lower_per_hour || median > last.upper_per_hour
+    let differs = match (rates.last(), blocks.last()) {
+        (Some(last), Some(b)) if rates.len() > 1 && last.live_s > 0.0 => {
+            // Central interval at 1 − (1 − cl): one-sided limits at (1 + cl)/2.
+            let lim = poisson::poisson_limits(b.count, 0.5 * (1.0 + cache.cl()));
+            let f = HOUR_S / last.live_s;
+            median < lim.lower * f || median > lim.upper * f
         }
         _ => false,
     };

@@ -96,6 +96,11 @@ impl LimitCache {
         }
     }
 
+    /// The one-sided confidence level of the cached limits.
+    pub fn cl(&self) -> f64 {
+        self.cl
+    }
+
     /// Limits for `n` events (computed once, then cached).
     pub fn get(&mut self, n: u64) -> PoissonLimits {
         let i = n as usize;

@@ -91,24 +91,35 @@ pub struct WitnessRow {
     pub family_id: Option<i64>,
     /// Aux channel name.
     pub aux_channel: String,
-    /// Aux SNR threshold.
-    pub snr_threshold: f64,
-    /// Half window \[s\].
+    /// Aux triggers with SNR at least this are used.
+    pub aux_min_snr: f64,
+    /// Padding around each aux trigger's extent \[s\].
     pub window_s: f64,
     /// Target triggers.
-    pub n_target: i64,
-    /// Coincident target triggers.
-    pub n_coinc: i64,
-    /// Expected coincidences by chance.
-    pub expected: f64,
-    /// −log10 Poisson probability.
-    pub significance: f64,
-    /// Fraction of target triggers vetoed.
+    pub targets: i64,
+    /// Target triggers inside a window.
+    pub targets_hit: i64,
+    /// Targets hit expected by chance.
+    pub targets_hit_chance: f64,
+    /// Fraction of target triggers hit.
     pub efficiency: f64,
-    /// Fraction of analysed time vetoed.
+    /// Fraction of analysed time inside the windows.
     pub deadtime: f64,
-    /// Fraction of aux triggers with a coincidence.
-    pub use_percentage: f64,
+    /// Fraction of aux triggers that hit a target trigger.
+    pub aux_hit_fraction: f64,
+    /// Chance probability of the cell's count.
+    pub chance_p: f64,
+    /// `targets_poisson`, `aux_binomial` or `slides`.
+    pub chance_basis: String,
+    /// False-alarm probability of the channel's best cell (None for runs
+    /// from before migration 0006_coupling_words).
+    pub false_alarm: Option<f64>,
+    /// `slides`, `slides_tail` or `bonferroni`.
+    pub false_alarm_basis: Option<String>,
+    /// False-alarm probability over all channels compared.
+    pub false_alarm_any: Option<f64>,
+    /// Marked beyond chance.
+    pub beyond_chance: Option<bool>,
 }
 
 /// Lag histogram of one (family, aux channel) pair.
@@ -126,7 +137,7 @@ pub struct LagRow {
     pub freq_relation: Option<String>,
 }
 
-/// One veto round (latest witness run).
+/// One veto round (latest veto run).
 #[derive(Debug, Clone, Serialize)]
 pub struct VetoRow {
     /// `all` or `family`.
@@ -138,31 +149,64 @@ pub struct VetoRow {
     /// Aux channel name.
     pub aux_channel: String,
     /// Aux SNR threshold.
-    pub snr_threshold: f64,
-    /// Half window \[s\].
+    pub aux_min_snr: f64,
+    /// Padding \[s\].
     pub window_s: f64,
     /// Efficiency of this round.
     pub efficiency: f64,
     /// Deadtime of this round.
     pub deadtime: f64,
-    /// Use percentage.
-    pub use_percentage: f64,
-    /// Significance.
-    pub significance: f64,
+    /// Fraction of aux triggers that hit a target trigger.
+    pub aux_hit_fraction: f64,
+    /// Chance probability of the picked cell.
+    pub chance_p: f64,
+    /// False-alarm probability over channels and cells (None before migration 0006_coupling_words).
+    pub false_alarm: Option<f64>,
     /// Cumulative efficiency.
-    pub cum_efficiency: f64,
+    pub total_efficiency: f64,
     /// Cumulative deadtime.
-    pub cum_deadtime: f64,
+    pub total_deadtime: f64,
+    /// Injections in the round's analysed time (if checked).
+    pub injections: Option<i64>,
     /// Injections vetoed (if checked).
-    pub n_inj_vetoed: Option<i64>,
+    pub injections_vetoed: Option<i64>,
     /// Injections expected vetoed by chance.
-    pub inj_expected: Option<f64>,
-    /// Safety probability.
-    pub safety_p: Option<f64>,
-    /// Judged safe.
-    pub safe: bool,
-    /// Proposed to the team.
-    pub proposed: bool,
+    pub injections_chance: Option<f64>,
+    /// Binomial safety probability (decides).
+    pub safety_binomial_p: Option<f64>,
+    /// Poisson safety probability (reference).
+    pub safety_poisson_p: Option<f64>,
+    /// `safe`, `unsafe` or `unchecked`.
+    pub safety: String,
+}
+
+/// One consolidated proposal (latest veto run).
+#[derive(Debug, Clone, Serialize)]
+pub struct ProposalRow {
+    /// Aux channel name.
+    pub aux_channel: String,
+    /// The rounds merged.
+    pub rounds: String,
+    /// Combined deadtime (fraction).
+    pub deadtime: f64,
+    /// Combined vetoed time \[s\].
+    pub covered_s: f64,
+    /// Fraction of all target triggers vetoed.
+    pub efficiency: f64,
+    /// Injections in the analysed time (if checked).
+    pub injections: Option<i64>,
+    /// Of those, vetoed.
+    pub injections_vetoed: Option<i64>,
+    /// Expected vetoed by chance.
+    pub injections_chance: Option<f64>,
+    /// Binomial safety probability (decides).
+    pub safety_binomial_p: Option<f64>,
+    /// Poisson safety probability (reference).
+    pub safety_poisson_p: Option<f64>,
+    /// `safe`, `unsafe` or `unchecked`.
+    pub safety: String,
+    /// `proposed`, `unchecked` or `unsafe`.
+    pub state: String,
 }
 
 /// Everything the report shows.
@@ -194,6 +238,8 @@ pub struct ReportData {
     pub lags: Vec<LagRow>,
     /// Veto rounds.
     pub vetoes: Vec<VetoRow>,
+    /// One proposal per aux channel (latest veto run).
+    pub proposals: Vec<ProposalRow>,
     /// Whether the coupling tables exist.
     pub has_coupling: bool,
 }
@@ -322,13 +368,15 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         "witness_stats",
         "witness_lags",
         "veto_rounds",
+        "veto_proposals",
     ]
     .iter()
     .map(|t| table_exists(conn, t))
     .collect::<Result<Vec<_>>>()?
     .into_iter()
     .all(|x| x);
-    let (mut witnesses, mut lags, mut vetoes) = (Vec::new(), Vec::new(), Vec::new());
+    let (mut witnesses, mut lags, mut vetoes, mut proposals) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new());
     if has_coupling {
         // `witnesses` and `vetoes` store separate runs: show the latest of each.
         let latest = |kind: &str| -> Result<Option<i64>> {
@@ -344,6 +392,7 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         }
         if let Some(run) = latest("vetoes")? {
             vetoes = read_vetoes(conn, run)?;
+            proposals = read_proposals(conn, run)?;
         }
     }
     Ok(ReportData {
@@ -360,36 +409,43 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         witnesses,
         lags,
         vetoes,
+        proposals,
         has_coupling,
     })
 }
 
 /// Witness rows of `run`, best first within each target set in the order
-/// of [`crate::coupling::better`] (significance, efficiency over deadtime,
-/// deadtime, channel, threshold, window), so a channel's first row is the
-/// one `glitchbook witnesses` lists as its best.
+/// of [`crate::coupling::better`] (false-alarm probability, chance
+/// probability, lift, deadtime, channel, threshold, window), so a channel's
+/// first row is the one `glitchbook witnesses` lists as its best.
 fn read_witnesses(conn: &Connection, run: i64) -> Result<Vec<WitnessRow>> {
     let mut stmt = conn.prepare(
-        "SELECT w.family_id, coalesce(c.name, 'channel ' || w.aux_channel_id), w.snr_threshold, w.window_s, \
-         w.n_target, w.n_coinc, w.expected, w.significance, w.efficiency, w.deadtime, w.use_percentage \
+        "SELECT w.family_id, coalesce(c.name, 'channel ' || w.aux_channel_id), w.aux_min_snr, w.window_s, \
+         w.targets, w.targets_hit, w.targets_hit_chance, w.efficiency, w.deadtime, w.aux_hit_fraction, \
+         w.chance_p, w.chance_basis, w.false_alarm, w.false_alarm_basis, w.false_alarm_any, w.beyond_chance \
          FROM witness_stats w LEFT JOIN channels c ON c.id = w.aux_channel_id WHERE w.run_id = ?1 \
-         ORDER BY w.family_id, w.significance DESC, w.efficiency_over_deadtime DESC, w.deadtime, \
-         2, w.snr_threshold DESC, w.window_s",
+         ORDER BY w.family_id, coalesce(w.false_alarm, 1.0), w.chance_p_log10, w.lift DESC, w.deadtime, \
+         2, w.aux_min_snr DESC, w.window_s",
     )?;
     let rows = stmt
         .query_map(params![run], |r| {
             Ok(WitnessRow {
                 family_id: r.get(0)?,
                 aux_channel: r.get(1)?,
-                snr_threshold: r.get(2)?,
+                aux_min_snr: r.get(2)?,
                 window_s: r.get(3)?,
-                n_target: r.get(4)?,
-                n_coinc: r.get(5)?,
-                expected: r.get(6)?,
-                significance: r.get(7)?,
-                efficiency: r.get(8)?,
-                deadtime: r.get(9)?,
-                use_percentage: r.get(10)?,
+                targets: r.get(4)?,
+                targets_hit: r.get(5)?,
+                targets_hit_chance: r.get(6)?,
+                efficiency: r.get(7)?,
+                deadtime: r.get(8)?,
+                aux_hit_fraction: r.get(9)?,
+                chance_p: r.get(10)?,
+                chance_basis: r.get(11)?,
+                false_alarm: r.get(12)?,
+                false_alarm_basis: r.get(13)?,
+                false_alarm_any: r.get(14)?,
+                beyond_chance: r.get::<_, Option<i64>>(15)?.map(|b| b != 0),
             })
         })?
         .collect::<rusqlite::Result<Vec<_>>>()
@@ -435,9 +491,10 @@ fn read_lags(conn: &Connection, run: i64) -> Result<Vec<LagRow>> {
 
 fn read_vetoes(conn: &Connection, run: i64) -> Result<Vec<VetoRow>> {
     let mut stmt = conn.prepare(
-        "SELECT v.mode, v.family_id, v.round, coalesce(c.name, 'channel ' || v.aux_channel_id), v.snr_threshold, \
-         v.window_s, v.efficiency, v.deadtime, v.use_percentage, v.significance, v.cum_efficiency, v.cum_deadtime, \
-         v.n_inj_vetoed, v.inj_expected, v.safety_p, coalesce(v.safe, 0), coalesce(v.proposed, 0) \
+        "SELECT v.mode, v.family_id, v.round, coalesce(c.name, 'channel ' || v.aux_channel_id), v.aux_min_snr, \
+         v.window_s, v.efficiency, v.deadtime, v.aux_hit_fraction, v.chance_p, v.false_alarm, \
+         v.total_efficiency, v.total_deadtime, v.injections, v.injections_vetoed, v.injections_chance, \
+         v.safety_binomial_p, v.safety_poisson_p, v.safety \
          FROM veto_rounds v LEFT JOIN channels c ON c.id = v.aux_channel_id WHERE v.run_id = ?1 \
          ORDER BY v.mode, v.family_id, v.round",
     )?;
@@ -448,22 +505,54 @@ fn read_vetoes(conn: &Connection, run: i64) -> Result<Vec<VetoRow>> {
                 family_id: r.get(1)?,
                 round: r.get(2)?,
                 aux_channel: r.get(3)?,
-                snr_threshold: r.get(4)?,
+                aux_min_snr: r.get(4)?,
                 window_s: r.get(5)?,
                 efficiency: r.get(6)?,
                 deadtime: r.get(7)?,
-                use_percentage: r.get(8)?,
-                significance: r.get(9)?,
-                cum_efficiency: r.get(10)?,
-                cum_deadtime: r.get(11)?,
-                n_inj_vetoed: r.get(12)?,
-                inj_expected: r.get(13)?,
-                safety_p: r.get(14)?,
-                safe: r.get::<_, i64>(15)? != 0,
-                proposed: r.get::<_, i64>(16)? != 0,
+                aux_hit_fraction: r.get(8)?,
+                chance_p: r.get(9)?,
+                false_alarm: r.get(10)?,
+                total_efficiency: r.get(11)?,
+                total_deadtime: r.get(12)?,
+                injections: r.get(13)?,
+                injections_vetoed: r.get(14)?,
+                injections_chance: r.get(15)?,
+                safety_binomial_p: r.get(16)?,
+                safety_poisson_p: r.get(17)?,
+                safety: r.get(18)?,
             })
         })?
         .collect::<rusqlite::Result<Vec<_>>>()
         .context("reading veto_rounds")?;
+    Ok(rows)
+}
+
+fn read_proposals(conn: &Connection, run: i64) -> Result<Vec<ProposalRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT coalesce(c.name, 'channel ' || p.aux_channel_id), p.rounds, p.deadtime, p.covered_s, \
+         p.efficiency, p.injections, p.injections_vetoed, p.injections_chance, p.safety_binomial_p, \
+         p.safety_poisson_p, p.safety, p.state \
+         FROM veto_proposals p LEFT JOIN channels c ON c.id = p.aux_channel_id WHERE p.run_id = ?1 \
+         ORDER BY p.rowid",
+    )?;
+    let rows = stmt
+        .query_map(params![run], |r| {
+            Ok(ProposalRow {
+                aux_channel: r.get(0)?,
+                rounds: r.get(1)?,
+                deadtime: r.get(2)?,
+                covered_s: r.get(3)?,
+                efficiency: r.get(4)?,
+                injections: r.get(5)?,
+                injections_vetoed: r.get(6)?,
+                injections_chance: r.get(7)?,
+                safety_binomial_p: r.get(8)?,
+                safety_poisson_p: r.get(9)?,
+                safety: r.get(10)?,
+                state: r.get(11)?,
+            })
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()
+        .context("reading veto_proposals")?;
     Ok(rows)
 }

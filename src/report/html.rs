@@ -1,6 +1,6 @@
 //! Rendering [`ReportData`] to a static site.
 
-use super::gather::{ExampleTrigger, ReportData, VetoRow, WitnessRow};
+use super::gather::{ExampleTrigger, ProposalRow, ReportData, VetoRow, WitnessRow};
 use super::plots::{self, family_colour, TfPoint};
 use super::VETO_CAUTION;
 use crate::families::thumbnail::{colour, Z_MAX, Z_MIN};
@@ -75,6 +75,31 @@ fn trigger_table(o: &mut String, rows: &[ExampleTrigger]) {
     o.push_str("</table>\n");
 }
 
+/// A probability for reading: 3 significant digits in exponent form below
+/// 1e-3, else 3 decimals.
+fn prob(p: f64) -> String {
+    if p > 0.0 && p < 1e-3 {
+        format!("{p:.2e}")
+    } else {
+        crate::output::fixed(p, 3)
+    }
+}
+
+fn opt_prob(p: Option<f64>) -> String {
+    p.map(prob).unwrap_or_else(|| "-".into())
+}
+
+/// A safety or proposal state; anything but safe / proposed is flagged.
+fn state_cell(s: &str) -> String {
+    match s {
+        "safe" | "proposed" => html_escape(s),
+        other => format!(
+            "<span class=\"flag\">{}</span>",
+            html_escape(&other.to_uppercase())
+        ),
+    }
+}
+
 /// The best grid setting of each aux channel: `rows` come best first (see
 /// `gather::read_witnesses`), so that is each channel's first row, and the
 /// channels stay in the order of their best rows. The whole grid is one
@@ -89,30 +114,47 @@ fn witness_table(o: &mut String, rows: &[&WitnessRow]) {
     let _ = writeln!(
         o,
         "<p>Each aux channel's best SNR threshold and window ({} of {} grid rows; \
-         every row: <code>glitchbook witnesses --all-rows</code>).</p>",
+         every row: <code>glitchbook witnesses --all-rows</code>). Chance p: probability of \
+         the count by chance; false alarm: of the channel's best cell among its grid (time \
+         slides) and among all channels compared.</p>",
         best.len(),
         rows.len()
     );
     let rows = best;
     o.push_str(
-        "<table><tr><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th><th>target</th><th>coincident</th>\
-         <th>expected</th><th>significance</th><th>efficiency</th><th>deadtime</th><th>use percentage</th></tr>\n",
+        "<table><tr><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th><th>target</th><th>hit</th>\
+         <th>hit by chance</th><th>efficiency</th><th>deadtime</th><th>aux hit fraction</th>\
+         <th>chance p (basis)</th><th>false alarm, this channel</th><th>false alarm, any channel</th>\
+         <th>verdict</th></tr>\n",
     );
     for w in rows {
+        let verdict = match w.beyond_chance {
+            Some(true) => "beyond chance",
+            Some(false) => "consistent with chance",
+            None => "not assessed (old run)",
+        };
         let _ = writeln!(
             o,
-            "<tr><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{}</td><td>{}</td><td>{:.2}</td><td>{:.1}</td>\
-             <td>{:.3}</td><td>{:.2e}</td><td>{:.3}</td></tr>",
+            "<tr><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{}</td><td>{}</td><td>{:.2}</td>\
+             <td>{:.3}</td><td>{:.2e}</td><td>{:.3}</td><td>{} ({})</td><td>{}{}</td><td>{}</td><td>{}</td></tr>",
             html_escape(&w.aux_channel),
-            w.snr_threshold,
+            w.aux_min_snr,
             w.window_s,
-            w.n_target,
-            w.n_coinc,
-            w.expected,
-            w.significance,
+            w.targets,
+            w.targets_hit,
+            w.targets_hit_chance,
             w.efficiency,
             w.deadtime,
-            w.use_percentage
+            w.aux_hit_fraction,
+            prob(w.chance_p),
+            html_escape(&w.chance_basis),
+            opt_prob(w.false_alarm),
+            w.false_alarm_basis
+                .as_deref()
+                .map(|b| format!(" ({})", html_escape(b)))
+                .unwrap_or_default(),
+            opt_prob(w.false_alarm_any),
+            verdict
         );
     }
     o.push_str("</table>\n");
@@ -123,37 +165,61 @@ fn veto_table(o: &mut String, rows: &[&VetoRow]) {
     // Safety first after the setting: it is what decides a proposal.
     o.push_str(
         "<table class=\"veto\"><tr><th>round</th><th>aux channel</th><th>aux SNR ≥</th><th>window ± [s]</th>\
-         <th>safe</th><th>safety p</th><th>injections vetoed / expected</th><th>proposed</th>\
-         <th>efficiency</th><th>deadtime</th><th>use %</th><th>significance</th>\
+         <th>safety</th><th>safety p binomial (Poisson)</th><th>injections vetoed / by chance</th>\
+         <th>efficiency</th><th>deadtime</th><th>aux hit fraction</th><th>chance p</th><th>false alarm</th>\
          <th>cumulative efficiency / deadtime</th></tr>\n",
     );
     let opt = |v: Option<f64>, p: usize| v.map(|x| format!("{x:.p$}")).unwrap_or("-".into());
     for v in rows {
         let _ = writeln!(
             o,
-            "<tr><td>{}</td><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{}</td><td>{}</td><td>{} / {}</td>\
-             <td>{}</td><td>{:.3}</td><td>{:.2e}</td><td>{:.1}</td><td>{:.1}</td><td>{:.3} / {:.2e}</td></tr>",
+            "<tr><td>{}</td><td class=\"t\">{}</td><td>{:.1}</td><td>{}</td><td>{}</td><td>{} ({})</td><td>{} / {}</td>\
+             <td>{:.3}</td><td>{:.2e}</td><td>{:.3}</td><td>{}</td><td>{}</td><td>{:.3} / {:.2e}</td></tr>",
             v.round,
             html_escape(&v.aux_channel),
-            v.snr_threshold,
+            v.aux_min_snr,
             v.window_s,
-            if v.safe { "yes" } else { "<span class=\"flag\">NO</span>" },
-            v.safety_p
-                .map(|x| if x >= 1e-3 {
-                    crate::output::fixed(x, 3)
-                } else {
-                    format!("{x:.2e}")
-                })
-                .unwrap_or("-".into()),
-            v.n_inj_vetoed.map(|n| n.to_string()).unwrap_or("-".into()),
-            opt(v.inj_expected, 2),
-            if v.proposed { "yes" } else { "no" },
+            state_cell(&v.safety),
+            opt_prob(v.safety_binomial_p),
+            opt_prob(v.safety_poisson_p),
+            v.injections_vetoed.map(|n| n.to_string()).unwrap_or("-".into()),
+            opt(v.injections_chance, 2),
             v.efficiency,
             v.deadtime,
-            v.use_percentage,
-            v.significance,
-            v.cum_efficiency,
-            v.cum_deadtime,
+            v.aux_hit_fraction,
+            prob(v.chance_p),
+            opt_prob(v.false_alarm),
+            v.total_efficiency,
+            v.total_deadtime,
+        );
+    }
+    o.push_str("</table>\n");
+}
+
+/// One proposal per aux channel with its combined deadtime and safety.
+fn proposal_table(o: &mut String, rows: &[ProposalRow]) {
+    o.push_str(
+        "<h3>Proposals, one per aux channel</h3>\n<table class=\"veto\"><tr><th>aux channel</th><th>state</th>\
+         <th>combined deadtime</th><th>vetoed time [s]</th><th>efficiency</th>\
+         <th>injections vetoed / by chance</th><th>safety p binomial (Poisson)</th><th>rounds merged</th></tr>\n",
+    );
+    for p in rows {
+        let _ = writeln!(
+            o,
+            "<tr><td class=\"t\">{}</td><td>{}</td><td>{:.2e}</td><td>{:.1}</td><td>{:.3}</td><td>{} / {}</td>\
+             <td>{} ({})</td><td class=\"t\">{}</td></tr>",
+            html_escape(&p.aux_channel),
+            state_cell(&p.state),
+            p.deadtime,
+            p.covered_s,
+            p.efficiency,
+            p.injections_vetoed.map(|n| n.to_string()).unwrap_or("-".into()),
+            p.injections_chance
+                .map(|x| format!("{x:.2}"))
+                .unwrap_or("-".into()),
+            opt_prob(p.safety_binomial_p),
+            opt_prob(p.safety_poisson_p),
+            html_escape(&p.rounds),
         );
     }
     o.push_str("</table>\n");
@@ -417,7 +483,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
                 f3(s.mean_rate_per_hour),
                 f3(s.median_rate_per_hour),
                 s.change_times_gps.len(),
-                if s.latest_differs { " — <span class=\"flag\">latest block differs from the median</span>" } else { "" }
+                if s.latest_differs { " — <span class=\"flag\">latest block differs from the median (exact two-sided Poisson test at level 1 − CL)</span>" } else { "" }
             );
             let file = format!("rate_f{}.svg", f.id);
             let title = f.label.clone().map_or(format!("family {}", f.id), |l| {
@@ -479,7 +545,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
             )?;
             let _ = writeln!(
                 o,
-                "<figure><img class=\"plot lag\" src=\"img/{file}\" alt=\"lag histogram\"><figcaption>{}{}</figcaption></figure>",
+                "<figure><img class=\"plot lag\" src=\"img/{file}\" alt=\"lag histogram (t_aux − t_target)\"><figcaption>{} — lag t_aux − t_target (negative: aux first){}</figcaption></figure>",
                 html_escape(&l.aux_channel),
                 l.freq_relation.as_deref().map(|x| format!(" — frequency relation: {}", html_escape(x))).unwrap_or_default()
             );
@@ -490,7 +556,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
             .filter(|v| v.mode == "family" && v.family_id == Some(f.id))
             .collect();
         if !v.is_empty() {
-            o.push_str("<h3>Proposed vetoes</h3>\n");
+            o.push_str("<h3>Veto rounds</h3>\n");
             veto_table(&mut o, &v);
         }
         o.push_str("</section>\n");
@@ -503,7 +569,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
         .filter(|w| w.family_id.is_none())
         .collect();
     let v_all: Vec<&VetoRow> = d.vetoes.iter().filter(|v| v.mode == "all").collect();
-    if !w_all.is_empty() || !v_all.is_empty() {
+    if !w_all.is_empty() || !v_all.is_empty() || !d.proposals.is_empty() {
         o.push_str(
             "<section id=\"all-vetoes\"><h2>All target triggers: witnesses and vetoes</h2>\n",
         );
@@ -512,6 +578,9 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
         }
         if !v_all.is_empty() {
             veto_table(&mut o, &v_all);
+        }
+        if !d.proposals.is_empty() {
+            proposal_table(&mut o, &d.proposals);
         }
         o.push_str("</section>\n");
     }

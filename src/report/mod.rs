@@ -15,10 +15,12 @@ pub mod plots;
 mod staging;
 
 pub use gather::{
-    gather, ExampleTrigger, FamilyInfo, LagRow, ReportData, ReportParams, VetoRow, WitnessRow,
+    gather, ExampleTrigger, FamilyInfo, LagRow, ProposalRow, ReportData, ReportParams, VetoRow,
+    WitnessRow,
 };
 pub use html::{html_escape, write_report};
 pub use staging::Staging;
 
-/// The caution printed with every veto proposal.
-pub const VETO_CAUTION: &str = "Veto proposals are for the instrument team to validate against their own procedures before any data are discarded.";
+/// The caution printed with every veto proposal (the one of
+/// [`crate::coupling`]).
+pub use crate::coupling::VETO_CAUTION;

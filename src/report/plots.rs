@@ -330,7 +330,8 @@ pub fn snr_cumulative(path: &Path, curves: &[(String, RGBColor, Vec<f64>)]) -> R
     Ok(())
 }
 
-/// Histogram of witness lags (aux time − target time) \[s\].
+/// Histogram of witness lags, `t_aux − t_target` \[s\] (the one lag
+/// convention of the tool; negative when the aux trigger comes first).
 ///
 /// # Errors
 /// If `edges_s.len() != counts.len() + 1`, or the SVG cannot be written.
@@ -354,7 +355,7 @@ pub fn lag_histogram(path: &Path, edges_s: &[f64], counts: &[f64], title: &str) 
         .map_err(err)?;
     chart
         .configure_mesh()
-        .x_desc("lag aux − target [s]")
+        .x_desc("lag t_aux − t_target [s]")
         .y_desc("pairs")
         .y_label_formatter(&plain_label)
         .x_label_formatter(&plain_label)

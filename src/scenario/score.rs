@@ -17,14 +17,15 @@
 //! target's analysed time count. Unmatched triggers are *noise triggers*.
 //!
 //! # Lag sign
-//! Truth lags are `t_aux − t_target`. [`crate::coupling::lag`] reports
-//! `t_target − t_aux` (its module docs); [`COUPLING_LAG_SIGN`] converts.
+//! Truth lags are `t_aux − t_target`, the convention of
+//! [`crate::coupling::lag`] too ([`COUPLING_LAG_SIGN`] = 1 says so where
+//! the two meet).
 
 use super::metrics::{adjusted_rand_index, homogeneity_completeness_v_measure, purity, Hcv};
 use super::model::Mechanism;
 use super::truth::{ChannelRow, TruthRow};
 use crate::catalogue::{self, TriggerQuery, TriggerRow};
-use crate::coupling::{VetoReport, WitnessReport};
+use crate::coupling::{Safety, VetoReport, WitnessReport};
 use crate::segments::SegmentList;
 use anyhow::{Context, Result};
 use rusqlite::Connection;
@@ -34,8 +35,8 @@ use std::fmt::Write as _;
 use std::path::Path;
 
 /// Multiply the coupling module's lags by this to get `t_aux − t_target`
-/// (it reports `t_target − t_aux`; see [`crate::coupling::lag`]).
-pub const COUPLING_LAG_SIGN: f64 = -1.0;
+/// (it reports `t_aux − t_target` as well; see [`crate::coupling::lag`]).
+pub const COUPLING_LAG_SIGN: f64 = 1.0;
 
 /// True-SNR bins of the recall table: `[lo, hi)`.
 pub const RECALL_BINS: [(f64, f64); 4] =
@@ -501,8 +502,9 @@ pub struct WitnessScore {
     pub family: Option<i64>,
     /// The tool's best witness of that family.
     pub found_channel: Option<String>,
-    /// Its significance.
-    pub significance: Option<f64>,
+    /// Its false-alarm probability over every channel compared
+    /// (`false_alarm_any`).
+    pub false_alarm: Option<f64>,
     /// Its efficiency (fraction of the family's triggers).
     pub efficiency: Option<f64>,
     /// Its median lag converted to `t_aux − t_target` \[s\].
@@ -510,7 +512,7 @@ pub struct WitnessScore {
     /// Rank (1 = best) of the true channel among the family's witness rows.
     pub true_channel_rank: Option<usize>,
     /// Whether the best witness is the true one (for unwitnessed
-    /// mechanisms: whether no witness reached significance 5).
+    /// mechanisms: whether no witness was beyond chance).
     pub correct: bool,
 }
 
@@ -547,17 +549,17 @@ pub fn witness_score(
                 report
                     .lags
                     .iter()
-                    .find(|l| l.family_id == family && l.channel == w.channel)
-                    .and_then(|l| l.median_lag_s)
+                    .find(|l| l.family_id == family && l.aux_channel == w.aux_channel)
+                    .and_then(|l| l.lag_median_s)
                     .map(|x| COUPLING_LAG_SIGN * x)
             });
             let true_channel_rank = true_channel
                 .as_ref()
-                .and_then(|c| best.iter().position(|w| &w.channel == c).map(|i| i + 1));
+                .and_then(|c| best.iter().position(|w| &w.aux_channel == c).map(|i| i + 1));
             let correct = match (&true_channel, top) {
-                (Some(c), Some(w)) => &w.channel == c,
+                (Some(c), Some(w)) => &w.aux_channel == c,
                 (Some(_), None) => false,
-                (None, Some(w)) => w.significance < 5.0,
+                (None, Some(w)) => !w.beyond_chance,
                 (None, None) => true,
             };
             WitnessScore {
@@ -566,8 +568,8 @@ pub fn witness_score(
                 true_lag_s,
                 true_efficiency,
                 family,
-                found_channel: top.map(|w| w.channel.clone()),
-                significance: top.map(|w| w.significance),
+                found_channel: top.map(|w| w.aux_channel.clone()),
+                false_alarm: top.map(|w| w.false_alarm_any),
                 efficiency: top.map(|w| w.efficiency),
                 lag_s,
                 true_channel_rank,
@@ -597,11 +599,12 @@ pub struct VetoRoundScore {
     /// Whether the channel truly witnesses what the round vetoes: any
     /// mechanism (mode `all`) or the family's majority mechanism.
     pub right_channel: bool,
-    /// Significance.
-    pub significance: f64,
-    /// Safe by the tool's check.
-    pub safe: bool,
-    /// Proposed by the tool.
+    /// The round's false-alarm probability over every channel compared.
+    pub false_alarm: f64,
+    /// The tool's safety state: `safe`, `unsafe` or `unchecked`.
+    pub safety: String,
+    /// Part of a proposal (every round not unsafe is merged into its
+    /// channel's proposal).
     pub proposed: bool,
 }
 
@@ -643,7 +646,7 @@ pub fn veto_score(
         .rounds
         .iter()
         .map(|r| {
-            let ch = class(&r.channel);
+            let ch = class(&r.aux_channel);
             let witnesses = ch.and_then(|c| c.witnesses.clone());
             let family_mechanism = r.family_id.and_then(|f| {
                 families?
@@ -662,19 +665,19 @@ pub fn veto_score(
                 mode: r.mode.clone(),
                 family_id: r.family_id,
                 round: r.round,
-                channel: r.channel.clone(),
+                channel: r.aux_channel.clone(),
                 class: ch.map_or("unknown".into(), |c| c.class.clone()),
                 witnesses,
                 family_mechanism,
                 right_channel,
-                significance: r.significance,
-                safe: r.safe,
-                proposed: r.proposed,
+                false_alarm: r.false_alarm,
+                safety: r.safety.as_str().into(),
+                proposed: r.safety != Safety::Unsafe,
             }
         })
         .collect();
     let mut cut = SegmentList::new();
-    for r in report.rounds.iter().filter(|r| r.proposed) {
+    for r in report.rounds.iter().filter(|r| r.safety != Safety::Unsafe) {
         cut = cut.union(&r.segments);
     }
     let n_proposed =
@@ -903,13 +906,13 @@ impl ScenarioScore {
             for w in &self.witnesses {
                 let _ = writeln!(
                     s,
-                    "  {:<10} true {:<20} lag {:>7} eff {:.2} | found {:<20} sig {:>6} eff {:>5} lag {:>8} rank of true {:>2} {}",
+                    "  {:<10} true {:<20} lag {:>7} eff {:.2} | found {:<20} false alarm {:>8} eff {:>5} lag {:>8} rank of true {:>2} {}",
                     w.mechanism,
                     w.true_channel.as_deref().unwrap_or("(none)"),
                     opt(w.true_lag_s, 3),
                     w.true_efficiency,
                     w.found_channel.as_deref().unwrap_or("-"),
-                    opt(w.significance, 1),
+                    w.false_alarm.map_or("-".into(), |p| format!("{p:.1e}")),
                     opt(w.efficiency, 2),
                     opt(w.lag_s, 4),
                     w.true_channel_rank.map_or("-".into(), |r| r.to_string()),
@@ -941,7 +944,7 @@ impl ScenarioScore {
             for r in &v.rounds {
                 let _ = writeln!(
                     s,
-                    "  {:<6} fam {:>3} ({:<9}) round {:>2} {:<20} {:<9} witnesses {:<9} sig {:>6.1} {:<6} {:<8} {}",
+                    "  {:<6} fam {:>3} ({:<9}) round {:>2} {:<20} {:<9} witnesses {:<9} false alarm {:>8.1e} {:<9} {:<8} {}",
                     r.mode,
                     r.family_id.map_or("-".into(), |f| f.to_string()),
                     r.family_mechanism.as_deref().unwrap_or("-"),
@@ -949,8 +952,8 @@ impl ScenarioScore {
                     r.channel,
                     r.class,
                     r.witnesses.as_deref().unwrap_or("-"),
-                    r.significance,
-                    if r.safe { "safe" } else { "UNSAFE" },
+                    r.false_alarm,
+                    r.safety,
                     if r.proposed { "proposed" } else { "-" },
                     if r.right_channel { "" } else { "wrong channel" }
                 );

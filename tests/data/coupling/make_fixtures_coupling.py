@@ -1,7 +1,7 @@
 """Reference tail probabilities for glitchbook's coupling tests.
 
 Run from this directory:  python3 make_fixtures_coupling.py
-Writes poisson_sf.json and binom_sf.json.
+Writes poisson_sf.json, binom_sf.json and safety_cases.json.
 
 P(N >= n) = scipy.stats.poisson.sf(n - 1, mu)   (SciPy 1.17.1)
 ln P(N >= n) = scipy.stats.poisson.logsf(n - 1, mu)
@@ -75,6 +75,41 @@ for n in [10, 100, 1000, 20000]:
         for k in sorted({1, 2, 5, max(1, n // 10), n // 2, n}):
             binom.append(binom_row(k, n, p))
 
+# Safety decisions: k of n injections inside a veto of this deadtime.
+# binom_p = scipy.stats.binom.sf(k - 1, n, deadtime)     (decides)
+# poisson_p = scipy.stats.poisson.sf(k - 1, n * deadtime) (reference)
+# unsafe when binom_p < limit (1e-5, common practice).
+LIMIT = 1e-5
+safety = []
+for k, n, d, note in [
+    (25, 50, 0.205, "issue 13: deadtime 0.205, 25 of 50 vetoed"),
+    (25, 50, 0.2045, "issue 13 quoted figures (10.2 expected: 3.2e-6 vs 6.6e-5)"),
+    (0, 30, 0.01, "nothing vetoed"),
+    (1, 30, 0.01, ""),
+    (3, 100, 0.01, ""),
+    (6, 100, 0.01, "near the limit"),
+    (7, 100, 0.01, "near the limit"),
+    (20, 20, 0.002, "every injection vetoed"),
+    (12, 300, 0.005, ""),
+    (40, 200, 0.08, ""),
+    (45, 200, 0.08, "near the limit"),
+    (60, 100, 0.3, "large deadtime"),
+    (55, 100, 0.3, "large deadtime"),
+    (120, 1000, 0.08, ""),
+    (130, 1000, 0.08, ""),
+]:
+    b = float(st.binom.sf(k - 1, n, d))
+    p = float(st.poisson.sf(k - 1, n * d))
+    safety.append({
+        "k": k, "n": n, "deadtime": d, "binom_p": b, "poisson_p": p,
+        "limit": LIMIT, "unsafe": b < LIMIT, "poisson_says_unsafe": p < LIMIT,
+        "note": note,
+        "source": f"scipy {scipy.__version__} binom.sf({k - 1}, {n}, {d}); "
+                  f"poisson.sf({k - 1}, {n * d})",
+    })
+
+with open("safety_cases.json", "w") as f:
+    json.dump(safety, f, indent=1)
 with open("poisson_sf.json", "w") as f:
     json.dump(pois, f, indent=1)
 with open("binom_sf.json", "w") as f:
