@@ -19,6 +19,7 @@ pub mod plan;
 pub mod rates;
 pub mod report;
 pub mod scan;
+pub mod scenario;
 pub mod segments;
 pub mod tf;
 pub mod trigger;

@@ -1,7 +1,8 @@
 //! Glitch waveforms for scenarios and tests: sine-Gaussians, short
-//! broadband pulses, long tonal bursts, upward sweeps (chirps) and
-//! low-frequency arches, each sampled at any offset, with its
-//! time-frequency track and its matched-filter SNR in a given noise PSD.
+//! broadband pulses, long tonal bursts, upward sweeps (chirps),
+//! low-frequency arches and signal-like inspiral chirps, each sampled at any
+//! offset, with its time-frequency track and its matched-filter SNR in a
+//! given noise PSD.
 //!
 //! # Conventions
 //! - Times are offsets `dt = t − t_c` \[s\] from the waveform's reference
@@ -78,6 +79,31 @@ pub enum Waveform {
         /// Phase at the start \[rad\].
         phase_rad: f64,
     },
+    /// A signal-like chirp following the leading-order (Newtonian) law of a
+    /// compact-binary inspiral: `f(τ) = f_s (1 − τ/τ_c)^(−3/8)` with
+    /// `τ_c = T / (1 − (f_s/f_e)^(8/3))`, so the frequency reaches `f_end_hz`
+    /// at `τ = T`, and amplitude `(f(τ)/f_e)^(2/3)` (unit at the end), both
+    /// the textbook quadrupole-order forms (e.g. Maggiore 2008,
+    /// *Gravitational Waves* vol. 1, ch. 4; from memory), under a Tukey
+    /// envelope (`τ = dt + T/2` in `[0, T]`). Invented data only: no merger
+    /// or ringdown.
+    Chirp {
+        /// Frequency at the start \[Hz\].
+        f_start_hz: f64,
+        /// Frequency at the end \[Hz\] (above `f_start_hz`).
+        f_end_hz: f64,
+        /// Length \[s\].
+        duration_s: f64,
+        /// Fraction of the length in each raised-cosine edge (0..0.5).
+        edge_frac: f64,
+        /// Phase at the start \[rad\].
+        phase_rad: f64,
+    },
+}
+
+/// `τ_c` of a [`Waveform::Chirp`]: the time from its start to coalescence \[s\].
+fn chirp_tau_c(f_start_hz: f64, f_end_hz: f64, duration_s: f64) -> f64 {
+    duration_s / (1.0 - (f_start_hz / f_end_hz).powf(8.0 / 3.0))
 }
 
 /// Tukey envelope at `τ ∈ [0, T]` with raised-cosine edges of `e T`.
@@ -156,6 +182,25 @@ impl Waveform {
                             * (1.0 - (PI * tau / duration_s).cos()));
                 env * (phase + phase_rad).sin()
             }
+            Waveform::Chirp {
+                f_start_hz,
+                f_end_hz,
+                duration_s,
+                edge_frac,
+                phase_rad,
+            } => {
+                let tau = dt_s + 0.5 * duration_s;
+                let env = tukey_env(tau, duration_s, edge_frac);
+                if env == 0.0 {
+                    return 0.0;
+                }
+                let tc = chirp_tau_c(f_start_hz, f_end_hz, duration_s);
+                let x = (1.0 - tau / tc).max(f64::MIN_POSITIVE);
+                // φ(τ) = 2π ∫0^τ f = 2π f_s τ_c (8/5) [1 − (1 − τ/τ_c)^(5/8)].
+                let phase = 2.0 * PI * f_start_hz * tc * 1.6 * (1.0 - x.powf(0.625));
+                let f = f_start_hz * x.powf(-0.375);
+                env * (f / f_end_hz).powf(2.0 / 3.0) * (phase + phase_rad).sin()
+            }
         }
     }
 
@@ -167,7 +212,8 @@ impl Waveform {
             Waveform::SineGaussian { f0_hz, q, .. } => 5.0 * q / (2.0 * PI * f0_hz),
             Waveform::Tone { duration_s, .. }
             | Waveform::Sweep { duration_s, .. }
-            | Waveform::Arch { duration_s, .. } => 0.5 * duration_s,
+            | Waveform::Arch { duration_s, .. }
+            | Waveform::Chirp { duration_s, .. } => 0.5 * duration_s,
         }
     }
 
@@ -197,14 +243,24 @@ impl Waveform {
                 let tau = dt_s + 0.5 * duration_s;
                 f_edge_hz + (f_top_hz - f_edge_hz) * (PI * tau / duration_s).sin()
             }
+            Waveform::Chirp {
+                f_start_hz,
+                f_end_hz,
+                duration_s,
+                ..
+            } => {
+                let tau = dt_s + 0.5 * duration_s;
+                let tc = chirp_tau_c(f_start_hz, f_end_hz, duration_s);
+                f_start_hz * (1.0 - tau / tc).max(f64::MIN_POSITIVE).powf(-0.375)
+            }
         })
     }
 
     /// Time-frequency box of the waveform: `(dt_lo, dt_hi, f_lo, f_hi)`
     /// \[s, Hz\], offsets from the reference time. Sine-Gaussians use the
     /// extents of a tile of their Q (`t ± Q/(2π f0)`, `f ± 2 f0/Q`, as in
-    /// [`crate::tf`]); tones their support and `f0 ± 1/T`; sweeps and arches
-    /// their support and frequency range.
+    /// [`crate::tf`]); tones their support and `f0 ± 1/T`; sweeps, arches
+    /// and chirps their support and frequency range.
     pub fn extent(&self) -> (f64, f64, f64, f64) {
         match *self {
             Waveform::SineGaussian { f0_hz, q, .. } => {
@@ -220,6 +276,12 @@ impl Waveform {
                 (-0.5 * duration_s, 0.5 * duration_s, f0_hz - hf, f0_hz + hf)
             }
             Waveform::Sweep {
+                f_start_hz,
+                f_end_hz,
+                duration_s,
+                ..
+            }
+            | Waveform::Chirp {
                 f_start_hz,
                 f_end_hz,
                 duration_s,
@@ -371,6 +433,36 @@ mod tests {
                     "{w:?} at {dt}: {got} vs {want}"
                 );
             }
+        }
+        // The chirp follows f_s (1 − τ/τ_c)^(−3/8) and ends at f_e.
+        let chirp = Waveform::Chirp {
+            f_start_hz: 30.0,
+            f_end_hz: 300.0,
+            duration_s: 2.0,
+            edge_frac: 0.05,
+            phase_rad: 0.2,
+        };
+        for dt in [-0.7, 0.0, 0.8] {
+            let want = chirp.frequency_at(dt).unwrap();
+            let got = crossing_freq(&chirp, dt, fs);
+            assert!(
+                (got / want - 1.0).abs() < 0.03,
+                "chirp at {dt}: {got} vs {want}"
+            );
+        }
+        assert!((chirp.frequency_at(-1.0).unwrap() - 30.0).abs() < 1e-9);
+        assert!((chirp.frequency_at(1.0).unwrap() - 300.0).abs() < 1e-6);
+        // Amplitude (f/f_e)^(2/3): the largest |h| over one cycle around dt.
+        for dt in [-0.5, 0.0, 0.85] {
+            let f = chirp.frequency_at(dt).unwrap();
+            let got = (0..400)
+                .map(|i| chirp.value(dt + (i as f64 / 400.0 - 0.5) / f).abs())
+                .fold(0.0, f64::max);
+            let want = (f / 300.0).powf(2.0 / 3.0);
+            assert!(
+                (got / want - 1.0).abs() < 0.03,
+                "chirp |h| at {dt}: {got} vs {want}"
+            );
         }
         // The arch peaks in the middle; the sweep rises monotonically.
         assert_eq!(arch.frequency_at(0.0), Some(55.0));

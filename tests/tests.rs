@@ -31,6 +31,9 @@ mod families_core;
 mod families_demo;
 /// Families in a catalogue: cluster, stable ids, labels, assignment.
 mod families_store;
+/// The second scenario (invented site QM4): determinism, truth
+/// consistency, metrics vs scikit-learn, a short end-to-end smoke run.
+mod scenario_qm4;
 
 /// Harness running the real binary in a temporary directory.
 mod cli_util;
