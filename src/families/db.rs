@@ -6,7 +6,7 @@
 
 use super::features::{
     blob_to_f32, f32_to_blob, fingerprint, EnergyMapSource, FEATURE_VERSION, MAP_LEN, N_SCALARS,
-    SPANS_S,
+    N_SPANS,
 };
 use super::lineage::{self, EventKind, FamilyStatus, Lineage};
 use super::model::{argmax, component_groups, fit_model, group_resp, median, FamilyModel};
@@ -109,7 +109,7 @@ fn ensure_features(
                         blob_to_f32(&m).with_context(|| format!("features of trigger {}", r.id))?;
                     let s =
                         blob_to_f32(&s).with_context(|| format!("features of trigger {}", r.id))?;
-                    (m.len() == SPANS_S.len() * MAP_LEN && s.len() == N_SCALARS).then_some((m, s))
+                    (m.len() == N_SPANS * MAP_LEN && s.len() == N_SCALARS).then_some((m, s))
                 }
                 _ => None,
             });

@@ -5,7 +5,7 @@
 //! no catalogue access (that is [`super::db`]).
 
 use super::features::{
-    f32_to_blob, FEATURE_VERSION, MAP_LEN, N_FREQS, N_SCALARS, N_TIMES, SPANS_S,
+    f32_to_blob, FEATURE_VERSION, MAP_LEN, N_FREQS, N_SCALARS, N_SPANS, N_TIMES,
 };
 use super::gmm::{fit_auto_k, seeded_subset, Gmm, GmmParams};
 use super::pca::{PcaModel, Scaler};
@@ -195,7 +195,7 @@ pub fn dequantise(value: f64, step: f64, key: &[u8], column: usize) -> f64 {
 pub type Fingerprints = Vec<(Vec<f32>, Vec<f32>)>;
 
 /// Pooled map length: each 16 × 16 map averaged over 2 × 2 cells.
-const POOLED_LEN: usize = SPANS_S.len() * (N_TIMES / 2) * (N_FREQS / 2);
+const POOLED_LEN: usize = N_SPANS * (N_TIMES / 2) * (N_FREQS / 2);
 
 /// Floor of the peak-normalised log maps: e⁻³ ≈ 5 % of the peak, about
 /// the noise level (Z ≈ 1) under the peak of an SNR-7 tile (Z = 25.5).
@@ -209,7 +209,7 @@ const REL_LN_FLOOR: f64 = -3.0;
 /// peak normalisation, kept readable for `assign`).
 pub(crate) fn pooled_log_maps(maps: &[f32], peak_norm: bool) -> Vec<f64> {
     let mut out = Vec::with_capacity(POOLED_LEN);
-    for s in 0..SPANS_S.len() {
+    for s in 0..N_SPANS {
         let first = out.len();
         let m = &maps[s * MAP_LEN..(s + 1) * MAP_LEN];
         for t in (0..N_TIMES).step_by(2) {
@@ -510,7 +510,7 @@ mod tests {
         // flat background of exactly 1) gives the same pooled map wherever
         // the blob is above the floor.
         let mk = |a: f32| -> Vec<f32> {
-            (0..SPANS_S.len() * MAP_LEN)
+            (0..N_SPANS * MAP_LEN)
                 .map(|i| {
                     let (t, f) = ((i % MAP_LEN) / N_FREQS, i % N_FREQS);
                     let r2 = ((t as f32 - 7.5).powi(2) + (f as f32 - 7.5).powi(2)) / 4.0;
