@@ -1,38 +1,40 @@
 //! Families on the invented demo scenario (issue 3): the clustering must
 //! recover the scenario's ground-truth families (truth.csv, written by
 //! `glitchbook::demo` from its own draws), and keep family ids stable when
-//! the run is extended.
+//! the run is extended. The tests read one scenario, generated once per
+//! test binary (`scenario`), and share one scan and clustering of it
+//! (`whole_run_score`).
 //!
 //! Checks and their sources:
 //! - adjusted Rand index ≥ 0.8 over triggers matched to injected glitches
 //!   (Hubert & Arabie 1985; our implementation is checked against
 //!   scikit-learn 1.9.1 `adjusted_rand_score` in families_core);
 //! - each scenario family's dominant family holds ≥ 85 % of its matched
-//!   members (issue 3 acceptance figure);
+//!   members (issue 3 acceptance figure), and no two scenario families share
+//!   a dominant family (issue 17: a share alone cannot see two merged; a
+//!   known failure on the demo today, see that test);
 //! - scanning the first half, clustering, then scanning the second half and
 //!   clustering again keeps ≥ 95 % of first-half triggers in the same family
 //!   id (issue 3 acceptance figure).
+//!
+//! The scoring is the library's ([`pipeline::score_families`]), as
+//! `glitchbook demo` prints it.
 
 use glitchbook::catalogue::{self, from_ns};
 use glitchbook::demo::{self, DemoOptions, TruthGlitch};
-use glitchbook::families::{self, metrics::adjusted_rand_index, ClusterParams};
+use glitchbook::families::{self, ClusterParams};
 use glitchbook::io::{read_segments_file, Bundle};
 use glitchbook::maps::BundleMaps;
+use glitchbook::pipeline;
 use glitchbook::scan::{scan_channel, ScanParams};
 use glitchbook::segments::SegmentList;
 use rusqlite::Connection;
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
 
 const HOURS: f64 = 2.0;
 const SEED: u64 = 1;
-
-fn dir(name: &str) -> PathBuf {
-    let d = Path::new(env!("CARGO_TARGET_TMPDIR")).join(name);
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
 
 /// Scan the target channel inside `segments` and store it in `conn`.
 fn scan_into(conn: &mut Connection, bundle_dir: &Path, segments: &SegmentList) {
@@ -44,9 +46,7 @@ fn scan_into(conn: &mut Connection, bundle_dir: &Path, segments: &SegmentList) {
         .unwrap();
     let scan = scan_channel(spec, &ScanParams::default(), Some(segments), &|_| {}).unwrap();
     let abs = std::fs::canonicalize(bundle_dir).unwrap();
-    let tx = conn.transaction().unwrap();
-    catalogue::insert_channel_scan(&tx, &scan, &abs).unwrap();
-    tx.commit().unwrap();
+    catalogue::record_scans(conn, &[(scan, abs)], |_| Ok(())).unwrap();
 }
 
 fn cluster(conn: &mut Connection) {
@@ -73,91 +73,122 @@ fn members(conn: &Connection) -> Vec<(i64, f64, i64)> {
         .unwrap()
 }
 
-/// ARI over matched truth glitches and the dominant share of each scenario
-/// family, as `glitchbook demo` reports them.
-fn truth_check(conn: &Connection, truth: &[TruthGlitch]) -> (f64, Vec<(String, f64, usize)>) {
-    let m = members(conn);
-    let mut names: Vec<&str> = truth.iter().map(|g| g.family.as_str()).collect();
-    names.sort();
-    names.dedup();
-    let (mut a, mut b) = (Vec::new(), Vec::new());
-    let mut tally: HashMap<(usize, i64), usize> = HashMap::new();
-    for g in truth {
-        let i = m.partition_point(|x| x.1 < g.t_peak_gps - 0.1);
-        if let Some(&(_, t, fam)) = m.get(i) {
-            if t <= g.t_peak_gps + 0.1 {
-                let n = names.iter().position(|n| *n == g.family).unwrap();
-                a.push(n as i64);
-                b.push(fam);
-                *tally.entry((n, fam)).or_default() += 1;
-            }
-        }
-    }
-    let shares = names
-        .iter()
-        .enumerate()
-        .map(|(n, name)| {
-            let total: usize = tally.iter().filter(|(k, _)| k.0 == n).map(|x| x.1).sum();
-            let top = tally
-                .iter()
-                .filter(|(k, _)| k.0 == n)
-                .map(|x| *x.1)
-                .max()
-                .unwrap_or(0);
-            (name.to_string(), top as f64 / total.max(1) as f64, total)
-        })
-        .collect();
-    (adjusted_rand_index(&a, &b), shares)
+/// The demo scenario (seed [`SEED`], [`HOURS`] h), its ground truth and
+/// analysis segments: written once per test binary, read by every test
+/// here (each writes its own catalogue beside it).
+struct Scenario {
+    dir: PathBuf,
+    summary: demo::ScenarioSummary,
+    truth: Vec<TruthGlitch>,
+    segments: SegmentList,
 }
 
-/// The demo scenario (seed [`SEED`], [`HOURS`] h) and its ground truth.
-fn scenario(
-    name: &str,
-) -> (
-    PathBuf,
-    demo::ScenarioSummary,
-    Vec<TruthGlitch>,
-    SegmentList,
-) {
-    let d = dir(name);
-    let sc = demo::write_scenario(
-        &d,
-        &DemoOptions {
-            seed: SEED,
-            hours: HOURS,
-        },
-    )
-    .unwrap();
-    let truth = demo::read_truth(&sc.truth_csv).unwrap();
-    let (segments, _) = read_segments_file(&sc.segments_txt).unwrap();
-    (d, sc, truth, segments)
+fn scenario() -> &'static Scenario {
+    static SCENARIO: OnceLock<Scenario> = OnceLock::new();
+    SCENARIO.get_or_init(|| {
+        let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join("families_demo");
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let summary = demo::write_scenario(
+            &dir,
+            &DemoOptions {
+                seed: SEED,
+                hours: HOURS,
+            },
+        )
+        .unwrap();
+        let truth = demo::read_truth(&summary.truth_csv).unwrap();
+        let (segments, _) = read_segments_file(&summary.segments_txt).unwrap();
+        Scenario {
+            dir,
+            summary,
+            truth,
+            segments,
+        }
+    })
+}
+
+/// The whole scenario scanned (target channel, inside the analysis
+/// segments) and clustered as `glitchbook demo` does, scored against the
+/// ground truth: once per test binary.
+fn whole_run_score() -> &'static pipeline::FamilyScore {
+    static SCORE: OnceLock<pipeline::FamilyScore> = OnceLock::new();
+    SCORE.get_or_init(|| {
+        let sc = scenario();
+        let mut conn = catalogue::open(&sc.dir.join("whole.db")).unwrap();
+        scan_into(&mut conn, &sc.dir, &sc.segments);
+        cluster(&mut conn);
+        let score = pipeline::score_families(&conn, &sc.truth).unwrap();
+        println!(
+            "demo {HOURS} h seed {SEED}: adjusted Rand index {:.3}",
+            score.ari
+        );
+        for s in &score.shares {
+            println!(
+                "  {}: {:.0}% of {} in its dominant family {}",
+                s.name,
+                100.0 * s.share(),
+                s.n_matched,
+                s.dominant_family
+            );
+        }
+        score
+    })
 }
 
 /// Issue 3 acceptance on the demo scenario as `demo` makes it (2 h, seed 1):
 /// ARI ≥ 0.8 against the ground truth over matched triggers and dominant
-/// share ≥ 85 % per scenario family. Pebble (100–300 Hz, Q 3–6) and moth
-/// (60–120 Hz, Q 6–10) overlap in peak frequency and Q and form one
-/// elongated cloud in (log f, ln Q): BIC prefers 3 families to 4 by 8 units
-/// and merges moth into pebble (ARI 0.82, shares 98–100 %); an earlier scan
-/// whose triggers differed by a few tiles found 4 (ARI 0.94).
+/// share ≥ 85 % per scenario family.
 #[test]
 fn demo_families_match_ground_truth() {
-    let (d, _sc, truth, segments) = scenario("families_demo_truth");
-    let mut conn = catalogue::open(&d.join("whole.db")).unwrap();
-    scan_into(&mut conn, &d, &segments);
-    cluster(&mut conn);
-    let (ari, shares) = truth_check(&conn, &truth);
-    println!("demo {HOURS} h seed {SEED}: adjusted Rand index {ari:.3}");
-    for (name, share, n) in &shares {
-        println!(
-            "  {name}: {:.0}% of {n} in its dominant family",
-            100.0 * share
+    let score = whole_run_score();
+    assert!(
+        score.ari >= 0.8,
+        "adjusted Rand index {:.3} < 0.8",
+        score.ari
+    );
+    for s in &score.shares {
+        assert!(
+            s.share() >= 0.85,
+            "{}: dominant share {:.2} < 0.85",
+            s.name,
+            s.share()
         );
     }
-    assert!(ari >= 0.8, "adjusted Rand index {ari:.3} < 0.8");
-    for (name, share, _) in &shares {
-        assert!(*share >= 0.85, "{name}: dominant share {share:.2} < 0.85");
+}
+
+/// Issue 17: no two scenario families have the same dominant family (a
+/// merge of two scenario families keeps both shares high, so the shares
+/// alone cannot see it).
+///
+/// KNOWN FAILURE, kept strict: pebble (100–300 Hz, Q 3–6) and moth
+/// (60–120 Hz, Q 6–10) overlap in peak frequency and Q and form one
+/// elongated cloud in (log f, ln Q); BIC prefers 3 families to 4 by 8 units
+/// and moth is merged into pebble's family (ARI 0.82, shares 98–100 %).
+/// `should_panic` makes this test fail the day they are separated: then
+/// delete the attribute (the families work that follows this one must).
+#[test]
+#[should_panic(expected = "scenario families share a dominant family")]
+fn demo_families_have_distinct_dominant_families() {
+    let score = whole_run_score();
+    let mut by_family: HashMap<i64, Vec<&str>> = HashMap::new();
+    for s in &score.shares {
+        by_family
+            .entry(s.dominant_family)
+            .or_default()
+            .push(&s.name);
     }
+    let mut shared: Vec<String> = by_family
+        .iter()
+        .filter(|(_, names)| names.len() > 1)
+        .map(|(f, names)| format!("family {f} holds {}", names.join(" and ")))
+        .collect();
+    shared.sort();
+    assert!(
+        shared.is_empty(),
+        "scenario families share a dominant family: {}",
+        shared.join("; ")
+    );
 }
 
 /// Issue 3 acceptance: scan the first half, cluster; scan the second half,
@@ -166,12 +197,14 @@ fn demo_families_match_ground_truth() {
 /// trivially met).
 #[test]
 fn demo_family_ids_stay_stable_across_halves() {
-    let (d, sc, _truth, segments) = scenario("families_demo_halves");
-    let mid = 0.5 * (sc.start_gps + sc.end_gps);
+    let sc = scenario();
+    let (start, end) = (sc.summary.start_gps, sc.summary.end_gps);
+    let mid = 0.5 * (start + end);
+    let d = &sc.dir;
     let mut conn = catalogue::open(&d.join("halves.db")).unwrap();
-    let first = segments.intersection(&SegmentList::single(sc.start_gps, mid));
-    let second = segments.intersection(&SegmentList::single(mid, sc.end_gps));
-    scan_into(&mut conn, &d, &first);
+    let first = sc.segments.intersection(&SegmentList::single(start, mid));
+    let second = sc.segments.intersection(&SegmentList::single(mid, end));
+    scan_into(&mut conn, d, &first);
     cluster(&mut conn);
     let before: HashMap<i64, i64> = members(&conn).iter().map(|m| (m.0, m.2)).collect();
     let n_fams = {
@@ -180,7 +213,7 @@ fn demo_family_ids_stay_stable_across_halves() {
         f.dedup();
         f.len()
     };
-    scan_into(&mut conn, &d, &second);
+    scan_into(&mut conn, d, &second);
     cluster(&mut conn);
     let after: HashMap<i64, i64> = members(&conn).iter().map(|m| (m.0, m.2)).collect();
     let kept = before

@@ -301,6 +301,17 @@ fn csv_and_json_round_trip() {
     let mut rd = csv::Reader::from_reader(csv_text.as_bytes());
     let rows: Vec<csv::StringRecord> = rd.records().map(|x| x.unwrap()).collect();
     assert_eq!(rows.len(), 4 * 12);
+    // CSV keeps every digit: each number reads back as the same f64.
+    let bins = r.series.iter().flat_map(|s| &s.bins);
+    for (row, b) in rows.iter().zip(bins) {
+        let num = |i: usize| row[i].parse::<f64>().unwrap();
+        let opt = |i: usize| (!row[i].is_empty()).then(|| num(i));
+        assert_eq!((num(2), num(3), num(5)), (b.start_gps, b.end_gps, b.live_s));
+        assert_eq!(
+            (opt(6), opt(7), opt(8)),
+            (b.rate_per_hour, b.lower_per_hour, b.upper_per_hour)
+        );
+    }
     let json: serde_json::Value = serde_json::from_str(&render(&r, Format::Json).unwrap()).unwrap();
     assert_eq!(json["series"].as_array().unwrap().len(), 4);
     assert_eq!(json["series"][2]["family_id"], 2);

@@ -47,6 +47,12 @@ mod cli_coupling_rates;
 /// `scan` end to end (the full run waits for scan::scan_channel).
 mod cli_scan;
 
+/// The fuzz targets' checks (fuzz/checks.rs) run on the fuzz seeds.
+mod fuzz_seeds;
+/// Frame files: gwframe fixtures, corrupt files, writer round trip, scan from frames.
+mod io_gwf;
+/// HDF5 strain files: h5py fixtures, bad files, scan from HDF5.
+mod io_hdf5;
 mod io_inputs;
 /// Issue 6 reliability: bad input leaves the catalogue unchanged.
 mod reliability_bad_input;

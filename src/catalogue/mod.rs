@@ -60,27 +60,7 @@ pub fn schema_version() -> i64 {
 /// Current UTC time as ISO 8601 (`YYYY-MM-DDTHH:MM:SSZ`), for the
 /// provenance columns (`created_utc`, `changed_utc`, pages' "generated").
 pub fn now_utc() -> String {
-    let secs = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map(|d| d.as_secs() as i64)
-        .unwrap_or(0);
-    let (days, rem) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
-    // Civil date from days since 1970-01-01 (Hinnant's algorithm).
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = doy - (153 * mp + 2) / 5 + 1;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = yoe + era * 400 + i64::from(m <= 2);
-    format!(
-        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
-        rem / 3600,
-        (rem / 60) % 60,
-        rem % 60
-    )
+    humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string()
 }
 
 /// GPS seconds → integer nanoseconds (rounded).

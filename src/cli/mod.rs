@@ -35,12 +35,14 @@ pub struct Cli {
 /// Options every command takes.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Global {
-    /// Catalogue file (SQLite).
+    /// Catalogue file (SQLite) [default: glitchbook.db; for `demo`:
+    /// DIR/glitchbook.db].
     #[arg(
         long,
         global = true,
         value_name = "PATH",
-        default_value = "glitchbook.db"
+        default_value = "glitchbook.db",
+        hide_default_value = true
     )]
     pub db: PathBuf,
     /// Print only warnings, errors and requested listings.

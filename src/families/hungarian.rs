@@ -1,5 +1,13 @@
 //! Minimum-cost assignment (Kuhn 1955; Munkres 1957), in the O(n³)
 //! shortest-augmenting-path form with row/column potentials.
+//!
+//! Not the `pathfinding` crate's `kuhn_munkres`: on 2,000 random integer
+//! matrices (1–64 rows, rows ≤ columns) both gave the same minimum total
+//! (pathfinding 4.16.0 was faster, 0.36 against 1.05 ms a matrix, for one
+//! assignment per clustering run), but it needs rows ≤ columns and `Ord`
+//! weights, and adds 5 crates not otherwise in our tree (19 s of compile
+//! time per build profile, `cargo build --timings -j1`, measured 2026-12-02
+//! on this 2-core machine under load) for these 70 lines.
 
 /// Solve the assignment problem for a rectangular cost matrix
 /// (`rows × cols`, row-major). Returns, for every row, the column it is

@@ -1,9 +1,13 @@
-//! Input: channel bundles (`bundle.toml` + NumPy `.npy`), analysis segment
-//! files, external trigger CSV files and injection CSV files.
+//! Input: channel bundles (`bundle.toml` + NumPy `.npy`), frame files
+//! ([`gwf`]), HDF5 strain files (`hdf5`, cargo feature `hdf5`), analysis segment files, external trigger CSV files and
+//! injection CSV files.
 //!
 //! Every error names the file and the field or line at fault.
 
 pub mod bundle;
+pub mod gwf;
+#[cfg(feature = "hdf5")]
+pub mod hdf5;
 pub mod npy;
 pub mod text;
 

@@ -207,14 +207,28 @@ impl<'a> Table<'a> {
     }
 
     fn require(&self, col: &str) -> Result<usize> {
-        self.columns.get(col).copied().ok_or_else(|| {
-            Error::parse(
-                &self.name,
-                format!(
-                    "missing required column '{col}' (the first line must be a header naming the columns)"
-                ),
-            )
-        })
+        self.require_any(col, &[])
+    }
+
+    /// The column `col`, else the first of `aliases` present.
+    fn require_any(&self, col: &str, aliases: &[&str]) -> Result<usize> {
+        std::iter::once(&col)
+            .chain(aliases)
+            .find_map(|c| self.columns.get(*c).copied())
+            .ok_or_else(|| {
+                let also = if aliases.is_empty() {
+                    String::new()
+                } else {
+                    format!(" (or '{}')", aliases.join("', '"))
+                };
+                Error::parse(
+                    &self.name,
+                    format!(
+                        "missing required column '{col}'{also} (the first line must be a header \
+                         naming the columns)"
+                    ),
+                )
+            })
     }
 
     /// 1-based line of the record starting at byte `offset`. The CSV reader's
@@ -326,7 +340,9 @@ pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
 /// Parse an external trigger CSV; `name` is used in messages.
 ///
 /// A header row is required. Required columns (any order, names matched
-/// case-insensitively): `time` \[GPS s\], `frequency` \[Hz\], `snr`. Optional:
+/// case-insensitively): `time` \[GPS s\], `frequency` \[Hz\], `snr`
+/// (`t_peak` and `f_peak` are accepted for the first two, so the CSV of
+/// `glitchbook triggers` imports back). Optional:
 /// `duration` \[s\], `bandwidth` \[Hz\], `t_start`, `t_end` \[GPS s\], `f_low`,
 /// `f_high` \[Hz\], `q`. Other columns are ignored; an empty optional cell
 /// counts as absent. Quoted cells, CRLF line ends and `#` comment lines are
@@ -346,8 +362,9 @@ pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
 /// contain the peak (`t_start ≤ time ≤ t_end`, `0 ≤ f_low ≤ frequency ≤ f_high`).
 pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
     let mut table = Table::new(bytes, name)?;
-    let c_time = table.require("time")?;
-    let c_freq = table.require("frequency")?;
+    // `t_peak` and `f_peak` are how `glitchbook triggers --format csv` names them.
+    let c_time = table.require_any("time", &["t_peak"])?;
+    let c_freq = table.require_any("frequency", &["f_peak"])?;
     let c_snr = table.require("snr")?;
     let opt = |c: &str| table.columns.get(c).copied();
     let (c_dur, c_bw, c_ts, c_te, c_fl, c_fh, c_q) = (

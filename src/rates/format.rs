@@ -28,12 +28,14 @@ pub fn subject_name(s: &RateSeries) -> String {
     }
 }
 
+/// Every digit: the shortest text that reads back as the same `f64`.
 fn opt(v: Option<f64>) -> String {
-    v.map(|x| format!("{x:.6}")).unwrap_or_default()
+    v.map(|x| x.to_string()).unwrap_or_default()
 }
 
 /// CSV with header `subject,family_id,start_gps,end_gps,count,live_s,
-/// rate_per_hour,lower_per_hour,upper_per_hour,low_live`.
+/// rate_per_hour,lower_per_hour,upper_per_hour,low_live`; numbers keep every
+/// digit (shortest round-trip form, as JSON).
 ///
 /// # Errors
 /// If the CSV writer fails.
@@ -56,10 +58,10 @@ pub fn to_csv(r: &RateReport) -> Result<String> {
             w.write_record([
                 subject_name(s),
                 s.family_id.map(|i| i.to_string()).unwrap_or_default(),
-                format!("{:.3}", b.start_gps),
-                format!("{:.3}", b.end_gps),
+                b.start_gps.to_string(),
+                b.end_gps.to_string(),
                 b.count.to_string(),
-                format!("{:.3}", b.live_s),
+                b.live_s.to_string(),
                 opt(b.rate_per_hour),
                 opt(b.lower_per_hour),
                 opt(b.upper_per_hour),
