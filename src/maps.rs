@@ -238,7 +238,13 @@ impl BundleMaps {
 
     /// The taper and forward FFT of windows of `m` samples with `taper`
     /// samples of raised cosine at each end (cached per channel and sizes).
-    fn window_plan(&self, channel: &str, cd: &ChannelData, m: usize, taper: usize) -> Arc<WindowPlan> {
+    fn window_plan(
+        &self,
+        channel: &str,
+        cd: &ChannelData,
+        m: usize,
+        taper: usize,
+    ) -> Arc<WindowPlan> {
         let key = (channel.to_string(), m, taper);
         if let Some(hit) = self.plans.lock().expect("cache lock").get(&key) {
             return hit.clone();

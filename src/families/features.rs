@@ -104,6 +104,12 @@ pub const S_LN_SNR: usize = 0;
 pub const S_LOG2_F: usize = 3;
 /// Index of ln Q.
 pub const S_LN_Q: usize = 4;
+/// Index of the ln fractional bandwidth of the region.
+pub const S_LN_FRAC_BW: usize = 7;
+/// Index of the drift of the region.
+pub const S_DRIFT: usize = 9;
+/// Index of the curvature of the region.
+pub const S_CURVATURE: usize = 10;
 
 /// One frequency row of normalised energies: tile `i` centred at
 /// `t0_gps + i dt_s`.
@@ -243,7 +249,11 @@ impl MapLayout {
         let f = trigger.f_peak.max(1.0);
         let tile_s = 4.0 * sigma_t(q, f);
         let dur = trigger.t_end - trigger.t_start;
-        let base_s = if dur.is_finite() { dur.max(tile_s) } else { tile_s };
+        let base_s = if dur.is_finite() {
+            dur.max(tile_s)
+        } else {
+            tile_s
+        };
         let spans_s = SPAN_FACTORS.map(|k| (k * base_s).clamp(MIN_SPAN_S, MAX_SPAN_S));
         let rows_hz = (0..N_ROWS)
             .map(|i| f * ((i as f64 - HALF_ROWS as f64) / q).exp2())
@@ -320,8 +330,7 @@ pub fn fingerprint(
         );
     }
     // Stored maps: every other row, loudest tile per bin.
-    let stored: Vec<Option<RowEnergies>> =
-        (0..N_FREQS).map(|j| rows[2 * j + 1].clone()).collect();
+    let stored: Vec<Option<RowEnergies>> = (0..N_FREQS).map(|j| rows[2 * j + 1].clone()).collect();
     let mut maps = Vec::with_capacity(N_SPANS * MAP_LEN);
     for &s in &lay.spans_s {
         maps.extend(bin_rows(&stored, lay.t_gps, s, N_TIMES, Binning::Max));
@@ -382,6 +391,8 @@ pub struct Morphology {
 
 /// Morphology of the analysis grid `z` (`[N_BINS][N_ROWS]`, Z of each cell,
 /// `bin_s` wide; rows outside the band flagged in `in_band`).
+// Index loops over the (time, row) grid read clearer than iterator chains.
+#[allow(clippy::needless_range_loop)]
 pub fn morphology(z: &[f32], in_band: &[bool], lay: &MapLayout, bin_s: f64) -> Morphology {
     let (nt, nf) = (N_BINS, N_ROWS);
     debug_assert_eq!(z.len(), nt * nf);
@@ -558,6 +569,7 @@ fn tile_sigma_floor(bin_s: f64, sigma_tile_s: f64) -> f64 {
 
 /// Solve a 3 × 3 symmetric system by Gaussian elimination with partial
 /// pivoting; None when singular.
+#[allow(clippy::needless_range_loop)]
 fn solve3(mut m: [[f64; 3]; 3], mut v: [f64; 3]) -> Option<[f64; 3]> {
     for col in 0..3 {
         let p = (col..3).max_by(|&a, &b| m[a][col].abs().total_cmp(&m[b][col].abs()))?;
