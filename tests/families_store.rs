@@ -240,6 +240,24 @@ fn cluster_recluster_label_assign() {
     assert_eq!((ar.n_assigned + ar.n_novel + ar.n_quiet) as i64, unanswered);
     let m1 = memberships(&conn);
     assert_eq!(m1[&odd_id], (None, true), "far-away trigger is novel");
+    // What `triggers` listings show: family id and label, or the reason.
+    let all_ids: Vec<i64> = conn
+        .prepare("SELECT id FROM triggers")
+        .unwrap()
+        .query_map([], |r| r.get(0))
+        .unwrap()
+        .collect::<rusqlite::Result<_>>()
+        .unwrap();
+    let tf = glitchbook::catalogue::trigger_families(&conn, &all_ids).unwrap();
+    assert_eq!(tf.len(), all_ids.len(), "every target trigger answered");
+    assert_eq!(tf[&odd_id].unclassified.as_deref(), Some("novel"));
+    assert_eq!(tf[&odd_id].family_id, None);
+    assert_eq!(tf[&t400].family_id, Some(fam400));
+    assert_eq!(tf[&t400].family_label.as_deref(), Some("reed"));
+    assert!(tf[&t400].family_probability.unwrap() > 0.5);
+    for f in tf.values() {
+        assert!(f.family_id.is_some() != f.unclassified.is_some(), "{f:?}");
+    }
     let fams = list_families(&conn).unwrap();
     let cand = fams.last().unwrap();
     assert!(cand.novel && cand.id == 0 && cand.example_trigger_ids.contains(&odd_id));
