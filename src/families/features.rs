@@ -711,3 +711,65 @@ impl EnergyMapSource for SineGaussianSource {
         Ok(rows)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Scalars of an analytic sine-Gaussian (no noise) seen as a trigger
+    /// with its own Q and centre frequency.
+    fn scalars(f0: f64, q: f64, drift: f64) -> Vec<f32> {
+        let t0 = 1.0e9 + 10.0;
+        let src = SineGaussianSource {
+            events: vec![(
+                "T".into(),
+                SineGaussian {
+                    t0_gps: t0,
+                    f0_hz: f0,
+                    q,
+                    snr: 20.0,
+                    drift_hz_per_s: drift,
+                },
+            )],
+            noise: false,
+        };
+        let half = 2.0 * sigma_t(q, f0);
+        let trig = Trigger {
+            t_peak: t0,
+            t_start: t0 - half,
+            t_end: t0 + half,
+            f_peak: f0,
+            f_low: f0 * (1.0 - 1.0 / q),
+            f_high: f0 * (1.0 + 1.0 / q),
+            snr: 20.0,
+            q,
+            energy: 201.0,
+        };
+        fingerprint(&trig, "T", &src).unwrap().scalars
+    }
+
+    #[test]
+    fn drift_sign_and_scale_invariance() {
+        // A sine-Gaussian's energy is a Gaussian blob, σ_t σ_f = 1/4π
+        // (Chatterji et al. 2004): no drift, no curvature; the same Q at
+        // three times the frequency has the same shape in tile units.
+        let still = scalars(100.0, 20.0, 0.0);
+        assert!(still[S_DRIFT].abs() < 0.2, "drift {}", still[S_DRIFT]);
+        assert!(still[S_CURVATURE].abs() < 0.2, "{}", still[S_CURVATURE]);
+        let high = scalars(300.0, 20.0, 0.0);
+        for i in [S_LN_FRAC_BW, 5, 6] {
+            assert!(
+                (still[i] - high[i]).abs() < 0.2,
+                "{}: {} vs {}",
+                SCALAR_NAMES[i],
+                still[i],
+                high[i]
+            );
+        }
+        // A linear upward (downward) track: positive (negative) drift.
+        let up = scalars(100.0, 20.0, 1000.0);
+        let down = scalars(100.0, 20.0, -1000.0);
+        assert!(up[S_DRIFT] > 0.5, "up {}", up[S_DRIFT]);
+        assert!(down[S_DRIFT] < -0.5, "down {}", down[S_DRIFT]);
+    }
+}
