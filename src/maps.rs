@@ -21,7 +21,7 @@
 //! Rows that do not fit the channel (above its usable band) are returned as
 //! zero energy.
 
-use crate::families::EnergyMapSource;
+use crate::families::features::{EnergyMapSource, RowEnergies};
 use crate::io::Bundle;
 use crate::scan::{Conditioner, NpyChannel, ResolvedParams, SampleSource};
 use crate::segments::SegmentList;
@@ -36,8 +36,11 @@ use std::sync::{Arc, Mutex, OnceLock};
 /// Extra padding beyond the scan's, so the longest map window (16 s) fits
 /// inside a block's kept part \[s\].
 const MAP_MARGIN_S: f64 = 8.0;
-/// Raised-cosine taper at each end of a map window \[s\].
-const TAPER_S: f64 = 0.5;
+/// Raised-cosine taper at each end of a map window: four tile σ_t of the
+/// lowest row, within these bounds \[s\].
+const MIN_TAPER_S: f64 = 1.0 / 32.0;
+/// See [`MIN_TAPER_S`].
+const MAX_TAPER_S: f64 = 0.5;
 /// Whitened blocks kept in memory.
 const CACHE_BLOCKS: usize = 48;
 /// Planned windows (one per channel, Q and window length), and block
@@ -58,19 +61,19 @@ struct WhiteBlock {
     x: Vec<f32>,
 }
 
-/// The plans of a map window: taper, forward FFT and the rows at one Q.
+/// The plans of a map window: taper and forward FFT (the rows, at the
+/// caller's Q and frequencies, are planned per call).
 struct WindowPlan {
     taper: Vec<f32>,
     /// `1 / sqrt(Σ u²)`: scales the window's FFT to unit power per bin.
     unit: f32,
     fft: Arc<dyn RealToComplex<f32>>,
-    rows: QPlan,
 }
 
 type BlockKey = (String, usize, usize);
 /// A block conditioner and the inverse FFT back to a time series.
 type BlockPlan = (Conditioner, Arc<dyn ComplexToReal<f32>>);
-type PlanKey = (String, u64, usize);
+type PlanKey = (String, usize, usize);
 
 /// Energy maps from the bundles recorded in a catalogue's scans.
 pub struct BundleMaps {
@@ -79,6 +82,8 @@ pub struct BundleMaps {
     /// Block conditioners and inverse FFTs per block length.
     conditioners: Mutex<HashMap<(String, usize), Arc<BlockPlan>>>,
     plans: Mutex<HashMap<PlanKey, Arc<WindowPlan>>>,
+    /// Inverse FFTs of the rows (the planner keeps one per length).
+    planner: Mutex<rustfft::FftPlanner<f32>>,
 }
 
 impl BundleMaps {
@@ -130,6 +135,7 @@ impl BundleMaps {
             blocks: Mutex::new(HashMap::new()),
             conditioners: Mutex::new(HashMap::new()),
             plans: Mutex::new(HashMap::new()),
+            planner: Mutex::new(rustfft::FftPlanner::new()),
         })
     }
 
@@ -230,27 +236,21 @@ impl BundleMaps {
         Ok(out)
     }
 
-    /// The taper, FFT and rows for windows of `m` samples at quality `q` on
-    /// `freqs` (cached per channel, Q and length).
+    /// The taper and forward FFT of windows of `m` samples with `taper`
+    /// samples of raised cosine at each end (cached per channel and sizes).
     fn window_plan(
         &self,
         channel: &str,
         cd: &ChannelData,
-        q: f64,
         m: usize,
-        freqs: &[f64],
+        taper: usize,
     ) -> Arc<WindowPlan> {
-        let key = (
-            channel.to_string(),
-            q.to_bits() ^ (freqs.len() as u64).rotate_left(32),
-            m,
-        );
+        let key = (channel.to_string(), m, taper);
         if let Some(hit) = self.plans.lock().expect("cache lock").get(&key) {
             return hit.clone();
         }
-        let fs = cd.src.rate_hz();
-        let p = &cd.params;
-        let taper: Vec<f32> = crate::condition::tukey(m, (TAPER_S * fs).round() as usize)
+        let _ = cd;
+        let taper: Vec<f32> = crate::condition::tukey(m, taper)
             .into_iter()
             .map(|v| v as f32)
             .collect();
@@ -259,15 +259,6 @@ impl BundleMaps {
             taper,
             unit,
             fft: RealFftPlanner::<f32>::new().plan_fft_forward(m),
-            rows: QPlan::single_plane(
-                fs,
-                m,
-                q,
-                freqs,
-                mismatch_step(p.mismatch),
-                (0.5 * p.fmin, 0.9 * p.fmin),
-                &mut rustfft::FftPlanner::new(),
-            ),
         });
         let mut cache = self.plans.lock().expect("cache lock");
         if cache.len() >= CACHE_PLANS {
@@ -279,28 +270,14 @@ impl BundleMaps {
 }
 
 impl EnergyMapSource for BundleMaps {
-    fn energy_map(
+    fn energy_rows(
         &self,
         channel: &str,
         t_center_gps: f64,
         span_s: f64,
         q: f64,
         freqs_hz: &[f64],
-        n_times: usize,
-    ) -> Result<Vec<f32>> {
-        let mut maps = self.energy_maps(channel, t_center_gps, &[span_s], q, freqs_hz, n_times)?;
-        Ok(maps.pop().expect("one span"))
-    }
-
-    fn energy_maps(
-        &self,
-        channel: &str,
-        t_center_gps: f64,
-        spans_s: &[f64],
-        q: f64,
-        freqs_hz: &[f64],
-        n_times: usize,
-    ) -> Result<Vec<Vec<f32>>> {
+    ) -> Result<Vec<Option<RowEnergies>>> {
         let cd = self.channels.get(channel).ok_or_else(|| {
             anyhow!("no scanned data for channel {channel} (imported triggers have no data)")
         })?;
@@ -308,76 +285,61 @@ impl EnergyMapSource for BundleMaps {
         let q = q.clamp(2.0, 128.0);
         let fs = cd.src.rate_hz();
         let block = self.white_block(channel, cd, t_center_gps)?;
-        // Window: the longest span, three tile durations at the lowest row
-        // analysed, and the taper, each side; a power of two of samples.
+        // Window: the span, three tile durations at the lowest row analysed
+        // and a taper of four, each side; a power of two of samples.
         let f_low = freqs_hz
             .iter()
             .copied()
             .fold(f64::INFINITY, f64::min)
             .max(cd.params.fmin);
-        let span_max = spans_s.iter().copied().fold(0.0, f64::max);
-        let half_s = 0.5 * span_max + 3.0 * sigma_t(q, f_low) + TAPER_S;
+        let reach_s = sigma_t(q, f_low);
+        let taper_s = (4.0 * reach_s).clamp(MIN_TAPER_S, MAX_TAPER_S);
+        let half_s = 0.5 * span_s + 3.0 * reach_s + taper_s;
         let m = (((2.0 * half_s * fs).ceil() as usize).next_power_of_two()).min(block.x.len());
-        let plan = self.window_plan(channel, cd, q, m, freqs_hz);
+        let win = self.window_plan(channel, cd, m, (taper_s * fs).round() as usize);
+        let rows = {
+            let mut planner = self.planner.lock().expect("planner lock");
+            QPlan::single_plane(
+                fs,
+                m,
+                q,
+                freqs_hz,
+                mismatch_step(cd.params.mismatch),
+                (0.5 * cd.params.fmin, 0.9 * cd.params.fmin),
+                &mut planner,
+            )
+        };
         let t0 = cd.src.start_gps();
         let ic = ((t_center_gps - t0) * fs).round() as usize;
         let w0 = ic
             .saturating_sub(m / 2)
             .clamp(block.i0, block.i0 + block.x.len() - m);
         let xs = &block.x[w0 - block.i0..w0 - block.i0 + m];
-        let mut input: Vec<f32> = xs.iter().zip(&plan.taper).map(|(x, u)| x * u).collect();
-        let mut spec = plan.fft.make_output_vec();
-        plan.fft
+        let mut input: Vec<f32> = xs.iter().zip(&win.taper).map(|(x, u)| x * u).collect();
+        let mut spec = win.fft.make_output_vec();
+        win.fft
             .process(&mut input, &mut spec)
             .map_err(|e| anyhow!("{channel}: FFT: {e}"))?;
-        spec.iter_mut().for_each(|c| *c *= plan.unit);
+        spec.iter_mut().for_each(|c| *c *= win.unit);
         let tw0 = t0 + w0 as f64 / fs;
-        let mut ws = plan.rows.workspace();
-        let plane_rows = &plan.rows.planes[0].rows;
-        let mut rows: Vec<Option<(Vec<f32>, f64)>> = vec![None; freqs_hz.len()];
-        for (r, row) in plane_rows.iter().enumerate() {
-            if let Some(j) = freqs_hz.iter().position(|&f| f == row.f_hz) {
-                rows[j] = Some(plan.rows.row_energies_expected(0, r, &spec, &mut ws));
+        let mut ws = rows.workspace();
+        let plane_rows = &rows.planes[0].rows;
+        let mut out: Vec<Option<RowEnergies>> = vec![None; freqs_hz.len()];
+        // single_plane keeps the rows that fit, in the order given.
+        let mut r = 0;
+        for (j, &f) in freqs_hz.iter().enumerate() {
+            if r < plane_rows.len() && plane_rows[r].f_hz == f {
+                let (z, dt) = rows.row_energies_expected(0, r, &spec, &mut ws);
+                out[j] = Some(RowEnergies {
+                    t0_gps: tw0,
+                    dt_s: dt,
+                    z,
+                });
+                r += 1;
             }
         }
-        Ok(spans_s
-            .iter()
-            .map(|&span| bin_rows(&rows, tw0, t_center_gps, span, n_times))
-            .collect())
+        Ok(out)
     }
-}
-
-/// Bin row energies `(Z_i, dt)` (tile i at `t0 + i dt`) into `n_times`
-/// equal time bins of `span` centred on `t_center`, row-major
-/// `[time][freq]`: the max over the tiles centred in a bin, or the nearest
-/// tile when the bin is narrower than the tile spacing.
-fn bin_rows(
-    rows: &[Option<(Vec<f32>, f64)>],
-    t0: f64,
-    t_center: f64,
-    span: f64,
-    n_times: usize,
-) -> Vec<f32> {
-    let n_freqs = rows.len();
-    let mut out = vec![0.0f32; n_times * n_freqs];
-    let w = span / n_times as f64;
-    let start = t_center - 0.5 * span;
-    for (j, row) in rows.iter().enumerate() {
-        let Some((z, dt)) = row else { continue };
-        for b in 0..n_times {
-            let (lo, hi) = (start + b as f64 * w, start + (b + 1) as f64 * w);
-            let i_lo = ((lo - t0) / dt).ceil().max(0.0) as usize;
-            let i_hi = (((hi - t0) / dt).ceil().max(0.0) as usize).min(z.len());
-            let v = if i_hi > i_lo {
-                z[i_lo..i_hi].iter().copied().fold(0.0f32, f32::max)
-            } else {
-                let i = (((lo + hi) * 0.5 - t0) / dt).round().max(0.0) as usize;
-                z.get(i).copied().unwrap_or(0.0)
-            };
-            out[b * n_freqs + j] = v;
-        }
-    }
-    out
 }
 
 /// The bundle directory a channel's latest scan read (absolute when the

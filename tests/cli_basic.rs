@@ -39,8 +39,21 @@ fn json_fields_and_values_match_the_csv() {
         .map(|k| k.as_str())
         .collect();
     let mut want = vec![
-        "id", "channel", "t_peak", "t_start", "t_end", "f_peak", "f_low", "f_high", "snr", "q",
+        "id",
+        "channel",
+        "t_peak",
+        "t_start",
+        "t_end",
+        "f_peak",
+        "f_low",
+        "f_high",
+        "snr",
+        "q",
         "energy",
+        "family_id",
+        "family_label",
+        "family_probability",
+        "unclassified",
     ];
     let mut got = keys.clone();
     got.sort();

@@ -25,8 +25,8 @@ mod write;
 
 pub use check::{check, logical_checksum, table_counts, CheckItem, CheckReport};
 pub use query::{
-    analysed_segments, channel_by_name, channels, query_triggers, ChannelRow, TriggerQuery,
-    TriggerRow,
+    analysed_segments, channel_by_name, channels, query_triggers, trigger_families, ChannelRow,
+    TriggerFamily, TriggerQuery, TriggerRow,
 };
 pub use write::{
     import_triggers, insert_channel_scan, insert_scan, record_scans, run_key, upsert_channel,
@@ -53,6 +53,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     (
         "0006_coupling_words",
         include_str!("../../migrations/0006_coupling_words.sql"),
+    ),
+    (
+        "0007_family_reason",
+        include_str!("../../migrations/0007_family_reason.sql"),
     ),
 ];
 

@@ -291,3 +291,52 @@ pub fn analysed_segments(conn: &Connection, channel: &str) -> Result<SegmentList
         .collect::<rusqlite::Result<Vec<_>>>()?;
     Ok(SegmentList::from_segments(segs))
 }
+
+/// A trigger's place in the families: its family (id, label, membership
+/// probability) or why it has none.
+#[derive(Debug, Clone, Default, PartialEq, Serialize)]
+pub struct TriggerFamily {
+    /// Family id (None: in no family).
+    pub family_id: Option<i64>,
+    /// The family's human label, if any.
+    pub family_label: Option<String>,
+    /// Membership probability in that family.
+    pub family_probability: Option<f64>,
+    /// Why the trigger is in no family: `quiet` or `novel` (None for a
+    /// member, or for a trigger never clustered).
+    pub unclassified: Option<String>,
+}
+
+/// The family of each trigger of `ids` that has a `family_members` row.
+///
+/// # Errors
+/// SQLite errors only.
+pub fn trigger_families(
+    conn: &Connection,
+    ids: &[i64],
+) -> Result<std::collections::HashMap<i64, TriggerFamily>> {
+    let mut st = conn.prepare_cached(
+        "SELECT m.family_id, f.label, m.probability, m.novel, m.reason FROM family_members m \
+         LEFT JOIN families f ON f.id = m.family_id WHERE m.trigger_id = ?1",
+    )?;
+    let mut out = std::collections::HashMap::new();
+    for &id in ids {
+        let got = st
+            .query_row([id], |r| {
+                let fam: Option<i64> = r.get(0)?;
+                let novel: i64 = r.get(3)?;
+                let reason: Option<String> = r.get(4)?;
+                Ok(TriggerFamily {
+                    family_id: fam,
+                    family_label: r.get(1)?,
+                    family_probability: if fam.is_some() { r.get(2)? } else { None },
+                    unclassified: reason.or_else(|| (novel == 1).then(|| "novel".to_string())),
+                })
+            })
+            .optional()?;
+        if let Some(f) = got {
+            out.insert(id, f);
+        }
+    }
+    Ok(out)
+}

@@ -129,8 +129,8 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
 fn assign(g: &Global, conn: &mut Connection, src: &BundleMaps) -> Result<ExitCode> {
     let rep = families::assign_new(conn, src)?;
     g.info(&format!(
-        "assigned {} triggers; {} novel",
-        rep.n_assigned, rep.n_novel
+        "assigned {} triggers; {} novel; {} quiet (below the clustering SNR, not placed with confidence)",
+        rep.n_assigned, rep.n_novel, rep.n_quiet
     ));
     Ok(ExitCode::SUCCESS)
 }

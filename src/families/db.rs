@@ -6,7 +6,7 @@
 
 use super::features::{
     blob_to_f32, f32_to_blob, fingerprint, EnergyMapSource, FEATURE_VERSION, MAP_LEN, N_SCALARS,
-    SPANS_S,
+    N_SPANS,
 };
 use super::lineage::{self, EventKind, FamilyStatus, Lineage};
 use super::model::{argmax, component_groups, fit_model, group_resp, median, FamilyModel};
@@ -71,11 +71,18 @@ impl Row {
     }
 }
 
-fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Result<Vec<Row>> {
+/// Target triggers with `min_snr ≤ SNR < max_snr`, by id; with
+/// `only_unassigned`, those without a `family_members` row.
+fn target_triggers_in(
+    conn: &Connection,
+    min_snr: f64,
+    max_snr: f64,
+    only_unassigned: bool,
+) -> Result<Vec<Row>> {
     let sql = format!(
         "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
          t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id \
-         WHERE c.role = 'target' AND t.snr >= ?1 {} ORDER BY t.id",
+         WHERE c.role = 'target' AND t.snr >= ?1 AND t.snr < ?2 {} ORDER BY t.id",
         if only_unassigned {
             "AND NOT EXISTS (SELECT 1 FROM family_members m WHERE m.trigger_id = t.id)"
         } else {
@@ -83,8 +90,12 @@ fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Re
         }
     );
     let mut st = conn.prepare(&sql)?;
-    let rows = st.query_map([min_snr], Row::from_sql)?;
+    let rows = st.query_map([min_snr, max_snr], Row::from_sql)?;
     Ok(rows.collect::<rusqlite::Result<_>>()?)
+}
+
+fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Result<Vec<Row>> {
+    target_triggers_in(conn, min_snr, f64::INFINITY, only_unassigned)
 }
 
 /// Fingerprints of `rows`, computing (in parallel) and storing those missing
@@ -109,7 +120,7 @@ fn ensure_features(
                         blob_to_f32(&m).with_context(|| format!("features of trigger {}", r.id))?;
                     let s =
                         blob_to_f32(&s).with_context(|| format!("features of trigger {}", r.id))?;
-                    (m.len() == SPANS_S.len() * MAP_LEN && s.len() == N_SCALARS).then_some((m, s))
+                    (m.len() == N_SPANS * MAP_LEN && s.len() == N_SCALARS).then_some((m, s))
                 }
                 _ => None,
             });
@@ -194,6 +205,10 @@ pub fn cluster_catalogue(
     let (group_family, events) = store_lineage(&tx, run_id, &lineage)?;
     store_memberships(&tx, run_id, &rows, &fit, &group_family)?;
     model.component_family = fit.groups.iter().map(|&g| group_family[g]).collect();
+    // Quieter triggers: placed where the model is confident, else `quiet`.
+    let quiet = target_triggers_in(&tx, f64::NEG_INFINITY, p.min_snr, false)?;
+    let (qfps, n_quiet_computed) = ensure_features(&tx, &quiet, src)?;
+    let placed = store_placements(&tx, run_id, &model, &quiet, &qfps, "cluster")?;
     tx.execute(
         "UPDATE cluster_runs SET model_json = ?2 WHERE id = ?1",
         params![run_id, serde_json::to_string(&model)?],
@@ -203,7 +218,9 @@ pub fn cluster_catalogue(
     Ok(ClusterReport {
         run_id,
         n_clustered: rows.len(),
-        n_features_computed: n_computed,
+        n_quiet_placed: placed.n_assigned,
+        n_quiet: placed.n_quiet,
+        n_features_computed: n_computed + n_quiet_computed,
         bic: fit.bic,
         events,
         families,
@@ -401,10 +418,84 @@ pub fn latest_model(conn: &Connection) -> Result<Option<(i64, FamilyModel)>> {
     }
 }
 
-/// Place every target trigger (SNR ≥ the model's `min_snr`) that has no
-/// membership yet into a family of the latest model, without refitting;
-/// triggers whose log-likelihood is below the model's novelty threshold are
-/// stored as novel (no family). One transaction.
+/// Membership probability a trigger below the clustering SNR needs to be
+/// placed in a family (else it is unclassified as `quiet`). Common practice
+/// for a mixture's hard assignment with a reject option (Chow 1970, IEEE
+/// Trans. Inf. Theory 16, 41: reject when the largest posterior is below a
+/// threshold); 0.9 chosen here, not tuned.
+pub const QUIET_MIN_PROBABILITY: f64 = 0.9;
+
+/// Place `rows` (fingerprints `fps`) with `model` and store their
+/// memberships (`source` is `cluster` or `assign`): a trigger with SNR ≥
+/// the model's `min_snr` goes to its most probable family unless its
+/// log-likelihood is below the novelty threshold (then `novel`); a quieter
+/// one goes to its most probable family only with probability ≥
+/// [`QUIET_MIN_PROBABILITY`] and a log-likelihood above the threshold,
+/// else it is unclassified as `quiet`.
+fn store_placements(
+    tx: &Transaction,
+    run_id: i64,
+    model: &FamilyModel,
+    rows: &[Row],
+    fps: &Fingerprints,
+    source: &str,
+) -> Result<AssignReport> {
+    let mut rep = AssignReport {
+        n_assigned: 0,
+        n_novel: 0,
+        n_quiet: 0,
+    };
+    if rows.is_empty() {
+        return Ok(rep);
+    }
+    let x = model.vectors(fps);
+    let (cresp, ll) = model.gmm.predict_proba(x.view());
+    // Family index of every component (components of one family summed).
+    let mut fams: Vec<i64> = model.component_family.clone();
+    fams.sort_unstable();
+    fams.dedup();
+    let groups: Vec<usize> = model
+        .component_family
+        .iter()
+        .map(|f| fams.binary_search(f).expect("present"))
+        .collect();
+    let (resp, k) = group_resp(&cresp, model.gmm.k(), &groups);
+    let mut st = tx.prepare(
+        "INSERT INTO family_members (trigger_id, family_id, probability, novel, run_id, source, loglik, reason) \
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
+    )?;
+    for (i, r) in rows.iter().enumerate() {
+        let c = argmax(&resp[i * k..(i + 1) * k]);
+        let prob = resp[i * k + c];
+        let far = ll[i] < model.novelty_loglik;
+        let reason = if r.trig.snr >= model.params.min_snr {
+            far.then_some("novel")
+        } else {
+            (far || prob < QUIET_MIN_PROBABILITY).then_some("quiet")
+        };
+        let fam = reason.is_none().then(|| fams[c]);
+        st.execute(params![
+            r.id,
+            fam,
+            prob,
+            (reason == Some("novel")) as i64,
+            run_id,
+            source,
+            ll[i],
+            reason
+        ])?;
+        match reason {
+            None => rep.n_assigned += 1,
+            Some("novel") => rep.n_novel += 1,
+            Some(_) => rep.n_quiet += 1,
+        }
+    }
+    Ok(rep)
+}
+
+/// Place every target trigger that has no membership yet with the latest
+/// model, without refitting (see `store_placements`: a family, `novel` or
+/// `quiet`). One transaction.
 pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<AssignReport> {
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let Some((run_id, model)) = latest_model(&tx)? else {
@@ -415,48 +506,9 @@ pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<As
         )
         .into());
     };
-    let rows = target_triggers(&tx, model.params.min_snr, true)?;
+    let rows = target_triggers(&tx, f64::NEG_INFINITY, true)?;
     let (fps, _) = ensure_features(&tx, &rows, src)?;
-    let mut rep = AssignReport {
-        n_assigned: 0,
-        n_novel: 0,
-    };
-    if !rows.is_empty() {
-        let x = model.vectors(&fps);
-        let (cresp, ll) = model.gmm.predict_proba(x.view());
-        // Family index of every component (components of one family summed).
-        let mut fams: Vec<i64> = model.component_family.clone();
-        fams.sort_unstable();
-        fams.dedup();
-        let groups: Vec<usize> = model
-            .component_family
-            .iter()
-            .map(|f| fams.binary_search(f).expect("present"))
-            .collect();
-        let (resp, k) = group_resp(&cresp, model.gmm.k(), &groups);
-        let mut st = tx.prepare(
-            "INSERT INTO family_members (trigger_id, family_id, probability, novel, run_id, source, loglik) \
-             VALUES (?1, ?2, ?3, ?4, ?5, 'assign', ?6)",
-        )?;
-        for (i, r) in rows.iter().enumerate() {
-            let c = argmax(&resp[i * k..(i + 1) * k]);
-            let novel = ll[i] < model.novelty_loglik;
-            let fam = (!novel).then(|| fams[c]);
-            st.execute(params![
-                r.id,
-                fam,
-                resp[i * k + c],
-                novel as i64,
-                run_id,
-                ll[i]
-            ])?;
-            if novel {
-                rep.n_novel += 1;
-            } else {
-                rep.n_assigned += 1;
-            }
-        }
-    }
+    let rep = store_placements(&tx, run_id, &model, &rows, &fps, "assign")?;
     tx.commit()?;
     Ok(rep)
 }

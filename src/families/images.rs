@@ -5,8 +5,8 @@
 
 use super::db::{family_member_ids, list_families, trigger_row};
 use super::features::{
-    blob_to_f32, fingerprint, EnergyMapSource, FEATURE_VERSION, F_MAX_HZ, F_MIN_HZ, MAP_LEN,
-    N_FREQS, N_TIMES, SPANS_S,
+    blob_to_f32, fingerprint, EnergyMapSource, MapLayout, FEATURE_VERSION, MAP_LEN, N_FREQS,
+    N_SPANS, N_TIMES,
 };
 use anyhow::{bail, Context, Result};
 use rusqlite::{Connection, OptionalExtension};
@@ -14,6 +14,10 @@ use rusqlite::{Connection, OptionalExtension};
 /// Spectrogram image of one trigger: a 2 s normalised-energy map at the
 /// trigger's Q, 128 times × 64 log-frequencies (16–2048 Hz), 4 × 4 px cells.
 pub const IMAGE_SPAN_S: f64 = 2.0;
+/// Lowest image frequency \[Hz\].
+const IMAGE_F_MIN_HZ: f64 = 16.0;
+/// Highest image frequency \[Hz\].
+const IMAGE_F_MAX_HZ: f64 = 2048.0;
 const IMAGE_TIMES: usize = 128;
 const IMAGE_FREQS: usize = 64;
 
@@ -42,7 +46,7 @@ impl ImageExtent {
 
 /// Write a PNG spectrogram image of one target trigger to `path`: a fresh
 /// high-resolution map from `src` (see [`IMAGE_SPAN_S`]), or, when the data
-/// cannot be read any more, the stored 1 s fingerprint map. Returns what
+/// cannot be read any more, the stored fingerprint map (8 base durations wide). Returns what
 /// the image shows.
 ///
 /// # Errors
@@ -54,7 +58,7 @@ pub fn render_trigger_thumbnail(
     path: &std::path::Path,
 ) -> Result<ImageExtent> {
     if let Ok(Some(row)) = trigger_row(conn, trigger_id) {
-        let freqs = super::features::log_grid(F_MIN_HZ, F_MAX_HZ, IMAGE_FREQS);
+        let freqs = super::features::log_grid(IMAGE_F_MIN_HZ, IMAGE_F_MAX_HZ, IMAGE_FREQS);
         let q = super::features::map_q(&row.trig);
         if let Ok(map) = src.energy_map(
             &row.channel,
@@ -69,6 +73,13 @@ pub fn render_trigger_thumbnail(
             return Ok(ImageExtent::log_rows(IMAGE_SPAN_S, lo, hi, IMAGE_FREQS));
         }
     }
+    let row = trigger_row(conn, trigger_id)?.ok_or_else(|| {
+        crate::Error::not_found(
+            "trigger",
+            trigger_id,
+            format!("no trigger with id {trigger_id}"),
+        )
+    })?;
     let stored: Option<(i64, Vec<u8>)> = conn
         .query_row(
             "SELECT version, maps FROM features WHERE trigger_id = ?1",
@@ -79,30 +90,29 @@ pub fn render_trigger_thumbnail(
     let maps = match stored {
         Some((v, m)) if v == FEATURE_VERSION => blob_to_f32(&m)?,
         _ => {
-            let row = trigger_row(conn, trigger_id)?;
-            let Some(row) = row else {
-                return Err(crate::Error::not_found(
-                    "trigger",
-                    trigger_id,
-                    format!("no trigger with id {trigger_id}"),
-                )
-                .into());
-            };
             fingerprint(&row.trig, &row.channel, src)
                 .with_context(|| format!("fingerprint of trigger {}", row.id))?
                 .maps
         }
     };
-    if maps.len() != SPANS_S.len() * MAP_LEN {
+    if maps.len() != N_SPANS * MAP_LEN {
         bail!(
             "thumbnail: stored maps of trigger {trigger_id} have {} values",
             maps.len()
         );
     }
-    super::thumbnail::render_thumbnail(&maps[MAP_LEN..2 * MAP_LEN], N_TIMES, N_FREQS, path)?;
-    let freqs = super::features::map_freqs_hz();
+    // The third stored span (8 base durations), in the trigger's own frame.
+    const SPAN: usize = 2;
+    super::thumbnail::render_thumbnail(
+        &maps[SPAN * MAP_LEN..(SPAN + 1) * MAP_LEN],
+        N_TIMES,
+        N_FREQS,
+        path,
+    )?;
+    let lay = MapLayout::of(&row.trig);
+    let freqs = lay.map_freqs_hz();
     Ok(ImageExtent::log_rows(
-        SPANS_S[1],
+        lay.spans_s[SPAN],
         freqs[0],
         freqs[N_FREQS - 1],
         N_FREQS,

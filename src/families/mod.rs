@@ -24,16 +24,20 @@
 //! - `label`: [`label`]`(&mut conn, id, name, note, &`[`default_author`]`())`.
 //! - images: [`render_trigger_thumbnail`], [`render_family_thumbnails`].
 //!
-//! Clustering vector: log2 peak frequency and ln Q of the trigger
+//! Clustering vector: log2 peak frequency, ln Q, and the trigger-relative
+//! morphology of its region — ln fractional bandwidth, drift, curvature
 //! ([`model::CLUSTER_SCALARS`]; a column on few levels, such as the peak
-//! frequency on Q-plane rows, or Q from scans that recorded the plane's Q,
-//! is dequantised), z-scored; optionally PCA scores of the peak-normalised
-//! maps ([`ClusterParams::n_map_components`], default 0). SNR is not in the
-//! vector: loudness does not make a family. k is chosen by the BIC of
-//! full-covariance mixtures (on ≤ 20,000 rows), then mixture components
-//! whose memberships overlap by ≥ 0.5 are grouped into one family
-//! ([`model::component_groups`]). Novelty: log-likelihood below the 0.5 %
-//! quantile of the fit data's.
+//! frequency on Q-plane rows, is dequantised), z-scored; optionally PCA
+//! scores of the peak-normalised maps ([`ClusterParams::n_map_components`],
+//! default 0). SNR is not in the vector: loudness does not make a family.
+//! k is chosen by the BIC of full-covariance mixtures (on ≤ 20,000 rows;
+//! ICL on request, [`gmm::Criterion`]), then mixture components whose
+//! memberships overlap by ≥ 0.1 are grouped into one family
+//! ([`model::component_groups`]). Every target trigger gets an answer:
+//! a family with its probability, or unclassified with a reason — `novel`
+//! (log-likelihood below the 0.5 % quantile of the fit data's) or `quiet`
+//! (below `min_snr` and not placed with probability ≥
+//! [`db::QUIET_MIN_PROBABILITY`]).
 
 pub mod db;
 pub mod features;
@@ -114,8 +118,12 @@ pub struct FamilyEvent {
 pub struct ClusterReport {
     /// Catalogue id of the run.
     pub run_id: i64,
-    /// Triggers clustered.
+    /// Triggers clustered (SNR ≥ `min_snr`).
     pub n_clustered: usize,
+    /// Quieter target triggers placed in a family with confidence.
+    pub n_quiet_placed: usize,
+    /// Quieter target triggers left unclassified as `quiet`.
+    pub n_quiet: usize,
     /// Fingerprints computed in this run (others were stored already).
     pub n_features_computed: usize,
     /// `(k, BIC)` for every number of families tried.
@@ -133,6 +141,8 @@ pub struct AssignReport {
     pub n_assigned: usize,
     /// Triggers marked novel.
     pub n_novel: usize,
+    /// Triggers below the clustering SNR left unclassified as `quiet`.
+    pub n_quiet: usize,
 }
 
 /// One entry of a family's label history.

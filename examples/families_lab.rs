@@ -1,0 +1,228 @@
+//! Development aid: write the second scenario (seeds 1–3) and the demo,
+//! scan their target channels, compute fingerprints and dump them with the
+//! truth to CSV for study. `cargo run --release --example families_lab -- DIR`.
+//! `... -- DIR eval` instead clusters copies of those catalogues (scan and
+//! fingerprints reused) and prints the family scores; settings from the
+//! environment: `CRIT` (`bic`/`icl`, default icl), `MORPH` (0: peak
+//! frequency and Q only), `OVERLAP` (component grouping, default 0.5),
+//! `SEED` (default 0).
+use anyhow::Result;
+use glitchbook::catalogue::{self, TriggerQuery};
+use glitchbook::families::features::{fingerprint, SCALAR_NAMES};
+use glitchbook::io::{read_segments_file, Bundle};
+use glitchbook::maps::BundleMaps;
+use glitchbook::scan::{scan_channel, ScanParams};
+use glitchbook::scenario::score::{match_triggers, MatchParams};
+use rayon::prelude::*;
+use std::io::Write;
+use std::path::Path;
+
+fn scan_target(dir: &Path, db: &Path, target: &str, segments: &Path) -> Result<()> {
+    if db.exists() {
+        return Ok(());
+    }
+    let (seg, _) = read_segments_file(segments)?;
+    let bundle = Bundle::open(dir)?;
+    let spec = bundle.channels.iter().find(|c| c.name == target).unwrap();
+    let scan = scan_channel(spec, &ScanParams::default(), Some(&seg), &|_| {})?;
+    let mut conn = catalogue::open(db)?;
+    let tx = conn.transaction()?;
+    catalogue::insert_channel_scan(&tx, &scan, &std::fs::canonicalize(dir)?)?;
+    tx.commit()?;
+    Ok(())
+}
+
+fn dump(db: &Path, target: &str, labels: &[Option<String>], out: &Path) -> Result<()> {
+    let conn = catalogue::open(db)?;
+    let trig = catalogue::query_triggers(
+        &conn,
+        &TriggerQuery {
+            channel: Some(target.into()),
+            ..Default::default()
+        },
+    )?;
+    let src = BundleMaps::from_catalogue(&conn)?;
+    let t = std::time::Instant::now();
+    let fps: Vec<_> = trig
+        .par_iter()
+        .map(|r| fingerprint(&r.to_trigger(), &r.channel, &src))
+        .collect();
+    eprintln!(
+        "{}: {} fingerprints in {:.2} s",
+        db.display(),
+        trig.len(),
+        t.elapsed().as_secs_f64()
+    );
+    let mut f = std::io::BufWriter::new(std::fs::File::create(out)?);
+    write!(f, "id,t_peak,snr,truth")?;
+    for n in SCALAR_NAMES {
+        write!(f, ",{n}")?;
+    }
+    writeln!(f)?;
+    for ((r, fp), lab) in trig.iter().zip(&fps).zip(labels) {
+        let Ok(fp) = fp else { continue };
+        write!(
+            f,
+            "{},{:.4},{:.3},{}",
+            r.id,
+            r.t_peak,
+            r.snr,
+            lab.clone().unwrap_or_default()
+        )?;
+        for v in &fp.scalars {
+            write!(f, ",{v}")?;
+        }
+        writeln!(f)?;
+    }
+    Ok(())
+}
+
+fn env_or<T: std::str::FromStr>(k: &str, d: T) -> T {
+    std::env::var(k)
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(d)
+}
+
+fn eval(base: &Path) -> Result<()> {
+    use glitchbook::families::{self, gmm::Criterion, ClusterParams};
+    let p = ClusterParams {
+        seed: env_or("SEED", 0),
+        criterion: if std::env::var("CRIT").as_deref() == Ok("bic") {
+            Criterion::Bic
+        } else {
+            Criterion::Icl
+        },
+        morphology: env_or("MORPH", 1) == 1,
+        merge_overlap: env_or("OVERLAP", 0.5),
+        ..Default::default()
+    };
+    for seed in [1u64, 2, 3] {
+        let dir = base.join(format!("qm4_s{seed}"));
+        let db = base.join(format!("eval_s{seed}.db"));
+        let _ = std::fs::remove_file(&db);
+        std::fs::copy(dir.join("lab.db"), &db)?;
+        let mut conn = catalogue::open(&db)?;
+        let src = BundleMaps::from_catalogue(&conn)?;
+        let t = std::time::Instant::now();
+        let rep = families::cluster_catalogue(&mut conn, &p, &src)?;
+        let secs = t.elapsed().as_secs_f64();
+        let sc = glitchbook::scenario::score::score_catalogue(
+            &conn,
+            &dir,
+            None,
+            None,
+            &Default::default(),
+        )?;
+        let f = sc.families.clone().expect("families");
+        println!(
+            "qm4 seed {seed}: {} families (k tried {:?}); all: ARI {:.3} hom {:.3} compl {:.3}; in family: ARI {:.3} compl {:.3}; answered {:.3}; quiet placed {} / quiet {} ({secs:.1} s)",
+            rep.families.len(),
+            rep.bic.len(),
+            f.ari_all,
+            f.hcv_all.homogeneity,
+            f.hcv_all.completeness,
+            f.ari_in_family,
+            f.hcv_in_family.completeness,
+            f.answered_fraction,
+            rep.n_quiet_placed,
+            rep.n_quiet
+        );
+        if std::env::var("VERBOSE").is_ok() {
+            print!("{}", sc.render());
+        }
+        // Features stay for the next evaluation.
+        let _ = std::fs::copy(&db, dir.join("lab.db"));
+    }
+    let dir = base.join("demo_s1");
+    let db = base.join("eval_demo.db");
+    let _ = std::fs::remove_file(&db);
+    std::fs::copy(dir.join("lab.db"), &db)?;
+    let mut conn = catalogue::open(&db)?;
+    let src = BundleMaps::from_catalogue(&conn)?;
+    let rep = families::cluster_catalogue(&mut conn, &p, &src)?;
+    let truth = glitchbook::demo::read_truth(&dir.join("truth.csv"))?;
+    let s = glitchbook::pipeline::score_families(&conn, &truth)?;
+    println!(
+        "demo seed 1: {} families, ARI {:.3} over {} matched",
+        rep.families.len(),
+        s.ari,
+        s.n_matched
+    );
+    Ok(())
+}
+
+fn main() -> Result<()> {
+    let base = std::path::PathBuf::from(std::env::args().nth(1).unwrap_or("/tmp/lab".into()));
+    if std::env::args().nth(2).as_deref() == Some("eval") {
+        return eval(&base);
+    }
+    std::fs::create_dir_all(&base)?;
+    for seed in [1u64, 2, 3] {
+        let dir = base.join(format!("qm4_s{seed}"));
+        if !dir.join("truth.csv").exists() {
+            glitchbook::scenario::write_scenario(
+                &dir,
+                &glitchbook::scenario::ScenarioOptions {
+                    seed,
+                    ..Default::default()
+                },
+            )?;
+        }
+        let target = glitchbook::scenario::model::TARGET_CHANNEL;
+        let db = dir.join("lab.db");
+        scan_target(&dir, &db, target, &dir.join("segments.txt"))?;
+        let truth = glitchbook::scenario::truth::read_truth(&dir.join("truth.csv"))?;
+        let conn = catalogue::open(&db)?;
+        let trig = catalogue::query_triggers(
+            &conn,
+            &TriggerQuery {
+                channel: Some(target.into()),
+                ..Default::default()
+            },
+        )?;
+        let m = match_triggers(&truth, &trig, &MatchParams::default());
+        let labels: Vec<Option<String>> = m
+            .per_trigger
+            .iter()
+            .map(|k| k.map(|k| truth[k].mechanism.clone()))
+            .collect();
+        drop(conn);
+        dump(&db, target, &labels, &base.join(format!("qm4_s{seed}.csv")))?;
+    }
+    // The demo.
+    let dir = base.join("demo_s1");
+    if !dir.join("truth.csv").exists() {
+        glitchbook::demo::write_scenario(
+            &dir,
+            &glitchbook::demo::DemoOptions {
+                seed: 1,
+                hours: 2.0,
+            },
+        )?;
+    }
+    let target = glitchbook::demo::TARGET_CHANNEL;
+    let db = dir.join("lab.db");
+    scan_target(&dir, &db, target, &dir.join("segments.txt"))?;
+    let truth = glitchbook::demo::read_truth(&dir.join("truth.csv"))?;
+    let conn = catalogue::open(&db)?;
+    let trig = catalogue::query_triggers(
+        &conn,
+        &TriggerQuery {
+            channel: Some(target.into()),
+            ..Default::default()
+        },
+    )?;
+    let labels: Vec<Option<String>> = trig
+        .iter()
+        .map(|t| {
+            truth
+                .iter()
+                .find(|g| (g.t_peak_gps - t.t_peak).abs() <= 0.1)
+                .map(|g| g.family.clone())
+        })
+        .collect();
+    drop(conn);
+    dump(&db, target, &labels, &base.join("demo_s1.csv"))?;
+    Ok(())
+}
