@@ -13,7 +13,7 @@
 //! `i × L / (K + 1)`, i = 1..K, for a ring of length L; K shrinks when the
 //! spacing would not exceed twice the largest window plus the longest aux
 //! extent (then no slid aux trigger can still meet its own partner). All
-//! slides are counted in one pass (see [`run_slides`]).
+//! slides are counted in one pass (see `run_slides`).
 //!
 //! # What comes out
 //! For each (set, cell) the count of the cell's basis in every slide, hence

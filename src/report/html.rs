@@ -1,4 +1,13 @@
 //! Rendering [`ReportData`] to a static site.
+//!
+//! HTML is written with `write!` and every piece of user text (labels,
+//! notes, channel names, parameters) goes through [`html_escape`]; numbers
+//! are formatted here. Not a template engine: the page is one function per
+//! section with loops over rows, which a template would only move into
+//! another file, and a compile-time-checked engine adds a proc-macro crate
+//! to every build on this 2-core machine. What keeps it safe is tested, not
+//! assumed: `reliability_injection` stores `<script>` and quotes in every
+//! user-text field and `report_html` checks the page escapes them.
 
 use super::gather::{ExampleTrigger, ProposalRow, ReportData, VetoRow, WitnessRow};
 use super::plots::{self, family_colour, TfPoint};
