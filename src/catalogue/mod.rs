@@ -87,6 +87,19 @@ pub fn gps_range_message(t: f64) -> String {
     format!("{t} s is outside the GPS times glitchbook stores (|t| ≤ 9e9 s)")
 }
 
+/// [`crate::Error::InvalidParameter`] naming `field` when `t` is not a
+/// GPS time the catalogue can store (see [`gps_ok`]).
+///
+/// # Errors
+/// As said.
+pub fn check_gps(field: &str, t: f64) -> crate::Result<()> {
+    if gps_ok(t) {
+        Ok(())
+    } else {
+        Err(crate::Error::invalid(field, gps_range_message(t)))
+    }
+}
+
 /// GPS seconds → integer nanoseconds (rounded).
 ///
 /// Whole and fractional seconds are converted separately so no precision is
@@ -100,9 +113,7 @@ pub fn gps_range_message(t: f64) -> String {
 /// checked where they are read (with their file and line); this is the
 /// last guard.
 pub fn to_ns(t_gps: f64) -> crate::Result<i64> {
-    if !gps_ok(t_gps) {
-        return Err(crate::Error::invalid("gps_time", gps_range_message(t_gps)));
-    }
+    check_gps("gps_time", t_gps)?;
     let whole = t_gps.floor();
     let frac = t_gps - whole; // exact (Sterbenz)
     Ok((whole as i64) * 1_000_000_000 + (frac * 1e9).round() as i64)
@@ -125,6 +136,20 @@ pub fn open(path: &Path) -> Result<Connection> {
     let mut conn =
         Connection::open(path).with_context(|| format!("opening catalogue {}", path.display()))?;
     conn.busy_timeout(std::time::Duration::from_secs(60))?;
+    schema_of(&conn, path)?;
+    conn.pragma_update(None, "journal_mode", "WAL")?;
+    conn.pragma_update(None, "foreign_keys", "ON")?;
+    conn.pragma_update(None, "synchronous", "NORMAL")?;
+    // 64 MiB page cache (negative = KiB): large imports keep both trigger
+    // indexes in memory instead of spilling pages mid-transaction.
+    conn.pragma_update(None, "cache_size", -65536)?;
+    migrate(&mut conn).with_context(|| format!("upgrading catalogue {}", path.display()))?;
+    Ok(conn)
+}
+
+/// The catalogue's schema version (`PRAGMA user_version`), refusing a
+/// catalogue written by a newer glitchbook and a file SQLite cannot read.
+fn schema_of(conn: &Connection, path: &Path) -> Result<i64> {
     let version: i64 = conn
         .query_row("PRAGMA user_version", [], |r| r.get(0))
         .with_context(|| {
@@ -141,14 +166,7 @@ pub fn open(path: &Path) -> Result<Connection> {
         }
         .into());
     }
-    conn.pragma_update(None, "journal_mode", "WAL")?;
-    conn.pragma_update(None, "foreign_keys", "ON")?;
-    conn.pragma_update(None, "synchronous", "NORMAL")?;
-    // 64 MiB page cache (negative = KiB): large imports keep both trigger
-    // indexes in memory instead of spilling pages mid-transaction.
-    conn.pragma_update(None, "cache_size", -65536)?;
-    migrate(&mut conn).with_context(|| format!("upgrading catalogue {}", path.display()))?;
-    Ok(conn)
+    Ok(version)
 }
 
 /// Open an existing catalogue (as [`open`]), refusing to create a new one.
@@ -194,15 +212,7 @@ pub fn open_read_only(path: &Path) -> Result<Connection> {
     let flags = OpenFlags::SQLITE_OPEN_READ_ONLY
         | OpenFlags::SQLITE_OPEN_URI
         | OpenFlags::SQLITE_OPEN_NO_MUTEX;
-    let version_of = |conn: &Connection| -> Result<i64> {
-        conn.query_row("PRAGMA user_version", [], |r| r.get(0))
-            .with_context(|| {
-                format!(
-                    "{}: not a glitchbook catalogue (SQLite could not read it)",
-                    path.display()
-                )
-            })
-    };
+    let version_of = |conn: &Connection| schema_of(conn, path);
     let plain = Connection::open_with_flags(path, flags)
         .with_context(|| format!("opening catalogue {} read-only", path.display()));
     let (conn, version) = match plain.and_then(|c| {
@@ -223,14 +233,6 @@ pub fn open_read_only(path: &Path) -> Result<Connection> {
             }
         }
     };
-    if version > schema_version() {
-        return Err(crate::Error::SchemaTooNew {
-            path: path.to_path_buf(),
-            found: version,
-            supported: schema_version(),
-        }
-        .into());
-    }
     if version < schema_version() {
         drop(conn);
         // Upgrading writes: only when the file can be written.

@@ -126,11 +126,8 @@ impl TriggerQuery {
             }
         }
         for (field, v) in [("since", self.since), ("until", self.until)] {
-            if let Some(x) = v.filter(|&x| !crate::catalogue::gps_ok(x)) {
-                return Err(Error::invalid(
-                    field,
-                    crate::catalogue::gps_range_message(x),
-                ));
+            if let Some(x) = v {
+                crate::catalogue::check_gps(field, x)?;
             }
         }
         if let (Some(a), Some(b)) = (self.since, self.until) {

@@ -129,11 +129,8 @@ impl RateParams {
                     format!("must be a finite number, got {x}"),
                 ));
             }
-            if let Some(x) = t.filter(|&x| !crate::catalogue::gps_ok(x)) {
-                return Err(Error::invalid(
-                    field,
-                    crate::catalogue::gps_range_message(x),
-                ));
+            if let Some(x) = t {
+                crate::catalogue::check_gps(field, x)?;
             }
         }
         if let (Some(a), Some(b)) = (self.since_gps, self.until_gps) {
