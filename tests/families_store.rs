@@ -21,14 +21,38 @@ const KINDS: [(f64, f64, f64); 4] = [
     (1200.0, 8.0, 0.0),
 ];
 
-struct World {
-    src: SineGaussianSource,
+/// Synthetic triggers with their true kind (shared with families_edits
+/// and families_classify).
+pub struct World {
+    /// The data source of the fingerprints.
+    pub src: SineGaussianSource,
     /// trigger id -> true family index
-    truth: HashMap<i64, usize>,
+    pub truth: HashMap<i64, usize>,
     next_t: f64,
 }
 
-fn setup(conn: &Connection) {
+impl World {
+    /// An empty world with noise.
+    pub fn new() -> World {
+        World {
+            src: SineGaussianSource {
+                events: vec![],
+                noise: true,
+            },
+            truth: HashMap::new(),
+            next_t: 1.0e9,
+        }
+    }
+}
+
+impl Default for World {
+    fn default() -> World {
+        World::new()
+    }
+}
+
+/// One target channel and one scan.
+pub fn setup(conn: &Connection) {
     conn.execute(
         "INSERT INTO channels (id, name, role, rate_hz) VALUES (1, 'TST:STRAIN', 'target', 4096)",
         [],
@@ -43,7 +67,7 @@ fn setup(conn: &Connection) {
 }
 
 /// Add `n` triggers per family (and a few quiet ones below SNR 7).
-fn add(conn: &Connection, w: &mut World, n: usize, seed: u64) {
+pub fn add(conn: &Connection, w: &mut World, n: usize, seed: u64) {
     let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(seed);
     let jit = LogNormal::new(0.0, 0.08).unwrap();
     let snr_d = LogNormal::new(2.7, 0.35).unwrap();
@@ -81,7 +105,8 @@ fn add(conn: &Connection, w: &mut World, n: usize, seed: u64) {
     }
 }
 
-fn memberships(conn: &Connection) -> HashMap<i64, (Option<i64>, bool)> {
+/// trigger id -> (family, novel).
+pub fn memberships(conn: &Connection) -> HashMap<i64, (Option<i64>, bool)> {
     let mut st = conn
         .prepare("SELECT trigger_id, family_id, novel FROM family_members")
         .unwrap();

@@ -29,12 +29,16 @@ mod rates_limits;
 mod report_html;
 
 mod demo_scenario;
+/// The classifier by label: against scikit-learn, and in a catalogue.
+mod families_classify;
 /// Families clustering core against scikit-learn / Iris references.
 mod families_core;
 /// Families on the demo scenario: ground truth and stable ids (issue 3).
 mod families_demo;
+/// The scientists' edits of families (merge, split, move) and re-clustering.
+mod families_edits;
 /// Families in a catalogue: cluster, stable ids, labels, assignment.
-mod families_store;
+pub mod families_store;
 /// The second scenario (invented site QM4): determinism, truth
 /// consistency, metrics vs scikit-learn, a short end-to-end smoke run.
 mod scenario_qm4;

@@ -58,6 +58,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0007_family_reason",
         include_str!("../../migrations/0007_family_reason.sql"),
     ),
+    (
+        "0008_family_edits_classifier",
+        include_str!("../../migrations/0008_family_edits_classifier.sql"),
+    ),
 ];
 
 /// Schema version this build writes.

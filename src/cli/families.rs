@@ -1,5 +1,7 @@
-//! `glitchbook cluster | assign | families | label | thumbnail`: families of
-//! target-channel triggers.
+//! `glitchbook cluster | assign | families | label | merge-families |
+//! split-family | move-triggers | history | classify | thumbnail`: families
+//! of target-channel triggers, the scientists' edits of them, and the
+//! classifier that learns their labels.
 //!
 //! Fingerprints need the data: `cluster`, `assign` and `thumbnail` reopen the
 //! bundles recorded by the scans (`scans.source_path`), so bundles must stay
@@ -7,7 +9,8 @@
 use super::Global;
 use anyhow::{bail, Result};
 use glitchbook::catalogue;
-use glitchbook::families::{self, ClusterParams, FamilySummary};
+use glitchbook::families::classifier::{ClassifierParams, CrossValidation, LabelScore};
+use glitchbook::families::{self, classifier_db, ClusterParams, FamilySummary};
 use glitchbook::maps::BundleMaps;
 use glitchbook::output::{write_rows, Format};
 use glitchbook::rates::{self, RateParams};
@@ -73,6 +76,91 @@ pub struct LabelArgs {
     pub author: Option<String>,
 }
 
+/// Merge one family into another (history kept; later `cluster` runs keep it).
+#[derive(Debug, clap::Args)]
+pub struct MergeFamiliesArgs {
+    /// The family merged away.
+    pub family: i64,
+    /// The family it joins.
+    #[arg(long, value_name = "FAMILY")]
+    pub into: i64,
+    /// A free-text note.
+    #[arg(long, value_name = "TEXT")]
+    pub note: Option<String>,
+    /// Who edits (default: $USER).
+    #[arg(long, value_name = "NAME")]
+    pub author: Option<String>,
+}
+
+/// Split members of a family into a new family (history kept; later
+/// `cluster` runs keep it).
+#[derive(Debug, clap::Args)]
+pub struct SplitFamilyArgs {
+    /// The family split.
+    pub family: i64,
+    /// Trigger ids moved to the new family (see `triggers --format json`).
+    #[arg(required = true, num_args = 1..)]
+    pub trigger_ids: Vec<i64>,
+    /// Label of the new family.
+    #[arg(long, value_name = "NAME")]
+    pub label: Option<String>,
+    /// A free-text note.
+    #[arg(long, value_name = "TEXT")]
+    pub note: Option<String>,
+    /// Who edits (default: $USER).
+    #[arg(long, value_name = "NAME")]
+    pub author: Option<String>,
+}
+
+/// Move triggers into a family (history kept; later `cluster` runs keep it).
+#[derive(Debug, clap::Args)]
+pub struct MoveTriggersArgs {
+    /// Trigger ids.
+    #[arg(required = true, num_args = 1..)]
+    pub trigger_ids: Vec<i64>,
+    /// Destination family.
+    #[arg(long, value_name = "FAMILY")]
+    pub to: i64,
+    /// A free-text note.
+    #[arg(long, value_name = "TEXT")]
+    pub note: Option<String>,
+    /// Who edits (default: $USER).
+    #[arg(long, value_name = "NAME")]
+    pub author: Option<String>,
+}
+
+/// A family's history: label changes, clustering events and edits (JSON).
+#[derive(Debug, clap::Args)]
+pub struct HistoryArgs {
+    /// Family id.
+    pub family: i64,
+}
+
+/// Train a classifier by label on the labelled families' members, print its
+/// cross-validated confusion matrix and per-label precision/recall, and
+/// classify every clustered target trigger (`assign` then classifies new ones).
+#[derive(Debug, clap::Args)]
+pub struct ClassifyArgs {
+    /// A trigger gets a label only with at least this probability.
+    #[arg(long, default_value_t = 0.8, value_name = "P")]
+    pub min_probability: f64,
+    /// L2 penalty weight of the logistic regression.
+    #[arg(long, default_value_t = 1.0, value_name = "ALPHA")]
+    pub alpha: f64,
+    /// Linear features only (default: with squares and pairwise products).
+    #[arg(long)]
+    pub linear: bool,
+    /// Cross-validation folds.
+    #[arg(long, default_value_t = 5, value_name = "K")]
+    pub folds: usize,
+    /// Seed of the fold assignment.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Output format of the per-label table (JSON: the whole report).
+    #[arg(long, value_enum, default_value_t = Format::Table)]
+    pub format: Format,
+}
+
 /// Write a PNG spectrogram image of one trigger.
 #[derive(Debug, clap::Args)]
 pub struct ThumbnailArgs {
@@ -132,6 +220,12 @@ fn assign(g: &Global, conn: &mut Connection, src: &BundleMaps) -> Result<ExitCod
         "assigned {} triggers; {} novel; {} quiet (below the clustering SNR, not placed with confidence)",
         rep.n_assigned, rep.n_novel, rep.n_quiet
     ));
+    if rep.n_class_labelled + rep.n_class_unclassified > 0 {
+        g.info(&format!(
+            "classifier: {} labelled, {} left unclassified",
+            rep.n_class_labelled, rep.n_class_unclassified
+        ));
+    }
     Ok(ExitCode::SUCCESS)
 }
 
@@ -162,12 +256,43 @@ struct FamilyRow {
     note: String,
 }
 
-/// JSON keeps the contract's fields and adds the rate flag.
+/// JSON keeps the contract's fields and adds the rate flag and, for a
+/// labelled family, the latest classifier's cross-validated figures for
+/// its label.
 #[derive(Debug, Serialize)]
 struct FamilyJson<'a> {
     #[serde(flatten)]
     summary: &'a FamilySummary,
     rate_changed: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    classifier: Option<LabelJson>,
+}
+
+/// The cross-validation of one label: precision, recall, support, and its
+/// row of the confusion matrix (true label → predicted label → count).
+#[derive(Debug, Serialize)]
+struct LabelJson {
+    #[serde(flatten)]
+    score: LabelScore,
+    predicted_as: std::collections::BTreeMap<String, usize>,
+    cv_accuracy: f64,
+    cv_folds: usize,
+}
+
+fn label_json(cv: &CrossValidation, label: &str) -> Option<LabelJson> {
+    let c = cv.labels.iter().position(|l| l == label)?;
+    Some(LabelJson {
+        score: cv.per_label[c].clone(),
+        predicted_as: cv
+            .labels
+            .iter()
+            .cloned()
+            .zip(cv.confusion[c].iter().copied())
+            .filter(|x| x.1 > 0)
+            .collect(),
+        cv_accuracy: cv.accuracy,
+        cv_folds: cv.folds,
+    })
 }
 
 fn print_families(conn: &Connection, format: Format) -> Result<ExitCode> {
@@ -186,11 +311,16 @@ fn print_families(conn: &Connection, format: Format) -> Result<ExitCode> {
     };
     let out = &mut std::io::stdout().lock();
     if format == Format::Json {
+        let cv = classifier_db::latest_classifier(conn)?.map(|c| c.2);
         let rows: Vec<FamilyJson> = fams
             .iter()
             .map(|f| FamilyJson {
                 summary: f,
                 rate_changed: changed.contains(&f.id),
+                classifier: cv
+                    .as_ref()
+                    .zip(f.label.as_deref())
+                    .and_then(|(cv, l)| label_json(cv, l)),
             })
             .collect();
         serde_json::to_writer_pretty(&mut *out, &rows)?;
@@ -239,6 +369,183 @@ pub fn run_label(g: &Global, a: LabelArgs) -> Result<ExitCode> {
     let author = a.author.unwrap_or_else(families::default_author);
     families::label(&mut conn, a.family, &a.name, a.note.as_deref(), &author)?;
     g.info(&format!("family {} labelled {:?}", a.family, a.name));
+    Ok(ExitCode::SUCCESS)
+}
+
+fn author(a: Option<String>) -> String {
+    a.unwrap_or_else(families::default_author)
+}
+
+/// Run `merge-families`.
+pub fn run_merge_families(g: &Global, a: MergeFamiliesArgs) -> Result<ExitCode> {
+    let mut conn = catalogue::open_existing(&g.db)?;
+    let e = families::merge_families(
+        &mut conn,
+        a.family,
+        a.into,
+        &author(a.author),
+        a.note.as_deref(),
+    )?;
+    g.info(&format!(
+        "family {} merged into family {} ({} triggers; edit {})",
+        a.family,
+        a.into,
+        e.trigger_ids.len(),
+        e.id
+    ));
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Run `split-family`.
+pub fn run_split_family(g: &Global, a: SplitFamilyArgs) -> Result<ExitCode> {
+    let mut conn = catalogue::open_existing(&g.db)?;
+    let e = families::split_family(
+        &mut conn,
+        a.family,
+        &a.trigger_ids,
+        a.label.as_deref(),
+        &author(a.author),
+        a.note.as_deref(),
+    )?;
+    let new = e.other_family_id.expect("a split names the new family");
+    g.info(&format!(
+        "{} triggers of family {} split into new family {new} (edit {})",
+        e.trigger_ids.len(),
+        a.family,
+        e.id
+    ));
+    println!("{new}");
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Run `move-triggers`.
+pub fn run_move_triggers(g: &Global, a: MoveTriggersArgs) -> Result<ExitCode> {
+    let mut conn = catalogue::open_existing(&g.db)?;
+    let e = families::move_triggers(
+        &mut conn,
+        &a.trigger_ids,
+        a.to,
+        &author(a.author),
+        a.note.as_deref(),
+    )?;
+    g.info(&format!(
+        "{} triggers moved into family {} (edit {})",
+        e.trigger_ids.len(),
+        a.to,
+        e.id
+    ));
+    Ok(ExitCode::SUCCESS)
+}
+
+/// A family's history for `history`.
+#[derive(Debug, Serialize)]
+struct History {
+    family_id: i64,
+    labels: Vec<families::LabelChange>,
+    runs: Vec<RunEvent>,
+    edits: Vec<families::FamilyEdit>,
+}
+
+/// A clustering run's identity event concerning the family.
+#[derive(Debug, Serialize)]
+struct RunEvent {
+    run_id: i64,
+    #[serde(flatten)]
+    event: families::FamilyEvent,
+}
+
+/// Run `history`.
+pub fn run_history(g: &Global, a: HistoryArgs) -> Result<ExitCode> {
+    let conn = catalogue::open_read_only(&g.db)?;
+    let exists: bool = conn
+        .prepare("SELECT 1 FROM families WHERE id = ?1")?
+        .exists([a.family])?;
+    if !exists {
+        return Err(glitchbook::Error::not_found(
+            "family",
+            a.family,
+            format!("no family with id {}", a.family),
+        )
+        .into());
+    }
+    let h = History {
+        family_id: a.family,
+        labels: families::label_history(&conn, a.family)?,
+        runs: families::family_events(&conn)?
+            .into_iter()
+            .filter(|(_, e)| e.family_id == a.family || e.other_family_id == Some(a.family))
+            .map(|(run_id, event)| RunEvent { run_id, event })
+            .collect(),
+        edits: families::edit_history(&conn, Some(a.family))?,
+    };
+    let out = &mut std::io::stdout().lock();
+    serde_json::to_writer_pretty(&mut *out, &h)?;
+    use std::io::Write;
+    writeln!(out)?;
+    Ok(ExitCode::SUCCESS)
+}
+
+/// One row of the `classify` table: a label's cross-validated figures.
+#[derive(Debug, Default, Serialize)]
+struct ClassRow {
+    label: String,
+    support: usize,
+    precision: f64,
+    recall: f64,
+    predicted_as: String,
+}
+
+/// Run `classify`.
+pub fn run_classify(g: &Global, a: ClassifyArgs) -> Result<ExitCode> {
+    let p = ClassifierParams {
+        alpha: a.alpha,
+        quadratic: !a.linear,
+        min_probability: a.min_probability,
+        folds: a.folds,
+        seed: a.seed,
+        ..Default::default()
+    };
+    p.check()?;
+    let mut conn = catalogue::open_existing(&g.db)?;
+    let rep = classifier_db::train_and_classify(&mut conn, &p)?;
+    let cv = &rep.cross_validation;
+    g.info(&format!(
+        "classifier {}: trained on {} members of {} classes; {}-fold cross-validated accuracy          {:.3}; {} triggers labelled, {} left unclassified",
+        rep.classifier_id,
+        rep.n_train,
+        cv.labels.len(),
+        cv.folds,
+        cv.accuracy,
+        rep.n_labelled,
+        rep.n_unclassified
+    ));
+    let out = &mut std::io::stdout().lock();
+    if a.format == Format::Json {
+        serde_json::to_writer_pretty(&mut *out, &rep)?;
+        use std::io::Write;
+        writeln!(out)?;
+        return Ok(ExitCode::SUCCESS);
+    }
+    let rows: Vec<ClassRow> = cv
+        .per_label
+        .iter()
+        .enumerate()
+        .map(|(c, l)| ClassRow {
+            label: l.label.clone(),
+            support: l.support,
+            precision: l.precision,
+            recall: l.recall,
+            predicted_as: cv
+                .labels
+                .iter()
+                .zip(&cv.confusion[c])
+                .filter(|x| *x.1 > 0)
+                .map(|(name, n)| format!("{name}:{n}"))
+                .collect::<Vec<_>>()
+                .join(" "),
+        })
+        .collect();
+    write_rows(out, a.format, &rows)?;
     Ok(ExitCode::SUCCESS)
 }
 

@@ -87,6 +87,16 @@ pub enum Command {
     Families(families::FamiliesArgs),
     /// Name a family (history kept).
     Label(families::LabelArgs),
+    /// Merge one family into another (history kept, kept by later `cluster` runs).
+    MergeFamilies(families::MergeFamiliesArgs),
+    /// Split triggers of a family into a new family (history kept, kept by later runs).
+    SplitFamily(families::SplitFamilyArgs),
+    /// Move triggers into a family (history kept, kept by later runs).
+    MoveTriggers(families::MoveTriggersArgs),
+    /// A family's history: labels, clustering events, edits (JSON).
+    History(families::HistoryArgs),
+    /// Train a classifier on the families' labels and classify the triggers.
+    Classify(families::ClassifyArgs),
     /// Write a PNG spectrogram image of one trigger.
     Thumbnail(families::ThumbnailArgs),
     /// Write the invented demo scenario and run the whole loop on it.
@@ -126,6 +136,11 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Assign(a) => families::run_assign(g, a),
         Command::Families(a) => families::run_families(g, a),
         Command::Label(a) => families::run_label(g, a),
+        Command::MergeFamilies(a) => families::run_merge_families(g, a),
+        Command::SplitFamily(a) => families::run_split_family(g, a),
+        Command::MoveTriggers(a) => families::run_move_triggers(g, a),
+        Command::History(a) => families::run_history(g, a),
+        Command::Classify(a) => families::run_classify(g, a),
         Command::Thumbnail(a) => families::run_thumbnail(g, a),
         Command::Demo(a) => demo::run(g, a),
         Command::Witnesses(a) => witnesses::run(g, a),

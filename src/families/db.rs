@@ -195,20 +195,21 @@ pub fn cluster_catalogue(
     let (fps, n_computed) = ensure_features(&tx, &rows, src)?;
     let (mut model, fit) = fit_and_group(&fps, p)?;
     let previous = active_memberships(&tx)?;
+    let pins = active_pins(&tx)?;
     let run_id = insert_run(&tx, p, &fit.bic, rows.len(), fit.k)?;
     let members: Vec<(i64, usize)> = rows
         .iter()
         .map(|r| r.id)
         .zip(fit.labels.iter().copied())
         .collect();
-    let lineage = lineage::link(&previous, &members, fit.k);
+    let lineage = lineage::link_pinned(&previous, &members, fit.k, &pins);
     let (group_family, events) = store_lineage(&tx, run_id, &lineage)?;
-    store_memberships(&tx, run_id, &rows, &fit, &group_family)?;
+    store_memberships(&tx, run_id, &rows, &fit, &group_family, &pins)?;
     model.component_family = fit.groups.iter().map(|&g| group_family[g]).collect();
     // Quieter triggers: placed where the model is confident, else `quiet`.
     let quiet = target_triggers_in(&tx, f64::NEG_INFINITY, p.min_snr, false)?;
     let (qfps, n_quiet_computed) = ensure_features(&tx, &quiet, src)?;
-    let placed = store_placements(&tx, run_id, &model, &quiet, &qfps, "cluster")?;
+    let placed = store_placements(&tx, run_id, &model, &quiet, &qfps, "cluster", &pins)?;
     tx.execute(
         "UPDATE cluster_runs SET model_json = ?2 WHERE id = ?1",
         params![run_id, serde_json::to_string(&model)?],
@@ -278,6 +279,19 @@ fn active_memberships(tx: &Transaction) -> Result<HashMap<i64, i64>> {
     Ok(old)
 }
 
+/// Trigger id → family id of every trigger a scientist pinned (by a merge,
+/// split or move) to a family that is still active.
+fn active_pins(tx: &Connection) -> Result<HashMap<i64, i64>> {
+    let mut st = tx.prepare(
+        "SELECT p.trigger_id, p.family_id FROM family_pins p JOIN families f ON f.id = p.family_id \
+         WHERE f.status = ?1",
+    )?;
+    let v = st
+        .query_map([FamilyStatus::Active], |r| Ok((r.get(0)?, r.get(1)?)))?
+        .collect::<rusqlite::Result<_>>()?;
+    Ok(v)
+}
+
 /// Record the run (families reference it); the model is stored at the end.
 fn insert_run(
     tx: &Transaction,
@@ -338,13 +352,22 @@ fn store_lineage(
             EventKind::Kept | EventKind::New | EventKind::Split => {}
         }
     }
+    // Families kept by their pinned members alone: active, no component.
+    for f in &lineage.pinned_only {
+        tx.execute(
+            "UPDATE families SET status = ?3, component = NULL, last_run = ?2 WHERE id = ?1",
+            params![f, run_id, FamilyStatus::Active],
+        )?;
+    }
+    let mut alive = group_family.clone();
+    alive.extend(&lineage.pinned_only);
     // Active families that had no members in this run (all members gone).
     tx.execute(
         "UPDATE families SET status = ?3, component = NULL WHERE status = ?4 AND last_run < ?1 \
          AND id NOT IN (SELECT value FROM json_each(?2))",
         params![
             run_id,
-            serde_json::to_string(&group_family)?,
+            serde_json::to_string(&alive)?,
             FamilyStatus::Retired,
             FamilyStatus::Active
         ],
@@ -372,13 +395,15 @@ fn store_lineage(
 }
 
 /// Replace all memberships by this run's: each trigger in its most probable
-/// group's family, with that probability and its log-likelihood.
+/// group's family, with that probability and its log-likelihood; a pinned
+/// trigger in the family a scientist put it in, with probability 1.
 fn store_memberships(
     tx: &Transaction,
     run_id: i64,
     rows: &[Row],
     fit: &Fit,
     group_family: &[i64],
+    pins: &HashMap<i64, i64>,
 ) -> Result<()> {
     tx.execute("DELETE FROM family_members", [])?;
     let mut st = tx.prepare(
@@ -387,13 +412,11 @@ fn store_memberships(
     )?;
     for (i, r) in rows.iter().enumerate() {
         let c = fit.labels[i];
-        st.execute(params![
-            r.id,
-            group_family[c],
-            fit.resp[i * fit.k + c],
-            run_id,
-            fit.loglik[i]
-        ])?;
+        let (fam, prob) = match pins.get(&r.id) {
+            Some(&f) => (f, 1.0),
+            None => (group_family[c], fit.resp[i * fit.k + c]),
+        };
+        st.execute(params![r.id, fam, prob, run_id, fit.loglik[i]])?;
     }
     Ok(())
 }
@@ -431,7 +454,8 @@ pub const QUIET_MIN_PROBABILITY: f64 = 0.9;
 /// log-likelihood is below the novelty threshold (then `novel`); a quieter
 /// one goes to its most probable family only with probability ≥
 /// [`QUIET_MIN_PROBABILITY`] and a log-likelihood above the threshold,
-/// else it is unclassified as `quiet`.
+/// else it is unclassified as `quiet`. A pinned trigger goes to the family a
+/// scientist put it in (probability 1).
 fn store_placements(
     tx: &Transaction,
     run_id: i64,
@@ -439,11 +463,14 @@ fn store_placements(
     rows: &[Row],
     fps: &Fingerprints,
     source: &str,
+    pins: &HashMap<i64, i64>,
 ) -> Result<AssignReport> {
     let mut rep = AssignReport {
         n_assigned: 0,
         n_novel: 0,
         n_quiet: 0,
+        n_class_labelled: 0,
+        n_class_unclassified: 0,
     };
     if rows.is_empty() {
         return Ok(rep);
@@ -466,14 +493,17 @@ fn store_placements(
     )?;
     for (i, r) in rows.iter().enumerate() {
         let c = argmax(&resp[i * k..(i + 1) * k]);
-        let prob = resp[i * k + c];
+        let mut prob = resp[i * k + c];
         let far = ll[i] < model.novelty_loglik;
-        let reason = if r.trig.snr >= model.params.min_snr {
+        let mut reason = if r.trig.snr >= model.params.min_snr {
             far.then_some("novel")
         } else {
             (far || prob < QUIET_MIN_PROBABILITY).then_some("quiet")
         };
-        let fam = reason.is_none().then(|| fams[c]);
+        let mut fam = reason.is_none().then(|| fams[c]);
+        if let Some(&f) = pins.get(&r.id) {
+            (fam, prob, reason) = (Some(f), 1.0, None);
+        }
         st.execute(params![
             r.id,
             fam,
@@ -495,7 +525,8 @@ fn store_placements(
 
 /// Place every target trigger that has no membership yet with the latest
 /// model, without refitting (see `store_placements`: a family, `novel` or
-/// `quiet`). One transaction.
+/// `quiet`), and classify them by label with the latest classifier, if any
+/// ([`super::classifier_db::classify_triggers`]). One transaction.
 pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<AssignReport> {
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let Some((run_id, model)) = latest_model(&tx)? else {
@@ -508,7 +539,11 @@ pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<As
     };
     let rows = target_triggers(&tx, f64::NEG_INFINITY, true)?;
     let (fps, _) = ensure_features(&tx, &rows, src)?;
-    let rep = store_placements(&tx, run_id, &model, &rows, &fps, "assign")?;
+    let pins = active_pins(&tx)?;
+    let mut rep = store_placements(&tx, run_id, &model, &rows, &fps, "assign", &pins)?;
+    let ids: Vec<i64> = rows.iter().map(|r| r.id).collect();
+    (rep.n_class_labelled, rep.n_class_unclassified) =
+        super::classifier_db::classify_triggers(&tx, &ids)?;
     tx.commit()?;
     Ok(rep)
 }

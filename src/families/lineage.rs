@@ -14,6 +14,15 @@
 //!   them, to one group (it is merged into that group's family);
 //! - **retired**: any other old family not kept.
 //!
+//! Scientists' edits (merge, split, move; [`super::db`]) pin triggers to
+//! families. [`link_pinned`] applies the pins first: a group whose
+//! previously clustered members are at least half pinned to one family
+//! continues that family (so a merge survives a new fit that splits the
+//! merged family again: both parts keep the merged id), and a family holding
+//! pinned triggers stays active even when no group continues it (so a split
+//! survives a fit that joins the parts again: the pinned triggers stay where
+//! the scientist put them).
+//!
 //! New families have no id yet: they are [`FamilyRef::New`] (numbered in the
 //! order they are to be created, group order), and [`Lineage::resolve`]
 //! substitutes the ids the catalogue gave them ([`super::db`] creates them).
@@ -144,9 +153,13 @@ pub struct Lineage {
     /// Number of families to create ([`FamilyRef::New`] 0..n_new, created in
     /// group order).
     pub n_new: usize,
-    /// Events in the order they are recorded: kept (group order), new and
+    /// Events in the order they are recorded: kept (pinned groups, then the
+    /// others, group order), kept by pins alone (ascending id), new and
     /// split (group order), then merge and retired (ascending old id).
     pub events: Vec<Event>,
+    /// Families kept active by pinned triggers alone (no group continues
+    /// them), ascending.
+    pub pinned_only: Vec<i64>,
 }
 
 impl Lineage {
@@ -183,6 +196,23 @@ impl Lineage {
 /// the new run, groups numbered `0..k`. Pure: no catalogue access, same
 /// input → same output.
 pub fn link(previous: &HashMap<i64, i64>, members: &[(i64, usize)], k: usize) -> Lineage {
+    link_pinned(previous, members, k, &HashMap::new())
+}
+
+/// [`link`] keeping the scientists' edits: `pins` maps trigger id → the
+/// family a scientist put it in (every pinned family must be among
+/// `previous`'s). A group whose previously clustered members are at least
+/// half pinned to one family continues it; the other groups are linked as
+/// in [`link`] (the Hungarian assignment may give a pinned group's family
+/// to one more group); a family holding pinned members of this run that no
+/// group continues stays active ([`Lineage::pinned_only`], event `kept`
+/// with the pinned count). Pure.
+pub fn link_pinned(
+    previous: &HashMap<i64, i64>,
+    members: &[(i64, usize)],
+    k: usize,
+    pins: &HashMap<i64, i64>,
+) -> Lineage {
     let mut old_fams: Vec<i64> = previous.values().copied().collect();
     old_fams.sort_unstable();
     old_fams.dedup();
@@ -201,15 +231,45 @@ pub fn link(previous: &HashMap<i64, i64>, members: &[(i64, usize)], k: usize) ->
         }
     }
 
-    // Hungarian assignment maximising overlap.
+    // Pins first: a group mostly pinned to one family continues it.
     let mut group_family: Vec<Option<FamilyRef>> = vec![None; k];
     let mut events = Vec::new();
-    if !old_fams.is_empty() {
-        let cost: Vec<Vec<f64>> = overlap
+    let mut pinned_in: Vec<HashMap<i64, usize>> = vec![HashMap::new(); k];
+    let mut pinned_fams: Vec<i64> = Vec::new();
+    for &(t, c) in members {
+        if let Some(&f) = pins.get(&t) {
+            *pinned_in[c].entry(f).or_default() += 1;
+            pinned_fams.push(f);
+        }
+    }
+    pinned_fams.sort_unstable();
+    pinned_fams.dedup();
+    for c in 0..k {
+        let best = pinned_in[c]
             .iter()
-            .map(|r| r.iter().map(|&o| -(o as f64)).collect())
+            .max_by_key(|(f, n)| (**n, std::cmp::Reverse(**f)))
+            .map(|(f, n)| (*f, *n));
+        if let Some((f, n)) = best {
+            if n as f64 >= 0.5 * group_old[c] as f64 {
+                group_family[c] = Some(FamilyRef::Existing(f));
+                events.push(Event {
+                    kind: EventKind::Kept,
+                    family: FamilyRef::Existing(f),
+                    other: None,
+                    n_shared: n,
+                });
+            }
+        }
+    }
+    // Hungarian assignment maximising overlap, over the groups left.
+    let free: Vec<usize> = (0..k).filter(|&c| group_family[c].is_none()).collect();
+    if !old_fams.is_empty() && !free.is_empty() {
+        let cost: Vec<Vec<f64>> = free
+            .iter()
+            .map(|&c| overlap[c].iter().map(|&o| -(o as f64)).collect())
             .collect();
-        for (c, a) in hungarian::assign(&cost).into_iter().enumerate() {
+        for (i, a) in hungarian::assign(&cost).into_iter().enumerate() {
+            let c = free[i];
             if let Some(j) = a {
                 let o = overlap[c][j];
                 let f = old_fams[j];
@@ -226,6 +286,20 @@ pub fn link(previous: &HashMap<i64, i64>, members: &[(i64, usize)], k: usize) ->
                 }
             }
         }
+    }
+    // Families holding pinned members that no group continues stay active.
+    let pinned_only: Vec<i64> = pinned_fams
+        .iter()
+        .copied()
+        .filter(|&f| !group_family.contains(&Some(FamilyRef::Existing(f))))
+        .collect();
+    for &f in &pinned_only {
+        events.push(Event {
+            kind: EventKind::Kept,
+            family: FamilyRef::Existing(f),
+            other: None,
+            n_shared: pinned_in.iter().filter_map(|m| m.get(&f)).sum(),
+        });
     }
     let mut n_new = 0;
     for c in 0..k {
@@ -257,7 +331,7 @@ pub fn link(previous: &HashMap<i64, i64>, members: &[(i64, usize)], k: usize) ->
     let group_family: Vec<FamilyRef> = group_family.into_iter().map(|f| f.expect("set")).collect();
     // Old families not kept: merged (most members went to one group) or retired.
     for (j, &f) in old_fams.iter().enumerate() {
-        if group_family.contains(&FamilyRef::Existing(f)) {
+        if group_family.contains(&FamilyRef::Existing(f)) || pinned_only.contains(&f) {
             continue;
         }
         let (c, o) = (0..k)
@@ -284,6 +358,7 @@ pub fn link(previous: &HashMap<i64, i64>, members: &[(i64, usize)], k: usize) ->
         group_family,
         n_new,
         events,
+        pinned_only,
     }
 }
 
@@ -430,6 +505,56 @@ mod tests {
                 (EventKind::New, New(0), None, 0),
                 (EventKind::Merge, Existing(9), Some(Existing(8)), 30)
             ]
+        );
+    }
+
+    #[test]
+    fn a_merge_by_hand_survives_a_fit_that_splits_it_again() {
+        // A scientist merged family 2 (10 members) into 1 (30): all of 2's
+        // members are pinned to 1. A new fit separates them again: the
+        // pinned group continues family 1, the other group keeps 1 by
+        // overlap, and no new family appears.
+        let (prev, m) = setup(&[(1, 0..40)], &[(0, 0..30), (1, 30..45)]);
+        let pins: HashMap<i64, i64> = (30..40).map(|t| (t, 1)).collect();
+        let l = link_pinned(&prev, &m, 2, &pins);
+        assert_eq!(l.group_family, vec![Existing(1), Existing(1)]);
+        assert_eq!(l.n_new, 0);
+        assert!(l.pinned_only.is_empty());
+        assert_eq!(
+            kinds(&l),
+            vec![
+                (EventKind::Kept, Existing(1), None, 10),
+                (EventKind::Kept, Existing(1), None, 30)
+            ]
+        );
+        // Without the pins the second group would be a split of family 1.
+        let l0 = link(&prev, &m, 2);
+        assert_eq!(l0.group_family, vec![Existing(1), New(0)]);
+    }
+
+    #[test]
+    fn a_split_by_hand_survives_a_fit_that_joins_it_again() {
+        // A scientist split 12 triggers of family 5 into family 6, pinning
+        // both parts. A new fit makes one group of all of them: it continues
+        // family 5 (most pinned members) and family 6 stays active by its pins.
+        let (prev, m) = setup(&[(5, 0..40), (6, 40..52)], &[(0, 0..60)]);
+        let mut pins: HashMap<i64, i64> = (0..40).map(|t| (t, 5)).collect();
+        pins.extend((40..52).map(|t| (t, 6)));
+        let l = link_pinned(&prev, &m, 1, &pins);
+        assert_eq!(l.group_family, vec![Existing(5)]);
+        assert_eq!(l.pinned_only, vec![6]);
+        assert_eq!(
+            kinds(&l),
+            vec![
+                (EventKind::Kept, Existing(5), None, 40),
+                (EventKind::Kept, Existing(6), None, 12)
+            ]
+        );
+        // Without the pins family 6 would merge into 5.
+        let l0 = link(&prev, &m, 1);
+        assert_eq!(
+            kinds(&l0)[1],
+            (EventKind::Merge, Existing(6), Some(Existing(5)), 12)
         );
     }
 

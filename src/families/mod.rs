@@ -22,6 +22,12 @@
 //! - `families`: [`list_families`]`(&conn)` → `Vec<`[`FamilySummary`]`>`
 //!   (serde; the novel candidate group comes last with `id` 0, `novel` true).
 //! - `label`: [`label`]`(&mut conn, id, name, note, &`[`default_author`]`())`.
+//! - `merge-families`, `split-family`, `move-triggers`: [`merge_families`],
+//!   [`split_family`], [`move_triggers`] ([`edits`]: one transaction each,
+//!   recorded with author and time, pinned so later runs keep them).
+//! - `classify`: [`classifier_db::train_and_classify`] trains a classifier
+//!   by label on the labelled families' members ([`classifier`]) with a
+//!   cross-validated confusion matrix; `assign` then classifies new triggers.
 //! - images: [`render_trigger_thumbnail`], [`render_family_thumbnails`].
 //!
 //! Clustering vector: log2 peak frequency, ln Q, and the trigger-relative
@@ -39,7 +45,10 @@
 //! (below `min_snr` and not placed with probability ≥
 //! [`db::QUIET_MIN_PROBABILITY`]).
 
+pub mod classifier;
+pub mod classifier_db;
 pub mod db;
+pub mod edits;
 pub mod features;
 pub mod gmm;
 pub mod hungarian;
@@ -54,6 +63,7 @@ pub use db::{
     assign_new, cluster_catalogue, compute_features, family_events, family_member_ids, label,
     label_history, latest_model, list_families,
 };
+pub use edits::{edit_history, merge_families, move_triggers, split_family, EditKind, FamilyEdit};
 pub use features::{fingerprint, EnergyMapSource, Fingerprint, SineGaussian, SineGaussianSource};
 pub use images::{
     render_family_thumbnails, render_trigger_thumbnail, report_thumbnails, ImageExtent, Thumbnail,
@@ -143,6 +153,10 @@ pub struct AssignReport {
     pub n_novel: usize,
     /// Triggers below the clustering SNR left unclassified as `quiet`.
     pub n_quiet: usize,
+    /// Triggers the latest classifier gave a label (0 without a classifier).
+    pub n_class_labelled: usize,
+    /// Triggers the latest classifier left without a label.
+    pub n_class_unclassified: usize,
 }
 
 /// One entry of a family's label history.
