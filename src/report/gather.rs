@@ -242,6 +242,8 @@ pub struct ReportData {
     pub proposals: Vec<ProposalRow>,
     /// Whether the coupling tables exist.
     pub has_coupling: bool,
+    /// Cross-validation of the latest classifier by label, if any.
+    pub classifier: Option<crate::families::classifier::CrossValidation>,
 }
 
 /// Gather the report's content.
@@ -395,7 +397,13 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
             proposals = read_proposals(conn, run)?;
         }
     }
+    let classifier = if table_exists(conn, "classifiers")? {
+        crate::families::classifier_db::latest_classifier(conn)?.map(|c| c.2)
+    } else {
+        None
+    };
     Ok(ReportData {
+        classifier,
         params: p.clone(),
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         generated_utc: now_utc(),

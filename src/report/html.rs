@@ -258,6 +258,42 @@ const SPEC_BOX: (f64, f64, f64, f64) = (44.0, 6.0, 320.0, 160.0);
 /// An example spectrogram as inline SVG: the image `img/{name}` inside
 /// axes of time from the peak and log frequency, with the trigger named
 /// below.
+/// The classifier by label: its cross-validated confusion matrix (rows:
+/// the family label, columns: the predicted label) with per-label
+/// precision and recall.
+fn classifier_table(o: &mut String, cv: &crate::families::classifier::CrossValidation) {
+    let _ = writeln!(
+        o,
+        "<h3>Classifier by label</h3>\n<p>Logistic regression trained on the labelled \
+         families' members; {}-fold cross-validated accuracy {} over {} members ({} below the \
+         confidence threshold, which stay unclassified). Rows: the family's label; columns: \
+         the label predicted.</p>",
+        cv.folds,
+        f3(cv.accuracy),
+        cv.n,
+        cv.n_uncertain
+    );
+    o.push_str("<table><tr><th>label</th>");
+    for l in &cv.labels {
+        let _ = write!(o, "<th>{}</th>", html_escape(l));
+    }
+    o.push_str("<th>precision</th><th>recall</th></tr>\n");
+    for (c, row) in cv.confusion.iter().enumerate() {
+        let _ = write!(o, "<tr><td class=\"t\">{}</td>", html_escape(&cv.labels[c]));
+        for n in row {
+            let _ = write!(o, "<td>{n}</td>");
+        }
+        let s = &cv.per_label[c];
+        let _ = writeln!(
+            o,
+            "<td>{}</td><td>{}</td></tr>",
+            f3(s.precision),
+            f3(s.recall)
+        );
+    }
+    o.push_str("</table>\n");
+}
+
 fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
     let (x0, y0, w, h) = SPEC_BOX;
     let (half, (f_lo, f_hi)) = (0.5 * t.extent.span_s, t.extent.f_edges_hz);
@@ -453,6 +489,9 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
             );
         }
         o.push_str("</table>\n");
+    }
+    if let Some(cv) = &d.classifier {
+        classifier_table(&mut o, cv);
     }
     o.push_str(
         "<img class=\"plot\" src=\"img/tf.svg\" alt=\"time-frequency scatter of triggers\">\n",
