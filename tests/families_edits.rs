@@ -202,3 +202,79 @@ fn merge_split_move_survive_reclustering() {
         .count();
     assert!(kind1_in_b >= 180, "{kind1_in_b} kind-1 triggers in {fb}");
 }
+
+/// The commands through the binary: a bad id fails with a one-line error
+/// and leaves the catalogue as it was; `move-triggers`, `history`,
+/// `classify` and the classifier figures in `families --format json`.
+#[test]
+fn edit_and_classify_commands() {
+    let d = crate::cli_util::Dir::new();
+    let mut conn = open(&d.db()).unwrap();
+    setup(&conn);
+    let mut w = World::new();
+    add(&conn, &mut w, 100, 31);
+    let p = ClusterParams {
+        seed: 3,
+        k_max: 7,
+        n_init: 1,
+        ..Default::default()
+    };
+    cluster_catalogue(&mut conn, &p, &w.src).unwrap();
+    let fk = family_of_kind(&conn, &w);
+    label(&mut conn, fk[&0], "low-pulse", None, "tester").unwrap();
+    label(&mut conn, fk[&1], "reed", None, "tester").unwrap();
+    let before = snapshot(&conn);
+    let out = d.run(&["merge-families", &fk[&0].to_string(), "--into", "9999"]);
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("no family with id 9999"), "{err}");
+    assert_eq!(err.trim().lines().count(), 1, "{err}");
+    assert_eq!(snapshot(&conn), before);
+
+    let t = *memberships(&conn)
+        .iter()
+        .find(|(_, v)| v.0 == Some(fk[&2]))
+        .unwrap()
+        .0;
+    d.ok(&[
+        "move-triggers",
+        &t.to_string(),
+        "--to",
+        &fk[&1].to_string(),
+        "--author",
+        "ana",
+    ]);
+    let h: serde_json::Value =
+        serde_json::from_str(&d.ok(&["history", &fk[&1].to_string()])).unwrap();
+    assert_eq!(h["edits"][0]["kind"], "move");
+    assert_eq!(h["edits"][0]["author"], "ana");
+    assert_eq!(h["edits"][0]["trigger_ids"][0], t);
+    assert_eq!(h["labels"][0]["new_label"], "reed");
+
+    let c: serde_json::Value =
+        serde_json::from_str(&d.ok(&["classify", "--format", "json"])).unwrap();
+    assert!(
+        c["cross_validation"]["accuracy"].as_f64().unwrap() >= 0.9,
+        "{c}"
+    );
+    let fams: serde_json::Value =
+        serde_json::from_str(&d.ok(&["families", "--format", "json"])).unwrap();
+    let reed = fams
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["label"] == "reed")
+        .unwrap();
+    assert!(
+        reed["classifier"]["recall"].as_f64().unwrap() >= 0.9,
+        "{reed}"
+    );
+    assert!(reed["classifier"]["predicted_as"]["reed"].as_u64().unwrap() > 50);
+    let unlabelled = fams
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["id"] == fk[&3])
+        .unwrap();
+    assert!(unlabelled.get("classifier").is_none());
+}

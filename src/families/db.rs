@@ -100,60 +100,73 @@ fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Re
 
 /// Fingerprints of `rows`, computing (in parallel) and storing those missing
 /// or of another feature version. Returns (maps, scalars) per row and the
-/// number computed.
+/// number computed. With `need_maps` false the maps are stored but not
+/// returned (empty): a clustering vector without map components needs only
+/// the scalars, and a million maps would take 4 GiB.
 fn ensure_features(
     tx: &Transaction,
     rows: &[Row],
     src: &dyn EnergyMapSource,
+    need_maps: bool,
 ) -> Result<(Fingerprints, usize)> {
     let mut have: Vec<Option<(Vec<f32>, Vec<f32>)>> = Vec::with_capacity(rows.len());
     {
-        let mut st =
-            tx.prepare("SELECT version, maps, scalars FROM features WHERE trigger_id = ?1")?;
+        let mut st = tx.prepare(if need_maps {
+            "SELECT version, scalars, maps FROM features WHERE trigger_id = ?1"
+        } else {
+            "SELECT version, scalars, x'' FROM features WHERE trigger_id = ?1"
+        })?;
         for r in rows {
             let got: Option<(i64, Vec<u8>, Vec<u8>)> = st
                 .query_row([r.id], |row| Ok((row.get(0)?, row.get(1)?, row.get(2)?)))
                 .optional()?;
             have.push(match got {
-                Some((v, m, s)) if v == FEATURE_VERSION => {
+                Some((v, s, m)) if v == FEATURE_VERSION => {
                     let m =
                         blob_to_f32(&m).with_context(|| format!("features of trigger {}", r.id))?;
                     let s =
                         blob_to_f32(&s).with_context(|| format!("features of trigger {}", r.id))?;
-                    (m.len() == N_SPANS * MAP_LEN && s.len() == N_SCALARS).then_some((m, s))
+                    let maps_ok = m.len() == N_SPANS * MAP_LEN || !need_maps;
+                    (maps_ok && s.len() == N_SCALARS).then_some((m, s))
                 }
                 _ => None,
             });
         }
     }
     let todo: Vec<usize> = (0..rows.len()).filter(|&i| have[i].is_none()).collect();
-    type Computed = Result<(usize, Vec<f32>, Vec<f32>)>;
-    let computed: Vec<Computed> = todo
-        .par_iter()
-        .map(|&i| {
-            let fp = fingerprint(&rows[i].trig, &rows[i].channel, src)
-                .with_context(|| format!("fingerprint of trigger {}", rows[i].id))?;
-            Ok((i, fp.maps, fp.scalars))
-        })
-        .collect();
     let mut st = tx.prepare(
         "INSERT OR REPLACE INTO features (trigger_id, version, maps, scalars) VALUES (?1, ?2, ?3, ?4)",
     )?;
-    for c in computed {
-        let (i, m, s) = c?;
-        st.execute(params![
-            rows[i].id,
-            FEATURE_VERSION,
-            f32_to_blob(&m),
-            f32_to_blob(&s)
-        ])?;
-        have[i] = Some((m, s));
+    // In chunks, so at most one chunk of maps is held when they are not needed.
+    type Computed = Result<(usize, Vec<f32>, Vec<f32>)>;
+    for chunk in todo.chunks(FEATURE_CHUNK) {
+        let computed: Vec<Computed> = chunk
+            .par_iter()
+            .map(|&i| {
+                let fp = fingerprint(&rows[i].trig, &rows[i].channel, src)
+                    .with_context(|| format!("fingerprint of trigger {}", rows[i].id))?;
+                Ok((i, fp.maps, fp.scalars))
+            })
+            .collect();
+        for c in computed {
+            let (i, m, s) = c?;
+            st.execute(params![
+                rows[i].id,
+                FEATURE_VERSION,
+                f32_to_blob(&m),
+                f32_to_blob(&s)
+            ])?;
+            have[i] = Some((if need_maps { m } else { Vec::new() }, s));
+        }
     }
     Ok((
         have.into_iter().map(|h| h.expect("filled")).collect(),
         todo.len(),
     ))
 }
+
+/// Fingerprints computed (in parallel) before they are stored.
+const FEATURE_CHUNK: usize = 4096;
 
 /// Compute and store fingerprints of every target trigger with SNR ≥
 /// `min_snr` that lacks a current-version one (one transaction). Returns
@@ -165,7 +178,7 @@ pub fn compute_features(
 ) -> Result<usize> {
     let tx = conn.transaction()?;
     let rows = target_triggers(&tx, min_snr, false)?;
-    let (_, n) = ensure_features(&tx, &rows, src)?;
+    let (_, n) = ensure_features(&tx, &rows, src, false)?;
     tx.commit()?;
     Ok(n)
 }
@@ -192,7 +205,8 @@ pub fn cluster_catalogue(
     p.check()?;
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let rows = target_triggers(&tx, p.min_snr, false)?;
-    let (fps, n_computed) = ensure_features(&tx, &rows, src)?;
+    let need_maps = p.n_map_components > 0;
+    let (fps, n_computed) = ensure_features(&tx, &rows, src, need_maps)?;
     let (mut model, fit) = fit_and_group(&fps, p)?;
     let previous = active_memberships(&tx)?;
     let pins = active_pins(&tx)?;
@@ -208,7 +222,7 @@ pub fn cluster_catalogue(
     model.component_family = fit.groups.iter().map(|&g| group_family[g]).collect();
     // Quieter triggers: placed where the model is confident, else `quiet`.
     let quiet = target_triggers_in(&tx, f64::NEG_INFINITY, p.min_snr, false)?;
-    let (qfps, n_quiet_computed) = ensure_features(&tx, &quiet, src)?;
+    let (qfps, n_quiet_computed) = ensure_features(&tx, &quiet, src, need_maps)?;
     let placed = store_placements(&tx, run_id, &model, &quiet, &qfps, "cluster", &pins)?;
     tx.execute(
         "UPDATE cluster_runs SET model_json = ?2 WHERE id = ?1",
@@ -538,7 +552,8 @@ pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<As
         .into());
     };
     let rows = target_triggers(&tx, f64::NEG_INFINITY, true)?;
-    let (fps, _) = ensure_features(&tx, &rows, src)?;
+    let need_maps = !model.map_pca.components.is_empty();
+    let (fps, _) = ensure_features(&tx, &rows, src, need_maps)?;
     let pins = active_pins(&tx)?;
     let mut rep = store_placements(&tx, run_id, &model, &rows, &fps, "assign", &pins)?;
     let ids: Vec<i64> = rows.iter().map(|r| r.id).collect();
