@@ -73,6 +73,12 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
         out.push(Thumbnail {
             family_id: 1,
             trigger_id: 40 + i64::from(k),
+            channel: if k == 1 {
+                "AV1:AUX-ONE".into()
+            } else {
+                "AV1:STRAIN".into()
+            },
+            witness: k == 1,
             path: p,
             t_peak_gps: T0 + 100.0 * f64::from(k),
             f_peak_hz: 120.0,
@@ -81,6 +87,10 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
             extent: ImageExtent {
                 span_s: 2.0,
                 f_edges_hz: (15.0, 2200.0),
+            },
+            scale: glitchbook::families::ColourScale {
+                z_top: 90.0,
+                z_threshold: Some(16.1),
             },
         });
     }
@@ -144,14 +154,20 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     assert!(lag.contains("t_aux − t_target"), "lag axis label");
     assert!(html.contains("(1 of 2 grid rows;"));
     assert!(html.contains("img/thumb_f1_0.png") && html.contains("img/thumb_f1_1.png"));
-    // Spectrograms are drawn with axes (16..2048 Hz in powers of two inside
-    // 15..2200 Hz), the trigger they show, and one colour scale.
+    // Each image carries its own colour bar (top and threshold marked); the
+    // witness image names the aux channel and the member it stands beside.
+    assert!(html.contains(">90</text>") && html.contains(">thr</text>"));
+    assert!(html.contains("witness AV1:AUX-ONE at trigger 41"));
+    // Spectrograms are drawn with axes (1-2-5 log ticks, 20..2000 Hz inside
+    // 15..2200 Hz), the trigger they show, and a colour bar each.
     assert!(html.contains("time from peak [s]") && html.contains("frequency [Hz]"));
     assert!(
-        html.contains(">16</text>") && html.contains(">2048</text>") && !html.contains(">8</text>")
+        html.contains(">20</text>")
+            && html.contains(">2000</text>")
+            && !html.contains(">10</text>")
     );
-    assert!(html.contains("trigger 41 · GPS"));
-    assert_eq!(html.matches("id=\"zscale\"").count(), 1);
+    assert!(html.contains("trigger 40 · GPS"));
+    assert_eq!(html.matches("id=\"zf1_").count(), 2);
     assert!(html.contains("img/lag_f1_0.svg"));
     assert!(html.contains("Catalogue: ") && html.contains(env!("CARGO_PKG_VERSION")));
     assert!(html.contains("id=\"novel\"") && !html.contains("No trigger was marked novel"));

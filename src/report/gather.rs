@@ -122,6 +122,22 @@ pub struct WitnessRow {
     pub beyond_chance: Option<bool>,
 }
 
+impl ReportData {
+    /// The best witness of each family marked beyond chance: (family id,
+    /// aux channel, window \[s\]); the first such row of the family, the one
+    /// `glitchbook witnesses` lists as its best.
+    pub fn witnessed_families(&self) -> Vec<(i64, String, f64)> {
+        let mut out: Vec<(i64, String, f64)> = Vec::new();
+        for w in &self.witnesses {
+            let Some(f) = w.family_id else { continue };
+            if w.beyond_chance == Some(true) && !out.iter().any(|o| o.0 == f) {
+                out.push((f, w.aux_channel.clone(), w.window_s));
+            }
+        }
+        out
+    }
+}
+
 /// Lag histogram of one (family, aux channel) pair.
 #[derive(Debug, Clone, Serialize)]
 pub struct LagRow {

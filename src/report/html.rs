@@ -12,7 +12,7 @@
 use super::gather::{ExampleTrigger, ProposalRow, ReportData, VetoRow, WitnessRow};
 use super::plots::{self, family_colour, TfPoint};
 use super::VETO_CAUTION;
-use crate::families::thumbnail::{colour, Z_MAX, Z_MIN};
+use crate::families::thumbnail::colour;
 use crate::families::Thumbnail;
 use crate::rates::RateSeries;
 use anyhow::{Context, Result};
@@ -254,41 +254,52 @@ fn blocks_table(o: &mut String, s: &RateSeries) {
 
 /// Plot area of a spectrogram figure: left, top, width, height \[px\].
 const SPEC_BOX: (f64, f64, f64, f64) = (44.0, 6.0, 320.0, 160.0);
+/// What every spectrogram's colour bar means (shown under each family's
+/// images).
+const SPECTROGRAM_LEGEND: &str = "<p class=\"cbar\">Each image spans 8 times the trigger's duration (or one tile at its Q, if longer) and the trigger's own band widened to at least three octaves inside the channel's analysed band. Colour: square root of the normalised energy (mean 1 in Gaussian noise) from 0 to the number at the top of the image's bar, its own peak or the scan threshold if higher; <em>thr</em> marks the scan threshold. A witness image shows the aux channel at the time of the member beside it.</p>\n";
+/// Colour bar of a spectrogram figure: gap after the plot, width \[px\].
+const SPEC_BAR: (f64, f64) = (10.0, 10.0);
 
 /// An example spectrogram as inline SVG: the image `img/{name}` inside
-/// axes of time from the peak and log frequency, with the trigger named
-/// below.
-fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
+/// axes of time from the peak and log frequency, its own colour bar (sqrt
+/// of normalised energy, the scan threshold marked), and what it shows
+/// below. `id` makes the bar's gradient unique on the page.
+fn spectrogram_figure(o: &mut String, name: &str, id: &str, t: &Thumbnail) {
     let (x0, y0, w, h) = SPEC_BOX;
     let (half, (f_lo, f_hi)) = (0.5 * t.extent.span_s, t.extent.f_edges_hz);
     let y_of = |f: f64| y0 + h * (1.0 - (f / f_lo).ln() / (f_hi / f_lo).ln());
+    let what = if t.witness {
+        format!(
+            "witness {} at trigger {}",
+            html_escape(&t.channel),
+            t.trigger_id
+        )
+    } else {
+        format!("trigger {}", t.trigger_id)
+    };
+    let bx = x0 + w + SPEC_BAR.0;
     let _ = write!(
         o,
-        "<figure><svg class=\"spec\" width=\"{}\" height=\"{}\" role=\"img\" aria-label=\"spectrogram of trigger {}\">\
+        "<figure><svg class=\"spec\" width=\"{}\" height=\"{}\" role=\"img\" aria-label=\"spectrogram of {what}\">\
          <image href=\"img/{name}\" x=\"{x0}\" y=\"{y0}\" width=\"{w}\" height=\"{h}\" preserveAspectRatio=\"none\"/>\
          <rect x=\"{x0}\" y=\"{y0}\" width=\"{w}\" height=\"{h}\" fill=\"none\" stroke=\"#888\"/>",
-        x0 + w + 8.0,
+        bx + SPEC_BAR.1 + 40.0,
         y0 + h + 34.0,
-        t.trigger_id
     );
-    // Frequency ticks: powers of two inside the image.
-    let mut f = 2f64.powf(f_lo.log2().ceil());
-    while f <= f_hi {
+    for f in crate::families::thumbnail::log_ticks(f_lo, f_hi) {
         let y = y_of(f);
         let _ = write!(
             o,
             "<line x1=\"{}\" x2=\"{x0}\" y1=\"{y:.1}\" y2=\"{y:.1}\" stroke=\"#444\"/>\
-             <text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">{f:.0}</text>",
+             <text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">{}</text>",
             x0 - 4.0,
             x0 - 6.0,
-            y + 3.5
+            y + 3.5,
+            crate::output::fixed(f, if f < 10.0 { 1 } else { 0 })
         );
-        f *= 2.0;
     }
-    // Time ticks at quarters of the span.
-    for k in 0..=4 {
-        let dt = -half + 0.5 * half * f64::from(k);
-        let x = x0 + w * f64::from(k) / 4.0;
+    for dt in crate::families::thumbnail::linear_ticks(-half, half) {
+        let x = x0 + w * (dt + half) / (2.0 * half);
         let _ = write!(
             o,
             "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"{}\" y2=\"{}\" stroke=\"#444\"/>\
@@ -296,29 +307,14 @@ fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
             y0 + h,
             y0 + h + 4.0,
             y0 + h + 15.0,
-            crate::output::fixed(dt, 2)
+            crate::output::fixed(dt, 3)
         );
     }
-    let _ = writeln!(
+    // Colour bar: the ramp bottom (0) to top (the image's own top).
+    let _ = write!(
         o,
-        "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">time from peak [s]</text>\
-         <text transform=\"translate(10 {:.1}) rotate(-90)\" text-anchor=\"middle\">frequency [Hz]</text></svg>\
-         <figcaption>trigger {} · GPS {:.3} · {:.1} Hz · SNR {:.1} · Q {:.1}</figcaption></figure>",
-        x0 + 0.5 * w,
-        y0 + h + 30.0,
-        y0 + 0.5 * h,
-        t.trigger_id,
-        t.t_peak_gps,
-        t.f_peak_hz,
-        t.snr,
-        t.q
+        "<defs><linearGradient id=\"z{id}\" x1=\"0\" y1=\"1\" x2=\"0\" y2=\"0\">"
     );
-}
-
-/// The colour scale of the spectrograms (normalised energy), as inline SVG.
-fn colour_bar(o: &mut String) {
-    let (x0, w) = (SPEC_BOX.0, SPEC_BOX.2);
-    o.push_str("<svg class=\"cbar\" width=\"420\" height=\"42\" role=\"img\" aria-label=\"colour scale\"><defs><linearGradient id=\"zscale\">");
     for k in 0..=16 {
         let u = f64::from(k) / 16.0;
         let [r, g, b] = colour(u);
@@ -329,22 +325,57 @@ fn colour_bar(o: &mut String) {
     }
     let _ = write!(
         o,
-        "</linearGradient></defs><rect x=\"{x0}\" y=\"4\" width=\"{w}\" height=\"12\" fill=\"url(#zscale)\" stroke=\"#888\"/>"
+        "</linearGradient></defs><rect x=\"{bx}\" y=\"{y0}\" width=\"{}\" height=\"{h}\" fill=\"url(#z{id})\" stroke=\"#888\"/>",
+        SPEC_BAR.1
     );
-    let (z0, z1) = (f64::from(Z_MIN), f64::from(Z_MAX));
-    let mut z = z0;
-    while z <= z1 + 1e-9 {
-        let x = x0 + w * (z - z0) / (z1 - z0);
+    let s = &t.scale;
+    let y_of_z = |z: f64| y0 + h * (1.0 - s.unit(z));
+    let mut marks = vec![
+        (0.0, String::from("0")),
+        (s.z_top, crate::output::fixed(s.z_top, 1)),
+    ];
+    if let Some(zt) = s.z_threshold.filter(|z| *z <= s.z_top) {
+        marks.push((zt, "thr".to_string()));
+    }
+    for (z, label) in marks {
+        let y = y_of_z(z);
+        // A threshold just below the top is labelled under its tick.
+        let text_y = if label == "thr" && y - y0 < 11.0 {
+            y + 11.0
+        } else {
+            y + 3.5
+        };
         let _ = write!(
             o,
-            "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"16\" y2=\"20\" stroke=\"#444\"/><text x=\"{x:.1}\" y=\"30\" text-anchor=\"middle\">{z:.0}</text>"
+            "<line x1=\"{}\" x2=\"{}\" y1=\"{y:.1}\" y2=\"{y:.1}\" stroke=\"#444\"/>\
+             <text x=\"{}\" y=\"{text_y:.1}\">{label}</text>",
+            bx - 3.0,
+            bx + SPEC_BAR.1 + 3.0,
+            bx + SPEC_BAR.1 + 5.0,
         );
-        z += 5.0;
     }
+    let detail = if t.snr.is_finite() {
+        format!(
+            "{} Hz · SNR {:.1} · Q {:.1}",
+            crate::output::fixed(t.f_peak_hz, 1),
+            t.snr,
+            t.q
+        )
+    } else {
+        "no aux trigger near this time".to_string()
+    };
     let _ = writeln!(
         o,
-        "<text x=\"{}\" y=\"40\" text-anchor=\"middle\">normalised energy (mean 1 in Gaussian noise; {z1:.0} and above saturate)</text></svg>",
-        x0 + 0.5 * w
+        "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">time from peak [s]</text>\
+         <text transform=\"translate(10 {:.1}) rotate(-90)\" text-anchor=\"middle\">frequency [Hz]</text>\
+         <text x=\"{}\" y=\"{}\">Z</text></svg>\
+         <figcaption>{what} · GPS {:.3} · {detail}</figcaption></figure>",
+        x0 + 0.5 * w,
+        y0 + h + 30.0,
+        y0 + 0.5 * h,
+        bx,
+        y0 + h + 15.0,
+        t.t_peak_gps,
     );
 }
 
@@ -521,10 +552,10 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
                 let name = format!("thumb_f{}_{k}.png", f.id);
                 std::fs::copy(&t.path, img.join(&name))
                     .with_context(|| format!("copying spectrogram {}", t.path.display()))?;
-                spectrogram_figure(&mut o, &name, t);
+                spectrogram_figure(&mut o, &name, &format!("f{}_{k}", f.id), t);
             }
             o.push_str("</div>\n");
-            colour_bar(&mut o);
+            o.push_str(SPECTROGRAM_LEGEND);
         }
         if !f.examples.is_empty() {
             o.push_str("<h3>Loudest members</h3>\n");
