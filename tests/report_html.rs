@@ -169,14 +169,34 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     assert!(html.contains("trigger 40 · GPS"));
     assert_eq!(html.matches("id=\"zf1_").count(), 2);
     assert!(html.contains("img/lag_f1_0.svg"));
-    assert!(html.contains("Catalogue: ") && html.contains(env!("CARGO_PKG_VERSION")));
+    // Provenance in one line at the top, the parameters as a table at the
+    // end (no raw JSON on the first screen), a table of contents.
+    let params_at = html.find("id=\"parameters\"").unwrap();
+    assert!(params_at > html.find("id=\"novel\"").unwrap());
+    assert!(html[params_at..].contains("<th scope=\"row\">catalogue</th>"));
+    assert!(html.contains(env!("CARGO_PKG_VERSION")) && !html.contains("\"since_gps\""));
+    let toc = &html[html.find("id=\"contents\"").unwrap()..];
+    assert!(toc.find("href=\"#family-3\"").unwrap() < toc.find("</nav>").unwrap());
+    // Families at a glance: best witness with its false alarm, the veto's
+    // efficiency and deadtime in % and seconds, safety; UTC beside GPS.
+    let triage = &html[html.find("id=\"triage\"").unwrap()..];
+    let triage = &triage[..triage.find("</table>").unwrap()];
+    assert!(triage.contains("deadtime [s]") && triage.contains("best witness"));
+    assert!(
+        triage.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"),
+        "{triage}"
+    );
+    assert!(html.contains(&glitchbook::gpstime::utc_label(T0)));
     assert!(html.contains("id=\"novel\"") && !html.contains("No trigger was marked novel"));
     // The late family is flagged in the summary.
     assert!(html.contains("differs from median"));
     // The SVGs are real plotters output with text labels.
     let svg = std::fs::read_to_string(index.parent().unwrap().join("img/rate_f2.svg")).unwrap();
     assert!(
-        svg.starts_with("<svg") && svg.contains("<text") && svg.contains("hours since span start")
+        svg.starts_with("<svg")
+            && svg.contains("<text")
+            && svg.contains("hours since 20")
+            && svg.contains("UTC (GPS")
     );
     let _ = T0;
 }

@@ -41,7 +41,7 @@ impl ReportArgs {
             since_gps: r.since_gps,
             until_gps: r.until_gps,
             min_snr: r.min_snr,
-            bin_s: r.bin_s,
+            bin_s: self.span.bin,
             cl: r.cl,
             p0: r.p0,
             max_examples: self.examples,
