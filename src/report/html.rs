@@ -459,9 +459,11 @@ fn triage_table(o: &mut String, d: &ReportData) {
                     .witnesses
                     .iter()
                     .find(|w| w.family_id == Some(f.id) && &w.aux_channel == aux);
+                let tail = row.and_then(|w| w.false_alarm_basis.as_deref()) == Some("slides_tail");
                 (
                     html_escape(aux),
-                    opt_prob(row.and_then(|w| w.false_alarm.or(Some(w.chance_p)))),
+                    opt_prob(row.and_then(|w| w.false_alarm.or(Some(w.chance_p))))
+                        + if tail { " (tail)" } else { "" },
                 )
             }
             None => ("none beyond chance".to_string(), "-".to_string()),
@@ -488,7 +490,7 @@ fn triage_table(o: &mut String, d: &ReportData) {
             id = f.id
         );
     }
-    o.push_str("</table>\n<p class=\"cbar\"><em>rate now</em>: the latest Bayesian block's rate per live hour, in red when it differs from the family's median block rate (exact Poisson test at the report's confidence level); <em>last change</em>: the latest change point, UTC (GPS s); <em>best witness</em>: the aux channel whose coincidences with the family are beyond chance, with its false-alarm probability over all channels and thresholds compared; <em>veto</em>: the family's veto rounds with their combined efficiency (fraction of the family's triggers removed) and deadtime (fraction and seconds of analysed time), and the worst safety of the rounds against injections.</p>\n");
+    o.push_str("</table>\n<p class=\"cbar\"><em>rate now</em>: the latest Bayesian block's rate per live hour, in red when it differs from the family's median block rate (exact Poisson test at the report's confidence level); <em>last change</em>: the latest change point, UTC (GPS s); <em>best witness</em>: the aux channel whose coincidences with the family are beyond chance, with its false-alarm probability over all channels and thresholds compared (from time slides; <em>(tail)</em>: beyond the slides' resolution, Šidák's correction with the effective number of cells measured on the slides); <em>veto</em>: the family's veto rounds with their combined efficiency (fraction of the family's triggers removed) and deadtime (fraction and seconds of analysed time), and the worst safety of the rounds against injections.</p>\n");
     if d.families.iter().any(|f| family_veto(d, f.id).is_some()) {
         let _ = writeln!(o, "<p class=\"caution\">{}</p>", html_escape(VETO_CAUTION));
     }
