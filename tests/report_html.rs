@@ -300,3 +300,113 @@ fn report_renders_in_headless_chromium() {
         "screenshot looks blank: grey variance {var:.1}"
     );
 }
+
+/// WCAG 2.1 relative luminance of an sRGB colour `#rgb` or `#rrggbb` (W3C
+/// Recommendation 2018, definitions "relative luminance" and "contrast
+/// ratio").
+fn luminance(hex: &str) -> f64 {
+    let h = hex.trim_start_matches('#');
+    let h: String = if h.len() == 3 {
+        h.chars().flat_map(|c| [c, c]).collect()
+    } else {
+        h.to_string()
+    };
+    let ch = |i: usize| {
+        let c = u8::from_str_radix(&h[i..i + 2], 16).unwrap() as f64 / 255.0;
+        if c <= 0.03928 {
+            c / 12.92
+        } else {
+            ((c + 0.055) / 1.055).powf(2.4)
+        }
+    };
+    0.2126 * ch(0) + 0.7152 * ch(2) + 0.0722 * ch(4)
+}
+
+fn contrast(a: &str, b: &str) -> f64 {
+    let (la, lb) = (luminance(a), luminance(b));
+    (la.max(lb) + 0.05) / (la.min(lb) + 0.05)
+}
+
+/// The accessibility pass the report must meet (our equivalent of an
+/// automated checker, from WCAG 2.1): a page language, every image with
+/// alternative text, every SVG figure labelled, headings that never skip a
+/// level going down, and every text colour in the style sheet at contrast
+/// ≥ 4.5 (criterion 1.4.3, level AA) against its own background or, when it
+/// sets none, against each background the page uses.
+fn accessibility_pass(html: &str) {
+    assert!(html.contains("<html lang=\"en\""));
+    for img in html.split("<img ").skip(1) {
+        let tag = &img[..img.find('>').unwrap()];
+        let alt = tag
+            .split("alt=\"")
+            .nth(1)
+            .map(|a| &a[..a.find('"').unwrap()]);
+        assert!(
+            alt.is_some_and(|a| !a.trim().is_empty()),
+            "img without alt: {tag}"
+        );
+    }
+    for svg in html.split("<svg ").skip(1) {
+        let tag = &svg[..svg.find('>').unwrap()];
+        assert!(
+            tag.contains("role=\"img\"") && tag.contains("aria-label=\""),
+            "{tag}"
+        );
+    }
+    let mut last = 0;
+    for (i, _) in html.match_indices("<h") {
+        let Some(level) = html[i + 2..].chars().next().and_then(|c| c.to_digit(10)) else {
+            continue;
+        };
+        assert!(level <= last + 1, "heading h{level} after h{last}");
+        last = level;
+    }
+    let style = &html[html.find("<style>").unwrap() + 7..html.find("</style>").unwrap()];
+    let prop = |body: &str, name: &str| {
+        body.split(';')
+            .find_map(|d| d.trim().strip_prefix(name).map(str::to_string))
+            .filter(|v| v.starts_with('#'))
+    };
+    let rules: Vec<&str> = style
+        .split('}')
+        .filter_map(|r| r.split_once('{').map(|(_, b)| b))
+        .collect();
+    // Text sits on the backgrounds of containers that set no text colour
+    // of their own (a rule setting both is a self-contained pair) and on
+    // the page's own background (the first rule, body).
+    let mut backgrounds: Vec<String> = rules
+        .iter()
+        .filter(|b| prop(b, "color:").is_none())
+        .filter_map(|b| prop(b, "background:"))
+        .collect();
+    backgrounds.extend(rules.iter().find_map(|b| prop(b, "background:")));
+    assert!(backgrounds.len() >= 3, "{backgrounds:?}");
+    let mut checked = 0;
+    for body in &rules {
+        let Some(fg) = prop(body, "color:") else {
+            continue;
+        };
+        let bgs = prop(body, "background:").map_or(backgrounds.clone(), |b| vec![b]);
+        for bg in bgs {
+            let c = contrast(&fg, &bg);
+            assert!(c >= 4.5, "{body}: {fg} on {bg} has contrast {c:.2}");
+            checked += 1;
+        }
+    }
+    assert!(checked >= 5, "{checked}");
+}
+
+#[test]
+fn contrast_reference_values() {
+    // WCAG 2.1: black on white is 21:1; #777777 on white is 4.48:1, just
+    // short of AA (a common worked example; from memory).
+    assert!((contrast("#000", "#ffffff") - 21.0).abs() < 1e-9);
+    assert!((contrast("#777777", "#fff") - 4.48).abs() < 0.01);
+}
+
+#[test]
+fn report_passes_the_accessibility_pass() {
+    let dir = tempfile::tempdir().unwrap();
+    let index = build(dir.path());
+    accessibility_pass(&std::fs::read_to_string(&index).unwrap());
+}
