@@ -11,6 +11,7 @@ pub mod coupling;
 pub mod demo;
 pub mod error;
 pub mod families;
+pub mod gpstime;
 pub mod io;
 pub mod maps;
 pub mod output;

@@ -21,7 +21,7 @@
 //! Rows that do not fit the channel (above its usable band) are returned as
 //! zero energy.
 
-use crate::families::features::{EnergyMapSource, RowEnergies};
+use crate::families::features::{EnergyMapSource, RowEnergies, ScanBand};
 use crate::io::Bundle;
 use crate::scan::{Conditioner, NpyChannel, ResolvedParams, SampleSource};
 use crate::segments::SegmentList;
@@ -280,6 +280,15 @@ impl BundleMaps {
 }
 
 impl EnergyMapSource for BundleMaps {
+    fn scan_band(&self, channel: &str) -> Option<ScanBand> {
+        let p = &self.channels.get(channel)?.params;
+        Some(ScanBand {
+            f_lo_hz: p.fmin,
+            f_hi_hz: p.fmax,
+            z_threshold: crate::trigger::energy_from_snr(p.snr_threshold),
+        })
+    }
+
     fn energy_rows(
         &self,
         channel: &str,

@@ -320,11 +320,6 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
     // 6. Report.
     let t = Instant::now();
     let report_dir = o.out.join("report");
-    let (thumbs, missing) = families::report_thumbnails(&conn, &report_dir)?;
-    if let Some(why) = missing {
-        on_line(DemoLine::Warning(why));
-    }
-    let mut say = |m: String| on_line(DemoLine::Info(m));
     let data = report::gather(
         &conn,
         &ReportParams {
@@ -332,6 +327,12 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
             ..ReportParams::default()
         },
     )?;
+    let (thumbs, missing) =
+        families::report_thumbnails(&conn, &report_dir, &data.witnessed_families())?;
+    if let Some(why) = missing {
+        on_line(DemoLine::Warning(why));
+    }
+    let mut say = |m: String| on_line(DemoLine::Info(m));
     let index = report::write_report(&data, &report_dir, &thumbs)?;
     say(format!(
         "6. report: {} ({:.1} s)",

@@ -260,3 +260,41 @@ fn trigger_csv_export_imports_back_unchanged() {
     let second = e.ok(&["triggers", "--format", "csv"]);
     assert_eq!(first, second);
 }
+
+#[test]
+fn trigger_csv_round_trips_through_import() {
+    // Export → import → export gives the same rows, every digit, each
+    // channel of the `channel` column back as its own channel with its role.
+    let a = Dir::new();
+    a.write(
+        "s.csv",
+        "time,frequency,snr,t_start,t_end,f_low,f_high,q\n\
+         1400000001.123456789,57.123456789,8.987654321,1400000001.1,1400000001.2,40.5,70.25,6.123\n\
+         1400000002.5,120,12.5,1400000002.4,1400000002.6,100,140,11\n",
+    );
+    a.write("x.csv", "time,frequency,snr\n1400000001.13,33.3,6.1\n");
+    a.ok(&[
+        "import",
+        "x.csv",
+        "--channel",
+        "AV1:AUX_ONE",
+        "--role",
+        "aux",
+    ]);
+    a.ok(&["import", "s.csv", "--channel", "AV1:STRAIN"]);
+    let first = a.ok(&["triggers", "--format", "csv"]);
+    let b = Dir::new();
+    b.write("all.csv", &first);
+    // Several channels need the column, not --channel.
+    let out = b.run(&["import", "all.csv", "--channel", "AV1:STRAIN"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("holds 2 channels"));
+    assert!(b.checksum().is_none() || count(&b.db(), "triggers") == 0);
+    b.ok(&["import", "all.csv", "--target", "AV1:STRAIN"]);
+    assert_eq!(b.ok(&["triggers", "--format", "csv"]), first);
+    let channels = b.ok(&["channels", "--format", "csv"]);
+    assert!(
+        channels.contains("AV1:AUX_ONE,aux") && channels.contains("AV1:STRAIN,target"),
+        "{channels}"
+    );
+}

@@ -349,11 +349,33 @@ fn cluster_recluster_label_assign() {
 
     // Thumbnails of representative members.
     let out = dir.path().join("thumbs");
-    let written = render_family_thumbnails(&conn, &w.src, &out, 2).unwrap();
+    let written = render_family_thumbnails(&conn, &w.src, &out, 2, &[]).unwrap();
     assert_eq!(written.len(), 2 * fams2.iter().filter(|f| !f.novel).count());
     assert!(image::open(&written[0].path).is_ok());
-    assert_eq!(written[0].extent.span_s, 2.0);
-    assert!(render_trigger_thumbnail(&conn, 999_999, &w.src, &out.join("x.png")).is_err());
+    // Each image spans 8 base durations of its own trigger (the third
+    // fingerprint span) and tops its colour scale at its own peak.
+    for t in &written {
+        let row = glitchbook::catalogue::query_triggers(
+            &conn,
+            &glitchbook::catalogue::TriggerQuery {
+                since: Some(t.t_peak_gps - 1e-6),
+                until: Some(t.t_peak_gps + 1e-6),
+                ..Default::default()
+            },
+        )
+        .unwrap();
+        let lay = features::MapLayout::of(&row[0].to_trigger());
+        assert!((t.extent.span_s - lay.spans_s[2]).abs() < 1e-9, "{t:?}");
+        assert!(t.scale.z_top >= 2.0 && t.scale.z_threshold.is_none());
+    }
+    assert!(render_trigger_thumbnail(
+        &conn,
+        999_999,
+        &w.src,
+        &out.join("x.png"),
+        ImageStyle::Plate
+    )
+    .is_err());
 }
 
 #[test]

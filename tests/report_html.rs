@@ -73,6 +73,12 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
         out.push(Thumbnail {
             family_id: 1,
             trigger_id: 40 + i64::from(k),
+            channel: if k == 1 {
+                "AV1:AUX-ONE".into()
+            } else {
+                "AV1:STRAIN".into()
+            },
+            witness: k == 1,
             path: p,
             t_peak_gps: T0 + 100.0 * f64::from(k),
             f_peak_hz: 120.0,
@@ -81,6 +87,10 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
             extent: ImageExtent {
                 span_s: 2.0,
                 f_edges_hz: (15.0, 2200.0),
+            },
+            scale: glitchbook::families::ColourScale {
+                z_top: 90.0,
+                z_threshold: Some(16.1),
             },
         });
     }
@@ -144,23 +154,49 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     assert!(lag.contains("t_aux − t_target"), "lag axis label");
     assert!(html.contains("(1 of 2 grid rows;"));
     assert!(html.contains("img/thumb_f1_0.png") && html.contains("img/thumb_f1_1.png"));
-    // Spectrograms are drawn with axes (16..2048 Hz in powers of two inside
-    // 15..2200 Hz), the trigger they show, and one colour scale.
+    // Each image carries its own colour bar (top and threshold marked); the
+    // witness image names the aux channel and the member it stands beside.
+    assert!(html.contains(">90</text>") && html.contains(">thr</text>"));
+    assert!(html.contains("witness AV1:AUX-ONE at trigger 41"));
+    // Spectrograms are drawn with axes (1-2-5 log ticks, 20..2000 Hz inside
+    // 15..2200 Hz), the trigger they show, and a colour bar each.
     assert!(html.contains("time from peak [s]") && html.contains("frequency [Hz]"));
     assert!(
-        html.contains(">16</text>") && html.contains(">2048</text>") && !html.contains(">8</text>")
+        html.contains(">20</text>")
+            && html.contains(">2000</text>")
+            && !html.contains(">10</text>")
     );
-    assert!(html.contains("trigger 41 · GPS"));
-    assert_eq!(html.matches("id=\"zscale\"").count(), 1);
+    assert!(html.contains("trigger 40 · GPS"));
+    assert_eq!(html.matches("id=\"zf1_").count(), 2);
     assert!(html.contains("img/lag_f1_0.svg"));
-    assert!(html.contains("Catalogue: ") && html.contains(env!("CARGO_PKG_VERSION")));
+    // Provenance in one line at the top, the parameters as a table at the
+    // end (no raw JSON on the first screen), a table of contents.
+    let params_at = html.find("id=\"parameters\"").unwrap();
+    assert!(params_at > html.find("id=\"novel\"").unwrap());
+    assert!(html[params_at..].contains("<th scope=\"row\">catalogue</th>"));
+    assert!(html.contains(env!("CARGO_PKG_VERSION")) && !html.contains("\"since_gps\""));
+    let toc = &html[html.find("id=\"contents\"").unwrap()..];
+    assert!(toc.find("href=\"#family-3\"").unwrap() < toc.find("</nav>").unwrap());
+    // Families at a glance: best witness with its false alarm, the veto's
+    // efficiency and deadtime in % and seconds, safety; UTC beside GPS.
+    let triage = &html[html.find("id=\"triage\"").unwrap()..];
+    let triage = &triage[..triage.find("</table>").unwrap()];
+    assert!(triage.contains("deadtime [s]") && triage.contains("best witness"));
+    assert!(
+        triage.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"),
+        "{triage}"
+    );
+    assert!(html.contains(&glitchbook::gpstime::utc_label(T0)));
     assert!(html.contains("id=\"novel\"") && !html.contains("No trigger was marked novel"));
     // The late family is flagged in the summary.
     assert!(html.contains("differs from median"));
     // The SVGs are real plotters output with text labels.
     let svg = std::fs::read_to_string(index.parent().unwrap().join("img/rate_f2.svg")).unwrap();
     assert!(
-        svg.starts_with("<svg") && svg.contains("<text") && svg.contains("hours since span start")
+        svg.starts_with("<svg")
+            && svg.contains("<text")
+            && svg.contains("hours since 20")
+            && svg.contains("UTC (GPS")
     );
     let _ = T0;
 }
@@ -263,4 +299,114 @@ fn report_renders_in_headless_chromium() {
         var > 100.0,
         "screenshot looks blank: grey variance {var:.1}"
     );
+}
+
+/// WCAG 2.1 relative luminance of an sRGB colour `#rgb` or `#rrggbb` (W3C
+/// Recommendation 2018, definitions "relative luminance" and "contrast
+/// ratio").
+fn luminance(hex: &str) -> f64 {
+    let h = hex.trim_start_matches('#');
+    let h: String = if h.len() == 3 {
+        h.chars().flat_map(|c| [c, c]).collect()
+    } else {
+        h.to_string()
+    };
+    let ch = |i: usize| {
+        let c = u8::from_str_radix(&h[i..i + 2], 16).unwrap() as f64 / 255.0;
+        if c <= 0.03928 {
+            c / 12.92
+        } else {
+            ((c + 0.055) / 1.055).powf(2.4)
+        }
+    };
+    0.2126 * ch(0) + 0.7152 * ch(2) + 0.0722 * ch(4)
+}
+
+fn contrast(a: &str, b: &str) -> f64 {
+    let (la, lb) = (luminance(a), luminance(b));
+    (la.max(lb) + 0.05) / (la.min(lb) + 0.05)
+}
+
+/// The accessibility pass the report must meet (our equivalent of an
+/// automated checker, from WCAG 2.1): a page language, every image with
+/// alternative text, every SVG figure labelled, headings that never skip a
+/// level going down, and every text colour in the style sheet at contrast
+/// ≥ 4.5 (criterion 1.4.3, level AA) against its own background or, when it
+/// sets none, against each background the page uses.
+fn accessibility_pass(html: &str) {
+    assert!(html.contains("<html lang=\"en\""));
+    for img in html.split("<img ").skip(1) {
+        let tag = &img[..img.find('>').unwrap()];
+        let alt = tag
+            .split("alt=\"")
+            .nth(1)
+            .map(|a| &a[..a.find('"').unwrap()]);
+        assert!(
+            alt.is_some_and(|a| !a.trim().is_empty()),
+            "img without alt: {tag}"
+        );
+    }
+    for svg in html.split("<svg ").skip(1) {
+        let tag = &svg[..svg.find('>').unwrap()];
+        assert!(
+            tag.contains("role=\"img\"") && tag.contains("aria-label=\""),
+            "{tag}"
+        );
+    }
+    let mut last = 0;
+    for (i, _) in html.match_indices("<h") {
+        let Some(level) = html[i + 2..].chars().next().and_then(|c| c.to_digit(10)) else {
+            continue;
+        };
+        assert!(level <= last + 1, "heading h{level} after h{last}");
+        last = level;
+    }
+    let style = &html[html.find("<style>").unwrap() + 7..html.find("</style>").unwrap()];
+    let prop = |body: &str, name: &str| {
+        body.split(';')
+            .find_map(|d| d.trim().strip_prefix(name).map(str::to_string))
+            .filter(|v| v.starts_with('#'))
+    };
+    let rules: Vec<&str> = style
+        .split('}')
+        .filter_map(|r| r.split_once('{').map(|(_, b)| b))
+        .collect();
+    // Text sits on the backgrounds of containers that set no text colour
+    // of their own (a rule setting both is a self-contained pair) and on
+    // the page's own background (the first rule, body).
+    let mut backgrounds: Vec<String> = rules
+        .iter()
+        .filter(|b| prop(b, "color:").is_none())
+        .filter_map(|b| prop(b, "background:"))
+        .collect();
+    backgrounds.extend(rules.iter().find_map(|b| prop(b, "background:")));
+    assert!(backgrounds.len() >= 3, "{backgrounds:?}");
+    let mut checked = 0;
+    for body in &rules {
+        let Some(fg) = prop(body, "color:") else {
+            continue;
+        };
+        let bgs = prop(body, "background:").map_or(backgrounds.clone(), |b| vec![b]);
+        for bg in bgs {
+            let c = contrast(&fg, &bg);
+            assert!(c >= 4.5, "{body}: {fg} on {bg} has contrast {c:.2}");
+            checked += 1;
+        }
+    }
+    assert!(checked >= 5, "{checked}");
+}
+
+#[test]
+fn contrast_reference_values() {
+    // WCAG 2.1: black on white is 21:1; #777777 on white is 4.48:1, just
+    // short of AA (a common worked example; from memory).
+    assert!((contrast("#000", "#ffffff") - 21.0).abs() < 1e-9);
+    assert!((contrast("#777777", "#fff") - 4.48).abs() < 0.01);
+}
+
+#[test]
+fn report_passes_the_accessibility_pass() {
+    let dir = tempfile::tempdir().unwrap();
+    let index = build(dir.path());
+    accessibility_pass(&std::fs::read_to_string(&index).unwrap());
 }

@@ -74,9 +74,11 @@ impl ScanFlags {
 /// defaults and checks).
 #[derive(Debug, Clone, clap::Args)]
 pub struct RateFlags {
-    /// Bin width [s]; at most 100,000 bins over the span are allowed.
-    #[arg(long, value_name = "SECONDS", default_value_t = 3600.0)]
-    pub bin: f64,
+    /// Bin width [s]; at most 100,000 bins over the span are allowed
+    /// [default: from the span, the widest of 1, 2, 5, 10, 15, 20, 30 min,
+    /// 1, 2, 3, 6, 12 h, 1 day, 1 week giving at least 12 bins].
+    #[arg(long, value_name = "SECONDS")]
+    pub bin: Option<f64>,
     /// Start of the span [GPS s, |T| ≤ 9e9] [default: start of live time].
     #[arg(long, value_name = "T")]
     pub since: Option<f64>,
@@ -99,7 +101,7 @@ impl RateFlags {
     /// the library ([`RateParams::check`]).
     pub fn rate_params(&self) -> Result<RateParams> {
         let p = RateParams {
-            bin_s: self.bin,
+            bin_s: self.bin.unwrap_or(RateParams::default().bin_s),
             since_gps: self.since,
             until_gps: self.until,
             min_snr: self.min_snr,

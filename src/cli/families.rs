@@ -556,16 +556,20 @@ pub fn run_thumbnail(g: &Global, a: ThumbnailArgs) -> Result<ExitCode> {
     }
     let conn = catalogue::open_read_only(&g.db)?;
     let src = maps(&conn)?;
-    let e = families::render_trigger_thumbnail(&conn, a.trigger_id, &src, &a.out)?;
+    let (e, scale) = families::render_trigger_thumbnail(
+        &conn,
+        a.trigger_id,
+        &src,
+        &a.out,
+        families::ImageStyle::Plate,
+    )?;
     g.info(&format!(
-        "wrote {}: time ±{} s around the peak left to right, {:.1}–{:.0} Hz (log) bottom to top, \
-         normalised energy {}–{} dark to light",
+        "wrote {}: time ±{} s around the peak left to right, {:.1}–{:.0} Hz (log) bottom to top; {}",
         a.out.display(),
-        0.5 * e.span_s,
+        glitchbook::output::fixed(0.5 * e.span_s, 4),
         e.f_edges_hz.0,
         e.f_edges_hz.1,
-        families::thumbnail::Z_MIN,
-        families::thumbnail::Z_MAX
+        scale.describe()
     ));
     Ok(ExitCode::SUCCESS)
 }

@@ -7,7 +7,7 @@ use anyhow::Result;
 use glitchbook::catalogue;
 use glitchbook::output::Format;
 use glitchbook::rates::format::render;
-use glitchbook::rates::{rates, RateParams};
+use glitchbook::rates::{auto_bin_s, live_span, rates, RateParams};
 use std::process::ExitCode;
 
 /// Rates over live time (analysed time minus dropouts) in fixed bins, with
@@ -48,8 +48,12 @@ impl RatesArgs {
 
 /// Run the command.
 pub fn run(g: &Global, args: RatesArgs) -> Result<ExitCode> {
-    let p = args.validate()?;
+    let mut p = args.validate()?;
     let conn = catalogue::open_read_only(&g.db)?;
+    if args.span.bin.is_none() {
+        let (t0, t1) = live_span(&conn, p.channel.as_deref(), p.since_gps, p.until_gps)?;
+        p.bin_s = auto_bin_s(t1 - t0);
+    }
     let report = rates(&conn, &p)?;
     let text = render(&report, args.format)?;
     print_listing(args.format, text.as_bytes())?;

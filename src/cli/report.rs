@@ -5,7 +5,7 @@ use super::Global;
 use anyhow::{bail, Context, Result};
 use glitchbook::catalogue;
 use glitchbook::families::Thumbnail;
-use glitchbook::report::{gather, write_report, ReportParams};
+use glitchbook::report::{gather, write_report, ReportData, ReportParams};
 use rusqlite::Connection;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -41,7 +41,7 @@ impl ReportArgs {
             since_gps: r.since_gps,
             until_gps: r.until_gps,
             min_snr: r.min_snr,
-            bin_s: r.bin_s,
+            bin_s: self.span.bin,
             cl: r.cl,
             p0: r.p0,
             max_examples: self.examples,
@@ -51,8 +51,9 @@ impl ReportArgs {
 }
 /// Spectrogram images of a few representative members of each family
 /// (`families::report_thumbnails`); without the data, none (warned).
-fn thumbnails(conn: &Connection, out_dir: &Path) -> Result<Vec<Thumbnail>> {
-    let (images, missing) = glitchbook::families::report_thumbnails(conn, out_dir)?;
+fn thumbnails(conn: &Connection, out_dir: &Path, d: &ReportData) -> Result<Vec<Thumbnail>> {
+    let (images, missing) =
+        glitchbook::families::report_thumbnails(conn, out_dir, &d.witnessed_families())?;
     if let Some(why) = missing {
         super::warn(&why);
     }
@@ -72,7 +73,7 @@ pub fn run(g: &Global, args: ReportArgs) -> Result<ExitCode> {
     let data = gather(&conn, &params)?;
     let staging = glitchbook::report::Staging::new(&args.out)
         .with_context(|| format!("--out {}", args.out.display()))?;
-    let thumbs = thumbnails(&conn, staging.path())?;
+    let thumbs = thumbnails(&conn, staging.path(), &data)?;
     write_report(&data, staging.path(), &thumbs)?;
     let index = staging.publish()?;
     // Absolute, so it can be pasted into a browser from anywhere.

@@ -156,6 +156,23 @@ pub trait EnergyMapSource: Sync {
         let rows = self.energy_rows(channel, t_center_gps, span_s, q, freqs_hz)?;
         Ok(bin_rows(&rows, t_center_gps, span_s, n_times, Binning::Max))
     }
+
+    /// What the scan of `channel` analysed (band and threshold), when
+    /// known; images use it for their frequency range and colour scale.
+    fn scan_band(&self, _channel: &str) -> Option<ScanBand> {
+        None
+    }
+}
+
+/// The band and threshold of a channel's scan.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ScanBand {
+    /// Lowest analysed frequency \[Hz\].
+    pub f_lo_hz: f64,
+    /// Highest analysed frequency \[Hz\].
+    pub f_hi_hz: f64,
+    /// The scan's trigger threshold as normalised energy, `1 + SNR²/2`.
+    pub z_threshold: f64,
 }
 
 /// How a time bin summarises the tiles centred in it.

@@ -64,13 +64,16 @@ pub use db::{
     label_history, latest_model, list_families,
 };
 pub use edits::{edit_history, merge_families, move_triggers, split_family, EditKind, FamilyEdit};
-pub use features::{fingerprint, EnergyMapSource, Fingerprint, SineGaussian, SineGaussianSource};
+pub use features::{
+    fingerprint, EnergyMapSource, Fingerprint, ScanBand, SineGaussian, SineGaussianSource,
+};
 pub use images::{
-    render_family_thumbnails, render_trigger_thumbnail, report_thumbnails, ImageExtent, Thumbnail,
+    image_view, render_family_thumbnails, render_trigger_thumbnail, report_thumbnails, ImageExtent,
+    ImageStyle, Thumbnail,
 };
 pub use lineage::{EventKind, FamilyStatus};
 pub use model::{fit_model, ClusterParams, FamilyModel, Fingerprints};
-pub use thumbnail::render_thumbnail;
+pub use thumbnail::{render_thumbnail, ColourScale};
 
 use serde::Serialize;
 

@@ -403,7 +403,8 @@ pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
 /// (`t_peak` and `f_peak` are accepted for the first two, so the CSV of
 /// `glitchbook triggers` imports back). Optional:
 /// `duration` \[s\], `bandwidth` \[Hz\], `t_start`, `t_end` \[GPS s\], `f_low`,
-/// `f_high` \[Hz\], `q`. Other columns are ignored; an empty optional cell
+/// `f_high` \[Hz\], `q`, `energy` (normalised; else `1 + snr²/2`). Other
+/// columns are ignored; an empty optional cell
 /// counts as absent. Quoted cells, CRLF line ends and `#` comment lines are
 /// accepted.
 ///
@@ -412,7 +413,8 @@ pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
 /// `bandwidth`, else `frequency`; `q` from its column, else
 /// `frequency / bandwidth` when a bandwidth (the column, else
 /// `f_high - f_low` from explicit columns) is > 0, else NaN (unknown);
-/// `energy = 1 + snr²/2`. Triggers are returned sorted by `t_peak`.
+/// `energy` from its column, else `1 + snr²/2`. Triggers are returned
+/// sorted by `t_peak`.
 ///
 /// # Errors
 /// `name: ...` for a missing header or required column; `name:line: column
@@ -420,12 +422,46 @@ pub fn read_trigger_csv(path: &Path) -> Result<Vec<Trigger>> {
 /// a negative `duration` or `bandwidth`, `q` ≤ 0, or extents that do not
 /// contain the peak (`t_start ≤ time ≤ t_end`, `0 ≤ f_low ≤ frequency ≤ f_high`).
 pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
+    let mut rows = parse_trigger_rows(bytes, name)?;
+    rows.sort_by(|a, b| a.1.t_peak.total_cmp(&b.1.t_peak));
+    Ok(rows.into_iter().map(|(_, t)| t).collect())
+}
+
+/// Triggers of a CSV grouped by its `channel` column (as `glitchbook
+/// triggers --format csv` writes it), each group sorted by `t_peak`; None
+/// when the file has no `channel` column. Rows as [`parse_trigger_csv`].
+///
+/// # Errors
+/// As [`parse_trigger_csv`]; an empty `channel` cell names its line.
+pub fn parse_trigger_csv_by_channel(
+    bytes: &[u8],
+    name: &str,
+) -> Result<Option<std::collections::BTreeMap<String, Vec<Trigger>>>> {
+    let rows = parse_trigger_rows(bytes, name)?;
+    if rows.first().is_some_and(|r| r.0.is_none()) {
+        return Ok(None);
+    }
+    let mut out: std::collections::BTreeMap<String, Vec<Trigger>> = Default::default();
+    for (ch, t) in rows {
+        out.entry(ch.unwrap_or_default()).or_default().push(t);
+    }
+    for v in out.values_mut() {
+        v.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
+    }
+    Ok(Some(out))
+}
+
+/// The rows of a trigger CSV in file order, each with its `channel` cell
+/// when the file has that column.
+fn parse_trigger_rows(bytes: &[u8], name: &str) -> Result<Vec<(Option<String>, Trigger)>> {
     let mut table = Table::new(bytes, name)?;
+    let c_channel = table.columns.get("channel").copied();
     // `t_peak` and `f_peak` are how `glitchbook triggers --format csv` names them.
     let c_time = table.require_any("time", &["t_peak"])?;
     let c_freq = table.require_any("frequency", &["f_peak"])?;
     let c_snr = table.require("snr")?;
     let opt = |c: &str| table.columns.get(c).copied();
+    let c_energy = table.columns.get("energy").copied();
     let (c_dur, c_bw, c_ts, c_te, c_fl, c_fh, c_q) = (
         opt("duration"),
         opt("bandwidth"),
@@ -579,7 +615,18 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
                 _ => f64::NAN,
             },
         };
-        let energy = energy_from_snr(snr);
+        let energy = match get(c_energy, "energy")? {
+            Some(z) if z <= 0.0 => {
+                return Err(parse_at(
+                    name,
+                    line,
+                    Some("energy"),
+                    format!("{z} must be > 0"),
+                ))
+            }
+            Some(z) => z,
+            None => energy_from_snr(snr),
+        };
         if !energy.is_finite() {
             return Err(parse_at(
                 name,
@@ -588,20 +635,29 @@ pub fn parse_trigger_csv(bytes: &[u8], name: &str) -> Result<Vec<Trigger>> {
                 format!("{snr} is too large (energy 1 + snr²/2 overflows)"),
             ));
         }
-        out.push(Trigger {
-            t_peak: time,
-            t_start,
-            t_end,
-            f_peak: freq,
-            f_low,
-            f_high,
-            snr,
-            q,
-            energy,
-        });
+        let channel = match c_channel {
+            None => None,
+            Some(c) => match rec.get(c).map(str::trim) {
+                Some(ch) if !ch.is_empty() => Some(ch.to_string()),
+                _ => return Err(parse_at(name, line, Some("channel"), "empty cell")),
+            },
+        };
+        out.push((
+            channel,
+            Trigger {
+                t_peak: time,
+                t_start,
+                t_end,
+                f_peak: freq,
+                f_low,
+                f_high,
+                snr,
+                q,
+                energy,
+            },
+        ));
         Ok(())
     })?;
-    out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
     Ok(out)
 }
 

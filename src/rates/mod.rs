@@ -487,6 +487,67 @@ pub fn weighted_median(v: &[(f64, f64)]) -> f64 {
     0.0
 }
 
+/// The span `[since, until)` with either end defaulting to the edge of
+/// `live` (the channel's analysed time).
+fn span_of(
+    live: &SegmentList,
+    channel: &str,
+    since: Option<f64>,
+    until: Option<f64>,
+) -> Result<(f64, f64)> {
+    let extent = live.extent();
+    let no_time = || anyhow::anyhow!("channel {channel:?} has no analysed time in the catalogue");
+    let start = match (since, extent) {
+        (Some(s), _) => s,
+        (None, Some(e)) => e.start,
+        (None, None) => return Err(no_time()),
+    };
+    let end = match (until, extent) {
+        (Some(u), _) => u,
+        (None, Some(e)) => e.end,
+        (None, None) => return Err(no_time()),
+    };
+    Ok((start, end))
+}
+
+/// The span a rates query would cover \[GPS s\]: `since`/`until`, or the
+/// edges of `channel`'s analysed time (the target channel when None).
+///
+/// # Errors
+/// Unknown channel, no analysed time, SQLite errors.
+pub fn live_span(
+    conn: &Connection,
+    channel: Option<&str>,
+    since: Option<f64>,
+    until: Option<f64>,
+) -> Result<(f64, f64)> {
+    let channel = resolve_channel(conn, channel)?;
+    span_of(&live_time(conn, channel.id)?, &channel.name, since, until)
+}
+
+/// Widths a chosen bin may take \[s\]: minutes to days, on clock marks.
+const NICE_BINS_S: [f64; 14] = [
+    60.0, 120.0, 300.0, 600.0, 900.0, 1200.0, 1800.0, 3600.0, 7200.0, 10800.0, 21600.0, 43200.0,
+    86400.0, 604800.0,
+];
+
+/// The bin width for a span of `span_s` seconds: the widest clock-mark
+/// width ([`NICE_BINS_S`]) that still gives at least 12 bins; below 12
+/// minutes of span, a 1-2-5 number of seconds giving at least 12.
+pub fn auto_bin_s(span_s: f64) -> f64 {
+    const MIN_BINS: f64 = 12.0;
+    if let Some(w) = NICE_BINS_S.iter().rev().find(|&&w| span_s / w >= MIN_BINS) {
+        return *w;
+    }
+    let raw = (span_s / MIN_BINS).max(1e-3);
+    let p = 10f64.powf(raw.log10().floor());
+    [5.0, 2.0, 1.0]
+        .iter()
+        .map(|m| m * p)
+        .find(|w| *w <= raw)
+        .unwrap_or(p)
+}
+
 /// Compute rates from the catalogue.
 ///
 /// # Errors
@@ -526,23 +587,7 @@ pub fn rates(conn: &Connection, p: &RateParams) -> Result<RateReport> {
         }
     }
     let all_live = live_time(conn, channel.id)?;
-    let extent = all_live.extent();
-    let start = match (p.since_gps, extent) {
-        (Some(s), _) => s,
-        (None, Some(e)) => e.start,
-        (None, None) => bail!(
-            "channel {:?} has no analysed time in the catalogue",
-            channel.name
-        ),
-    };
-    let end = match (p.until_gps, extent) {
-        (Some(u), _) => u,
-        (None, Some(e)) => e.end,
-        (None, None) => bail!(
-            "channel {:?} has no analysed time in the catalogue",
-            channel.name
-        ),
-    };
+    let (start, end) = span_of(&all_live, &channel.name, p.since_gps, p.until_gps)?;
     if end <= start {
         bail!("empty span: start {start} is not before end {end} [GPS s]");
     }
@@ -615,4 +660,23 @@ pub fn rates(conn: &Connection, p: &RateParams) -> Result<RateReport> {
         params: p.clone(),
         series,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::auto_bin_s;
+
+    #[test]
+    fn auto_bins_give_at_least_twelve() {
+        // Two hours: 10-minute bins (12); a day: 2-hour bins (12); a week:
+        // 12-hour bins (14); 90 s: 5-s bins (18).
+        assert_eq!(auto_bin_s(7200.0), 600.0);
+        assert_eq!(auto_bin_s(86400.0), 7200.0);
+        assert_eq!(auto_bin_s(7.0 * 86400.0), 43200.0);
+        assert_eq!(auto_bin_s(90.0), 5.0);
+        for span in [13.0, 100.0, 719.0, 720.0, 5000.0, 1e5, 3e7] {
+            let w = auto_bin_s(span);
+            assert!(span / w >= 12.0, "{span} s -> {w} s");
+        }
+    }
 }

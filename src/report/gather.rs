@@ -4,12 +4,14 @@ use crate::catalogue::from_ns;
 use crate::catalogue::now_utc;
 use crate::rates::live::{live_time, table_exists};
 use crate::rates::{rates, RateParams, RateReport};
+use crate::segments::SegmentList;
 use anyhow::{Context, Result};
 use rusqlite::{params, Connection};
 use serde::Serialize;
 use std::collections::BTreeMap;
 
-/// What the report covers. Defaults: whole catalogue, one-hour bins, CL 0.9,
+/// What the report covers. Defaults: whole catalogue, bins from the span
+/// (at least 12, [`crate::rates::auto_bin_s`]), CL 0.9,
 /// p0 0.05, 5 examples per family, 200 novel triggers, 20 000 scatter points.
 #[derive(Debug, Clone, Serialize)]
 pub struct ReportParams {
@@ -21,8 +23,8 @@ pub struct ReportParams {
     pub until_gps: Option<f64>,
     /// Only triggers with SNR ≥ this.
     pub min_snr: f64,
-    /// Rate bin width \[s\].
-    pub bin_s: f64,
+    /// Rate bin width \[s\] (None: chosen from the span).
+    pub bin_s: Option<f64>,
     /// Confidence level of rate limits.
     pub cl: f64,
     /// Bayesian-blocks false-positive probability.
@@ -42,7 +44,7 @@ impl Default for ReportParams {
             since_gps: None,
             until_gps: None,
             min_snr: 0.0,
-            bin_s: 3600.0,
+            bin_s: None,
             cl: 0.9,
             p0: 0.05,
             max_examples: 5,
@@ -120,6 +122,22 @@ pub struct WitnessRow {
     pub false_alarm_any: Option<f64>,
     /// Marked beyond chance.
     pub beyond_chance: Option<bool>,
+}
+
+impl ReportData {
+    /// The best witness of each family marked beyond chance: (family id,
+    /// aux channel, window \[s\]); the first such row of the family, the one
+    /// `glitchbook witnesses` lists as its best.
+    pub fn witnessed_families(&self) -> Vec<(i64, String, f64)> {
+        let mut out: Vec<(i64, String, f64)> = Vec::new();
+        for w in &self.witnesses {
+            let Some(f) = w.family_id else { continue };
+            if w.beyond_chance == Some(true) && !out.iter().any(|o| o.0 == f) {
+                out.push((f, w.aux_channel.clone(), w.window_s));
+            }
+        }
+        out
+    }
 }
 
 /// Lag histogram of one (family, aux channel) pair.
@@ -244,6 +262,9 @@ pub struct ReportData {
     pub has_coupling: bool,
     /// Cross-validation of the latest classifier by label, if any.
     pub classifier: Option<crate::families::classifier::CrossValidation>,
+    /// Stretches of the span the target channel was not analysed (shaded
+    /// on time plots) \[GPS s\].
+    pub gaps_gps: Vec<(f64, f64)>,
 }
 
 /// Gather the report's content.
@@ -252,8 +273,15 @@ pub struct ReportData {
 /// Invalid parameters, a catalogue without target channel or analysed time,
 /// SQLite errors.
 pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
+    let bin_s = match p.bin_s {
+        Some(b) => b,
+        None => {
+            let (t0, t1) = crate::rates::live_span(conn, None, p.since_gps, p.until_gps)?;
+            crate::rates::auto_bin_s(t1 - t0)
+        }
+    };
     let rp = RateParams {
-        bin_s: p.bin_s,
+        bin_s,
         since_gps: p.since_gps,
         until_gps: p.until_gps,
         min_snr: p.min_snr,
@@ -264,6 +292,12 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     let rates = rates(conn, &rp)?;
     let (t0, t1) = (rates.span_start_gps, rates.span_end_gps);
     let (n0, n1) = (crate::catalogue::to_ns(t0)?, crate::catalogue::to_ns(t1)?);
+    let gaps_gps = SegmentList::single(t0, t1)
+        .difference(&live_time(conn, rates.channel.id)?)
+        .segments()
+        .iter()
+        .map(|g| (g.start, g.end))
+        .collect();
 
     // Channels: triggers in the span and live time.
     let mut channels = Vec::new();
@@ -419,6 +453,7 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         vetoes,
         proposals,
         has_coupling,
+        gaps_gps,
     })
 }
 

@@ -12,8 +12,9 @@
 use super::gather::{ExampleTrigger, ProposalRow, ReportData, VetoRow, WitnessRow};
 use super::plots::{self, family_colour, TfPoint};
 use super::VETO_CAUTION;
-use crate::families::thumbnail::{colour, Z_MAX, Z_MIN};
+use crate::families::thumbnail::colour;
 use crate::families::Thumbnail;
+use crate::gpstime;
 use crate::rates::RateSeries;
 use anyhow::{Context, Result};
 use std::collections::BTreeMap;
@@ -47,14 +48,16 @@ table{border-collapse:collapse;font-size:13px;margin:8px 0}
 th,td{border:1px solid #d8d3c8;padding:3px 8px;text-align:right}
 th{background:#efe9dc}
 td.t{text-align:left}
-.prov{font-size:12px;color:#555;background:#efe9dc;padding:6px 10px;border-radius:4px;white-space:pre-wrap}
+.prov{font-size:12px;color:#555;background:#efe9dc;padding:6px 10px;border-radius:4px}
+nav{background:#fff;border:1px solid #d8d3c8;border-radius:6px;margin:12px 0;padding:2px 18px;font-size:14px}
+.key{display:inline-block;width:10px;height:10px;margin:0 4px 0 10px;border-radius:2px}
 .caution{border-left:6px solid #c2283d;background:#fbeaea;padding:8px 12px;font-weight:bold}
 .flag{color:#c2283d;font-weight:bold}
 .thumbs figure{display:inline-block;margin:4px 10px 8px 0;vertical-align:top}
 .thumbs figcaption,.cbar{font-size:12px;color:#444}
 svg.spec text,svg.cbar text{font-family:sans-serif;font-size:10px;fill:#333}
 img.plot{max-width:100%;display:block;margin:6px 0}
-table.veto{font-size:12px}
+table.veto,table.triage{font-size:12px}
 ";
 
 fn f3(x: f64) -> String {
@@ -254,10 +257,12 @@ fn blocks_table(o: &mut String, s: &RateSeries) {
 
 /// Plot area of a spectrogram figure: left, top, width, height \[px\].
 const SPEC_BOX: (f64, f64, f64, f64) = (44.0, 6.0, 320.0, 160.0);
+/// What every spectrogram's colour bar means (shown under each family's
+/// images).
+const SPECTROGRAM_LEGEND: &str = "<p class=\"cbar\">Each image spans 8 times the trigger's duration (or one tile at its Q, if longer) and the trigger's own band widened to at least three octaves inside the channel's analysed band. Colour: square root of the normalised energy (mean 1 in Gaussian noise) from 0 to the number at the top of the image's bar, its own peak or the scan threshold if higher; <em>thr</em> marks the scan threshold. A witness image shows the aux channel at the time of the member beside it.</p>\n";
+/// Colour bar of a spectrogram figure: gap after the plot, width \[px\].
+const SPEC_BAR: (f64, f64) = (10.0, 10.0);
 
-/// An example spectrogram as inline SVG: the image `img/{name}` inside
-/// axes of time from the peak and log frequency, with the trigger named
-/// below.
 /// The classifier by label: its cross-validated confusion matrix (rows:
 /// the family label, columns: the predicted label) with per-label
 /// precision and recall.
@@ -294,37 +299,46 @@ fn classifier_table(o: &mut String, cv: &crate::families::classifier::CrossValid
     o.push_str("</table>\n");
 }
 
-fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
+/// An example spectrogram as inline SVG: the image `img/{name}` inside
+/// axes of time from the peak and log frequency, its own colour bar (sqrt
+/// of normalised energy, the scan threshold marked), and what it shows
+/// below. `id` makes the bar's gradient unique on the page.
+fn spectrogram_figure(o: &mut String, name: &str, id: &str, t: &Thumbnail) {
     let (x0, y0, w, h) = SPEC_BOX;
     let (half, (f_lo, f_hi)) = (0.5 * t.extent.span_s, t.extent.f_edges_hz);
     let y_of = |f: f64| y0 + h * (1.0 - (f / f_lo).ln() / (f_hi / f_lo).ln());
+    let what = if t.witness {
+        format!(
+            "witness {} at trigger {}",
+            html_escape(&t.channel),
+            t.trigger_id
+        )
+    } else {
+        format!("trigger {}", t.trigger_id)
+    };
+    let bx = x0 + w + SPEC_BAR.0;
     let _ = write!(
         o,
-        "<figure><svg class=\"spec\" width=\"{}\" height=\"{}\" role=\"img\" aria-label=\"spectrogram of trigger {}\">\
+        "<figure><svg class=\"spec\" width=\"{}\" height=\"{}\" role=\"img\" aria-label=\"spectrogram of {what}\">\
          <image href=\"img/{name}\" x=\"{x0}\" y=\"{y0}\" width=\"{w}\" height=\"{h}\" preserveAspectRatio=\"none\"/>\
          <rect x=\"{x0}\" y=\"{y0}\" width=\"{w}\" height=\"{h}\" fill=\"none\" stroke=\"#888\"/>",
-        x0 + w + 8.0,
+        bx + SPEC_BAR.1 + 40.0,
         y0 + h + 34.0,
-        t.trigger_id
     );
-    // Frequency ticks: powers of two inside the image.
-    let mut f = 2f64.powf(f_lo.log2().ceil());
-    while f <= f_hi {
+    for f in crate::families::thumbnail::log_ticks(f_lo, f_hi) {
         let y = y_of(f);
         let _ = write!(
             o,
             "<line x1=\"{}\" x2=\"{x0}\" y1=\"{y:.1}\" y2=\"{y:.1}\" stroke=\"#444\"/>\
-             <text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">{f:.0}</text>",
+             <text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">{}</text>",
             x0 - 4.0,
             x0 - 6.0,
-            y + 3.5
+            y + 3.5,
+            crate::output::fixed(f, if f < 10.0 { 1 } else { 0 })
         );
-        f *= 2.0;
     }
-    // Time ticks at quarters of the span.
-    for k in 0..=4 {
-        let dt = -half + 0.5 * half * f64::from(k);
-        let x = x0 + w * f64::from(k) / 4.0;
+    for dt in crate::families::thumbnail::linear_ticks(-half, half) {
+        let x = x0 + w * (dt + half) / (2.0 * half);
         let _ = write!(
             o,
             "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"{}\" y2=\"{}\" stroke=\"#444\"/>\
@@ -332,29 +346,14 @@ fn spectrogram_figure(o: &mut String, name: &str, t: &Thumbnail) {
             y0 + h,
             y0 + h + 4.0,
             y0 + h + 15.0,
-            crate::output::fixed(dt, 2)
+            crate::output::fixed(dt, 3)
         );
     }
-    let _ = writeln!(
+    // Colour bar: the ramp bottom (0) to top (the image's own top).
+    let _ = write!(
         o,
-        "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">time from peak [s]</text>\
-         <text transform=\"translate(10 {:.1}) rotate(-90)\" text-anchor=\"middle\">frequency [Hz]</text></svg>\
-         <figcaption>trigger {} · GPS {:.3} · {:.1} Hz · SNR {:.1} · Q {:.1}</figcaption></figure>",
-        x0 + 0.5 * w,
-        y0 + h + 30.0,
-        y0 + 0.5 * h,
-        t.trigger_id,
-        t.t_peak_gps,
-        t.f_peak_hz,
-        t.snr,
-        t.q
+        "<defs><linearGradient id=\"z{id}\" x1=\"0\" y1=\"1\" x2=\"0\" y2=\"0\">"
     );
-}
-
-/// The colour scale of the spectrograms (normalised energy), as inline SVG.
-fn colour_bar(o: &mut String) {
-    let (x0, w) = (SPEC_BOX.0, SPEC_BOX.2);
-    o.push_str("<svg class=\"cbar\" width=\"420\" height=\"42\" role=\"img\" aria-label=\"colour scale\"><defs><linearGradient id=\"zscale\">");
     for k in 0..=16 {
         let u = f64::from(k) / 16.0;
         let [r, g, b] = colour(u);
@@ -365,23 +364,228 @@ fn colour_bar(o: &mut String) {
     }
     let _ = write!(
         o,
-        "</linearGradient></defs><rect x=\"{x0}\" y=\"4\" width=\"{w}\" height=\"12\" fill=\"url(#zscale)\" stroke=\"#888\"/>"
+        "</linearGradient></defs><rect x=\"{bx}\" y=\"{y0}\" width=\"{}\" height=\"{h}\" fill=\"url(#z{id})\" stroke=\"#888\"/>",
+        SPEC_BAR.1
     );
-    let (z0, z1) = (f64::from(Z_MIN), f64::from(Z_MAX));
-    let mut z = z0;
-    while z <= z1 + 1e-9 {
-        let x = x0 + w * (z - z0) / (z1 - z0);
+    let s = &t.scale;
+    let y_of_z = |z: f64| y0 + h * (1.0 - s.unit(z));
+    let mut marks = vec![
+        (0.0, String::from("0")),
+        (s.z_top, crate::output::fixed(s.z_top, 1)),
+    ];
+    if let Some(zt) = s.z_threshold.filter(|z| *z <= s.z_top) {
+        marks.push((zt, "thr".to_string()));
+    }
+    for (z, label) in marks {
+        let y = y_of_z(z);
+        // A threshold just below the top is labelled under its tick.
+        let text_y = if label == "thr" && y - y0 < 11.0 {
+            y + 11.0
+        } else {
+            y + 3.5
+        };
         let _ = write!(
             o,
-            "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"16\" y2=\"20\" stroke=\"#444\"/><text x=\"{x:.1}\" y=\"30\" text-anchor=\"middle\">{z:.0}</text>"
+            "<line x1=\"{}\" x2=\"{}\" y1=\"{y:.1}\" y2=\"{y:.1}\" stroke=\"#444\"/>\
+             <text x=\"{}\" y=\"{text_y:.1}\">{label}</text>",
+            bx - 3.0,
+            bx + SPEC_BAR.1 + 3.0,
+            bx + SPEC_BAR.1 + 5.0,
         );
-        z += 5.0;
     }
+    let detail = if t.snr.is_finite() {
+        format!(
+            "{} Hz · SNR {:.1} · Q {:.1}",
+            crate::output::fixed(t.f_peak_hz, 1),
+            t.snr,
+            t.q
+        )
+    } else {
+        "no aux trigger near this time".to_string()
+    };
     let _ = writeln!(
         o,
-        "<text x=\"{}\" y=\"40\" text-anchor=\"middle\">normalised energy (mean 1 in Gaussian noise; {z1:.0} and above saturate)</text></svg>",
-        x0 + 0.5 * w
+        "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">time from peak [s]</text>\
+         <text transform=\"translate(10 {:.1}) rotate(-90)\" text-anchor=\"middle\">frequency [Hz]</text>\
+         <text x=\"{}\" y=\"{}\">Z</text></svg>\
+         <figcaption>{what} · GPS {:.3} · {detail}</figcaption></figure>",
+        x0 + 0.5 * w,
+        y0 + h + 30.0,
+        y0 + 0.5 * h,
+        bx,
+        y0 + h + 15.0,
+        t.t_peak_gps,
     );
+}
+
+/// The table of contents: the summary, each family, the all-trigger
+/// witnesses and vetoes, the novel triggers and the parameters.
+fn contents(o: &mut String, d: &ReportData) {
+    o.push_str("<nav id=\"contents\" aria-label=\"contents\"><h2>Contents</h2><ol>\n<li><a href=\"#summary\">Run summary</a>");
+    if !d.families.is_empty() {
+        o.push_str(" · <a href=\"#triage\">families at a glance</a>");
+    }
+    o.push_str("</li>\n");
+    for f in &d.families {
+        let _ = writeln!(
+            o,
+            "<li><a href=\"#family-{}\">{}</a></li>",
+            f.id,
+            family_title(f.id, f.label.as_deref())
+        );
+    }
+    if !d.proposals.is_empty() || d.vetoes.iter().any(|v| v.mode == "all") {
+        o.push_str(
+            "<li><a href=\"#all-vetoes\">All target triggers: witnesses and vetoes</a></li>\n",
+        );
+    }
+    o.push_str("<li><a href=\"#novel\">Novel triggers</a></li>\n<li><a href=\"#parameters\">Parameters and provenance</a></li>\n</ol></nav>\n");
+}
+
+/// A family's veto rounds summarised: aux channels, total efficiency and
+/// deadtime (of the last round), and the worst safety of its rounds.
+fn family_veto(d: &ReportData, family: i64) -> Option<(String, f64, f64, String)> {
+    let rounds: Vec<&VetoRow> = d
+        .vetoes
+        .iter()
+        .filter(|v| v.mode == "family" && v.family_id == Some(family))
+        .collect();
+    let last = rounds.iter().max_by_key(|v| v.round)?;
+    let mut aux: Vec<&str> = rounds.iter().map(|v| v.aux_channel.as_str()).collect();
+    aux.dedup();
+    let safety = ["unsafe", "unchecked", "safe"]
+        .into_iter()
+        .find(|s| rounds.iter().any(|v| v.safety == *s))
+        .unwrap_or("unchecked");
+    Some((
+        aux.join(", "),
+        last.total_efficiency,
+        last.total_deadtime,
+        safety.to_string(),
+    ))
+}
+
+/// The triage table: per family its size, rate now against its median,
+/// last change point, best witness and what a veto would cost.
+fn triage_table(o: &mut String, d: &ReportData) {
+    let r = &d.rates;
+    o.push_str("<h3 id=\"triage\">Families at a glance</h3>\n<table class=\"triage\"><tr><th>family</th><th>label</th><th>status</th><th>triggers</th><th>rate now [/h]</th><th>median [/h]</th><th>last change</th><th>best witness</th><th>false alarm</th><th>veto channels</th><th>efficiency [%]</th><th>deadtime [%]</th><th>deadtime [s]</th><th>safety</th></tr>\n");
+    let best = d.witnessed_families();
+    for f in &d.families {
+        let s = r.series.iter().find(|s| s.family_id == Some(f.id));
+        let now = s.and_then(|s| s.blocks.last()).map(|b| b.rate_per_hour);
+        let now_cell = match (s, now) {
+            (Some(s), Some(v)) if s.latest_differs => {
+                format!(
+                    "<span class=\"flag\">{} (differs from median)</span>",
+                    f3(v)
+                )
+            }
+            (_, Some(v)) => f3(v),
+            _ => "-".into(),
+        };
+        let change = s
+            .and_then(|s| s.change_times_gps.last())
+            .map_or("none".to_string(), |&c| {
+                format!("{} ({c:.0})", gpstime::utc_label(c))
+            });
+        let (wit, fa) = match best.iter().find(|b| b.0 == f.id) {
+            Some((_, aux, _)) => {
+                let row = d
+                    .witnesses
+                    .iter()
+                    .find(|w| w.family_id == Some(f.id) && &w.aux_channel == aux);
+                let tail = row.and_then(|w| w.false_alarm_basis.as_deref()) == Some("slides_tail");
+                (
+                    html_escape(aux),
+                    opt_prob(row.and_then(|w| w.false_alarm.or(Some(w.chance_p))))
+                        + if tail { " (tail)" } else { "" },
+                )
+            }
+            None => ("none beyond chance".to_string(), "-".to_string()),
+        };
+        let veto = family_veto(d, f.id);
+        let cells = match &veto {
+            Some((aux, eff, dt, safety)) => format!(
+                "<td class=\"t\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td>",
+                html_escape(aux),
+                crate::output::fixed(100.0 * eff, 1),
+                crate::output::fixed(100.0 * dt, 3),
+                crate::output::fixed(dt * r.live_s, 1),
+                state_cell(safety)
+            ),
+            None => "<td class=\"t\">none</td><td>-</td><td>-</td><td>-</td><td>-</td>".into(),
+        };
+        let _ = writeln!(
+            o,
+            "<tr><td><a href=\"#family-{id}\">{id}</a></td><td class=\"t\">{}</td><td class=\"t\">{}</td><td>{}</td><td>{now_cell}</td><td>{}</td><td class=\"t\">{change}</td><td class=\"t\">{wit}</td><td>{fa}</td>{cells}</tr>",
+            f.label.as_deref().map(html_escape).unwrap_or_default(),
+            html_escape(&f.status),
+            s.map_or(0, |s| s.n_events),
+            s.map_or("-".into(), |s| f3(s.median_rate_per_hour)),
+            id = f.id
+        );
+    }
+    o.push_str("</table>\n<p class=\"cbar\"><em>rate now</em>: the latest Bayesian block's rate per live hour, in red when it differs from the family's median block rate (exact Poisson test at the report's confidence level); <em>last change</em>: the latest change point, UTC (GPS s); <em>best witness</em>: the aux channel whose coincidences with the family are beyond chance, with its false-alarm probability over all channels and thresholds compared (from time slides; <em>(tail)</em>: beyond the slides' resolution, Šidák's correction with the effective number of cells measured on the slides); <em>veto</em>: the family's veto rounds with their combined efficiency (fraction of the family's triggers removed) and deadtime (fraction and seconds of analysed time), and the worst safety of the rounds against injections.</p>\n");
+    if d.families.iter().any(|f| family_veto(d, f.id).is_some()) {
+        let _ = writeln!(o, "<p class=\"caution\">{}</p>", html_escape(VETO_CAUTION));
+    }
+}
+
+/// Colour key of the families in the time-frequency scatter (one colour
+/// each up to the palette's size; families beyond it are named with the
+/// colour they share).
+fn colour_legend(o: &mut String, d: &ReportData) {
+    o.push_str("<p class=\"cbar\">Colours: ");
+    for (i, f) in d.families.iter().enumerate() {
+        let c = family_colour(i);
+        let _ = write!(
+            o,
+            "<span class=\"key\" style=\"background:#{:02x}{:02x}{:02x}\"></span>{} ",
+            c.0,
+            c.1,
+            c.2,
+            family_title(f.id, f.label.as_deref())
+        );
+    }
+    o.push_str("<span class=\"key\" style=\"background:#b0b0b0\"></span>no family</p>\n");
+}
+
+/// The parameters and provenance, as a table at the end of the page.
+fn parameters_section(o: &mut String, d: &ReportData) -> Result<()> {
+    o.push_str("<section id=\"parameters\"><h2>Parameters and provenance</h2><table>\n");
+    let mut rows = vec![
+        ("catalogue".to_string(), d.params.catalogue.clone()),
+        ("tool".to_string(), format!("glitchbook {}", d.tool_version)),
+        ("generated (UTC)".to_string(), d.generated_utc.clone()),
+        (
+            "rate bin [s]".to_string(),
+            crate::output::fixed(d.rates.params.bin_s, 3),
+        ),
+    ];
+    if let serde_json::Value::Object(m) = serde_json::to_value(&d.params)? {
+        for (k, v) in m {
+            if k == "catalogue" {
+                continue;
+            }
+            let text = match v {
+                serde_json::Value::Null => "default".to_string(),
+                serde_json::Value::String(s) => s,
+                other => other.to_string(),
+            };
+            rows.push((k, text));
+        }
+    }
+    for (k, v) in rows {
+        let _ = writeln!(
+            o,
+            "<tr><th scope=\"row\">{}</th><td class=\"t\">{}</td></tr>",
+            html_escape(&k),
+            html_escape(&v)
+        );
+    }
+    o.push_str("</table></section>\n");
+    Ok(())
 }
 
 /// Write `out/index.html` and `out/img/*`. `thumbnails` are example
@@ -413,7 +617,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
             colour: fam.and_then(|x| colour_of.get(&x).copied()),
         })
         .collect();
-    plots::tf_scatter(&img.join("tf.svg"), &pts, t0, t1)?;
+    plots::tf_scatter(&img.join("tf.svg"), &pts, t0, t1, &d.gaps_gps)?;
     let mut curves = vec![(
         "all".to_string(),
         plotters::style::RGBColor(0x22, 0x22, 0x33),
@@ -434,29 +638,37 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>glitchbook report</title>\
          <style>{CSS}</style></head><body>\n<header><h1>glitchbook report</h1></header>\n<main>\n"
     );
-    let params_json = serde_json::to_string_pretty(&d.params)?;
     let _ = writeln!(
         o,
-        "<div class=\"prov\" id=\"provenance\">Catalogue: {}\nTool: glitchbook {}\nGenerated: {}\nParameters: {}</div>",
+        "<p class=\"prov\" id=\"provenance\">Target {} · {} · made by glitchbook {} on {} (parameters at the <a href=\"#parameters\">end</a>)</p>",
+        html_escape(&r.channel.name),
         html_escape(&d.params.catalogue),
         html_escape(&d.tool_version),
-        html_escape(&d.generated_utc),
-        html_escape(&params_json)
+        html_escape(&d.generated_utc)
     );
+    contents(&mut o, d);
 
     // Run summary.
     let _ = writeln!(o, "<section id=\"summary\"><h2>Run summary</h2>");
     let _ = writeln!(
         o,
-        "<p>Span {:.1} – {:.1} GPS s ({:.2} h); live time of {} {:.2} h ({:.1} %).</p>",
+        "<p>Span {:.1} – {:.1} GPS s ({} – {}, {:.2} h); live time of {} {:.2} h ({:.1} %); {} not-analysed stretch(es) shaded on the time plots.</p>",
         t0,
         t1,
+        gpstime::utc_label(t0),
+        gpstime::utc_label(t1),
         (t1 - t0) / 3600.0,
         html_escape(&r.channel.name),
         r.live_s / 3600.0,
-        100.0 * r.live_s / (t1 - t0)
+        100.0 * r.live_s / (t1 - t0),
+        d.gaps_gps.len()
     );
-    o.push_str("<table><tr><th>channel</th><th>role</th><th>triggers</th><th>live [h]</th></tr>\n");
+    if d.families.is_empty() {
+        o.push_str("<p>No families in this catalogue (not clustered yet).</p>\n");
+    } else {
+        triage_table(&mut o, d);
+    }
+    o.push_str("<h3>Channels</h3>\n<table><tr><th>channel</th><th>role</th><th>triggers</th><th>live [h]</th></tr>\n");
     for (name, role, n, live) in &d.channels {
         let _ = writeln!(
             o,
@@ -467,35 +679,13 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
         );
     }
     o.push_str("</table>\n");
-    if d.families.is_empty() {
-        o.push_str("<p>No families in this catalogue (not clustered yet).</p>\n");
-    } else {
-        o.push_str("<table><tr><th>family</th><th>label</th><th>status</th><th>events</th><th>mean rate [/h]</th><th>change points</th><th>latest block</th></tr>\n");
-        for f in &d.families {
-            let s = r.series.iter().find(|s| s.family_id == Some(f.id));
-            let _ = writeln!(
-                o,
-                "<tr><td><a href=\"#family-{id}\">{id}</a></td><td class=\"t\">{}</td><td class=\"t\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-                f.label.as_deref().map(html_escape).unwrap_or_default(),
-                html_escape(&f.status),
-                s.map_or(0, |s| s.n_events),
-                s.map_or("-".into(), |s| f3(s.mean_rate_per_hour)),
-                s.map_or(0, |s| s.change_times_gps.len()),
-                match s {
-                    Some(s) if s.latest_differs => "<span class=\"flag\">differs from median</span>",
-                    _ => "consistent",
-                },
-                id = f.id
-            );
-        }
-        o.push_str("</table>\n");
-    }
     if let Some(cv) = &d.classifier {
         classifier_table(&mut o, cv);
     }
     o.push_str(
-        "<img class=\"plot\" src=\"img/tf.svg\" alt=\"time-frequency scatter of triggers\">\n",
+        "<img class=\"plot\" src=\"img/tf.svg\" alt=\"time-frequency scatter of triggers, coloured by family\">\n",
     );
+    colour_legend(&mut o, d);
     o.push_str("<img class=\"plot\" src=\"img/snr.svg\" alt=\"cumulative SNR distributions\">\n");
     if let Some(all) = r.series.iter().find(|s| s.family_id.is_none()) {
         plots::rate_plot(
@@ -505,6 +695,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
             t1,
             "all target triggers",
             plotters::style::RGBColor(0x22, 0x22, 0x33),
+            &d.gaps_gps,
         )?;
         o.push_str(
             "<img class=\"plot\" src=\"img/rate_all.svg\" alt=\"rate of all target triggers\">\n",
@@ -537,7 +728,15 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
             let title = f.label.clone().map_or(format!("family {}", f.id), |l| {
                 format!("family {} {}", f.id, l)
             });
-            plots::rate_plot(&img.join(&file), s, t0, t1, &title, family_colour(i))?;
+            plots::rate_plot(
+                &img.join(&file),
+                s,
+                t0,
+                t1,
+                &title,
+                family_colour(i),
+                &d.gaps_gps,
+            )?;
             let _ = writeln!(
                 o,
                 "<img class=\"plot rate\" src=\"img/{file}\" alt=\"rate of family {}\">",
@@ -547,7 +746,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
                 let cps: Vec<String> = s
                     .change_times_gps
                     .iter()
-                    .map(|c| format!("{c:.1}"))
+                    .map(|&c| format!("{c:.1} ({})", gpstime::utc_label(c)))
                     .collect();
                 let _ = writeln!(o, "<p>Change times [GPS s]: {}</p>", cps.join(", "));
             }
@@ -560,10 +759,10 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
                 let name = format!("thumb_f{}_{k}.png", f.id);
                 std::fs::copy(&t.path, img.join(&name))
                     .with_context(|| format!("copying spectrogram {}", t.path.display()))?;
-                spectrogram_figure(&mut o, &name, t);
+                spectrogram_figure(&mut o, &name, &format!("f{}_{k}", f.id), t);
             }
             o.push_str("</div>\n");
-            colour_bar(&mut o);
+            o.push_str(SPECTROGRAM_LEGEND);
         }
         if !f.examples.is_empty() {
             o.push_str("<h3>Loudest members</h3>\n");
@@ -647,13 +846,8 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
         trigger_table(&mut o, &d.novel);
     }
     o.push_str("</section>\n");
-    let _ = writeln!(
-        o,
-        "<footer class=\"prov\">Made by glitchbook {} from {} on {}.</footer>\n</main></body></html>",
-        html_escape(&d.tool_version),
-        html_escape(&d.params.catalogue),
-        html_escape(&d.generated_utc)
-    );
+    parameters_section(&mut o, d)?;
+    o.push_str("</main></body></html>\n");
     let index = out.join("index.html");
     std::fs::write(&index, o).with_context(|| format!("writing {}", index.display()))?;
     Ok(index)

@@ -17,6 +17,17 @@ pub const PALETTE: [RGBColor; 8] = [
     RGBColor(0x3f, 0x8f, 0xa8),
     RGBColor(0x5c, 0x5c, 0x5c),
 ];
+/// Shade of stretches that were not analysed.
+const GAP: RGBColor = RGBColor(0xe4, 0xe1, 0xda);
+
+/// The time axis's title: hours since the span's start, in UTC and GPS.
+fn hours_since(t0_gps: f64) -> String {
+    format!(
+        "hours since {} (GPS {t0_gps:.0}); shaded: not analysed",
+        crate::gpstime::utc_label(t0_gps)
+    )
+}
+
 /// Colour of unassigned / novel points.
 pub const GREY: RGBColor = RGBColor(0xb0, 0xb0, 0xb0);
 const INK: RGBColor = RGBColor(0x22, 0x22, 0x33);
@@ -45,6 +56,7 @@ pub fn rate_plot(
     t1_gps: f64,
     title: &str,
     colour: RGBColor,
+    gaps: &[(f64, f64)],
 ) -> Result<()> {
     let root = SVGBackend::new(path, (900, 340)).into_drawing_area();
     root.fill(&WHITE).map_err(err)?;
@@ -76,11 +88,17 @@ pub fn rate_plot(
         .map_err(err)?;
     chart
         .configure_mesh()
-        .x_desc("hours since span start")
+        .x_desc(hours_since(t0_gps))
         .y_desc("rate per live hour")
         .y_label_formatter(&plain_label)
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
+        .map_err(err)?;
+    chart
+        .draw_series(
+            gaps.iter()
+                .map(|&(a, b)| Rectangle::new([(h(a), 0.0), (h(b), ymax)], GAP.filled())),
+        )
         .map_err(err)?;
     for &c in &s.change_times_gps {
         chart
@@ -205,7 +223,13 @@ pub struct TfPoint {
 ///
 /// # Errors
 /// If the SVG cannot be drawn or written.
-pub fn tf_scatter(path: &Path, pts: &[TfPoint], t0_gps: f64, t1_gps: f64) -> Result<()> {
+pub fn tf_scatter(
+    path: &Path,
+    pts: &[TfPoint],
+    t0_gps: f64,
+    t1_gps: f64,
+    gaps: &[(f64, f64)],
+) -> Result<()> {
     let root = SVGBackend::new(path, (900, 380)).into_drawing_area();
     root.fill(&WHITE).map_err(err)?;
     let (fmin, fmax) = pts.iter().fold((f64::INFINITY, 0.0_f64), |(a, b), p| {
@@ -233,11 +257,18 @@ pub fn tf_scatter(path: &Path, pts: &[TfPoint], t0_gps: f64, t1_gps: f64) -> Res
         .map_err(err)?;
     chart
         .configure_mesh()
-        .x_desc("hours since span start")
+        .x_desc(hours_since(t0_gps))
         .y_desc("peak frequency [Hz]")
         .y_label_formatter(&tick_label)
         .light_line_style(RGBColor(0xee, 0xee, 0xf2))
         .draw()
+        .map_err(err)?;
+    let hr = |t: f64| (t - t0_gps) / 3600.0;
+    chart
+        .draw_series(
+            gaps.iter()
+                .map(|&(a, b)| Rectangle::new([(hr(a), fmin), (hr(b), fmax)], GAP.filled())),
+        )
         .map_err(err)?;
     chart
         .draw_series(pts.iter().map(|p| {
@@ -437,7 +468,16 @@ mod tests {
         };
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("rate.svg");
-        rate_plot(&path, &s, 0.0, 10800.0, "test", family_colour(0)).unwrap();
+        rate_plot(
+            &path,
+            &s,
+            0.0,
+            10800.0,
+            "test",
+            family_colour(0),
+            &[(600.0, 1200.0)],
+        )
+        .unwrap();
         let svg = std::fs::read_to_string(&path).unwrap();
         assert!(
             svg.contains("36000/h"),
