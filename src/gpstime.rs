@@ -1,6 +1,6 @@
 //! GPS time to UTC for people reading pages and tables: GPS seconds count
 //! SI seconds from 1980-01-06 00:00:00 UTC without leap seconds, UTC
-//! inserts one at the end of the days listed in [`LEAP_DAYS`] (IERS
+//! inserts one at the end of the days listed in `LEAP_DAYS` (IERS
 //! Bulletin C; GPS − UTC = 18 s since 2017-01-01). Checked against Astropy
 //! (`tests/data/gpstime/utc.json`, every leap second since 1980).
 //!

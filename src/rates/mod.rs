@@ -532,7 +532,7 @@ const NICE_BINS_S: [f64; 14] = [
 ];
 
 /// The bin width for a span of `span_s` seconds: the widest clock-mark
-/// width ([`NICE_BINS_S`]) that still gives at least 12 bins; below 12
+/// width (`NICE_BINS_S`: 1 min to 1 week) that still gives at least 12 bins; below 12
 /// minutes of span, a 1-2-5 number of seconds giving at least 12.
 pub fn auto_bin_s(span_s: f64) -> f64 {
     const MIN_BINS: f64 = 12.0;
