@@ -289,6 +289,22 @@ pub fn analysed_segments(conn: &Connection, channel: &str) -> Result<SegmentList
     Ok(SegmentList::from_segments(segs))
 }
 
+/// The analysed segments of one scan.
+///
+/// # Errors
+/// Database errors.
+pub fn scan_segments(conn: &Connection, scan_id: i64) -> Result<SegmentList> {
+    let mut st = conn.prepare_cached(
+        "SELECT start_ns, end_ns FROM analysed_segments WHERE scan_id = ?1 ORDER BY start_ns",
+    )?;
+    let segs = st
+        .query_map([scan_id], |r| {
+            Ok(Segment::new(from_ns(r.get(0)?), from_ns(r.get(1)?)))
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()?;
+    Ok(SegmentList::from_segments(segs))
+}
+
 /// A trigger's place in the families: its family (id, label, membership
 /// probability) or why it has none.
 #[derive(Debug, Clone, Default, PartialEq, Serialize)]
