@@ -277,3 +277,166 @@ fn changed_data_is_refused_naming_the_file() {
     assert_eq!(before, d.checksum());
     let _ = Path::new("");
 }
+
+/// Two target channels (one scanned, one imported with the default role):
+/// `report` writes one report per target and an index linking them;
+/// `--channel` writes one alone; an unknown name is refused.
+#[test]
+fn report_with_two_target_channels() {
+    let d = Dir::new();
+    let n = (DAY_S * RATE) as usize;
+    npy_bundle(
+        &d,
+        "day1",
+        "AV7:STRAIN",
+        &series(1, T0, n, &day_glitches(0, T0)),
+        T0,
+    );
+    scan(&d, "day1", &[]);
+    d.write("other.csv", &crate::cli_util::trigger_csv(40, T0 + 5.0));
+    d.ok(&["import", "other.csv", "--channel", "AV7:OTHER"]);
+    let index = d.ok(&["report", "--out", "rep"]);
+    assert!(index.trim().ends_with("rep/index.html"), "{index}");
+    let top = std::fs::read_to_string(d.path().join("rep/index.html")).unwrap();
+    for (name, sub) in [("AV7:STRAIN", "AV7_STRAIN"), ("AV7:OTHER", "AV7_OTHER")] {
+        assert!(top.contains(&format!("href=\"{sub}/index.html\"")), "{top}");
+        assert!(top.contains(name));
+        let page = std::fs::read_to_string(d.path().join(format!("rep/{sub}/index.html"))).unwrap();
+        assert!(page.contains(name), "{sub} page does not name {name}");
+    }
+    d.ok(&["report", "--out", "one", "--channel", "AV7:OTHER"]);
+    assert!(d.path().join("one/index.html").exists());
+    let out = d.run(&["report", "--out", "bad", "--channel", "AV7:NOPE"]);
+    assert!(!out.status.success());
+    assert!(String::from_utf8_lossy(&out.stderr).contains("AV7:NOPE"));
+}
+
+/// Frame files of `file_s` seconds from `t0`, named `AV7-TEST-GPS-DUR.gwf`
+/// in `dir`, holding `strain` (float64, RATE) and an aux channel (float32,
+/// 256 Hz); files whose index is in `skip` are not written.
+fn write_frames(dir: &Path, t0: f64, file_s: f64, strain: &[f64], skip: &[usize]) {
+    use glitchbook::io::gwf::writer::{ChannelData, GwfWriter, Samples};
+    use glitchbook::io::gwf::{ChannelKind, Compression};
+    std::fs::create_dir_all(dir).unwrap();
+    let per = (file_s * RATE) as usize;
+    let aux_rate = 256.0;
+    let aux_per = (file_s * aux_rate) as usize;
+    for (k, chunk) in strain.chunks(per).enumerate() {
+        if skip.contains(&k) {
+            continue;
+        }
+        let t = t0 + k as f64 * file_s;
+        let aux: Vec<f32> = (0..aux_per).map(|i| ((i * 7 + k) % 13) as f32).collect();
+        let path = dir.join(format!("AV7-TEST-{}-{}.gwf", t as i64, file_s as i64));
+        let mut w = GwfWriter::create(&path, 6).unwrap();
+        w.write_frame(
+            (t * 1e9).round() as i64,
+            file_s,
+            0,
+            &[
+                ChannelData::new(
+                    "AV7:STRAIN",
+                    ChannelKind::Proc,
+                    RATE,
+                    Samples::F64(chunk),
+                    Compression::Gzip,
+                ),
+                ChannelData::new(
+                    "AV7:AUX",
+                    ChannelKind::Adc,
+                    aux_rate,
+                    Samples::F32(&aux),
+                    Compression::Raw,
+                ),
+            ],
+        )
+        .unwrap();
+        w.finish().unwrap();
+    }
+}
+
+/// `bundle` on a directory of frame files, then `scan`, gives exactly the
+/// triggers of the same samples as one `.npy` (the missing third file as
+/// NaN there): same times, frequencies and SNRs. Thumbnails read the
+/// frames. A `--target` found in no file is refused.
+#[test]
+fn frame_bundle_scans_like_npy_with_a_missing_file() {
+    let d = Dir::new();
+    let file_s = 32.0;
+    let n = (5.0 * file_s * RATE) as usize;
+    let mut g = day_glitches(0, T0);
+    g.extend(day_glitches(1, T0 + 96.0).into_iter().take(6));
+    let x = series(4, T0, n, &g);
+    write_frames(&d.path().join("frames"), T0, file_s, &x, &[2]);
+    let out = d.run(&["bundle", "frames", "--out", "fb", "--target", "AV7:NOPE"]);
+    assert!(!out.status.success());
+    assert!(String::from_utf8_lossy(&out.stderr).contains("AV7:NOPE"));
+    d.ok(&["bundle", "frames", "--out", "fb", "--target", "AV7:STRAIN"]);
+    let toml = std::fs::read_to_string(d.path().join("fb/bundle.toml")).unwrap();
+    assert!(
+        toml.contains("AV7:AUX") && toml.contains("\"target\""),
+        "{toml}"
+    );
+    let b = glitchbook::io::Bundle::open(&d.path().join("fb")).unwrap();
+    let strain = b.channels.iter().find(|c| c.name == "AV7:STRAIN").unwrap();
+    assert_eq!(strain.files.len(), 4);
+    assert_eq!((strain.rate, strain.start), (RATE, T0));
+    let aux = b.channels.iter().find(|c| c.name == "AV7:AUX").unwrap();
+    assert_eq!(aux.rate, 256.0);
+
+    // The same samples as .npy, NaN where the file is missing.
+    let mut y = x.clone();
+    let per = (file_s * RATE) as usize;
+    y[2 * per..3 * per].iter_mut().for_each(|v| *v = f64::NAN);
+    let e = Dir::new();
+    npy_bundle(&e, "nb", "AV7:STRAIN", &y, T0);
+    scan(&d, "fb", &["--channel", "AV7:STRAIN"]);
+    scan(&e, "nb", &[]);
+    let key = |v: &Vec<serde_json::Value>| -> Vec<(f64, f64, f64)> {
+        v.iter()
+            .map(|t| {
+                (
+                    t["t_peak"].as_f64().unwrap(),
+                    t["f_peak"].as_f64().unwrap(),
+                    t["snr"].as_f64().unwrap(),
+                )
+            })
+            .collect()
+    };
+    let from_frames = key(&triggers_json(&d, &[]));
+    let from_npy = key(&triggers_json(&e, &[]));
+    assert!(from_npy.len() >= 8, "{from_npy:?}");
+    assert_eq!(from_frames, from_npy);
+    // No trigger in the missing file's time, and analysed time agrees.
+    let gap = (T0 + 2.0 * file_s, T0 + 3.0 * file_s);
+    assert!(from_frames.iter().all(|t| t.0 < gap.0 || t.0 >= gap.1));
+    let a = glitchbook::catalogue::analysed_segments(
+        &glitchbook::catalogue::open(&d.db()).unwrap(),
+        "AV7:STRAIN",
+    )
+    .unwrap();
+    let b = glitchbook::catalogue::analysed_segments(
+        &glitchbook::catalogue::open(&e.db()).unwrap(),
+        "AV7:STRAIN",
+    )
+    .unwrap();
+    assert_eq!(a.segments(), b.segments());
+    // A trigger's map is read from the frame files.
+    let id = triggers_json(&d, &["--min-snr", "8"])[0]["id"].to_string();
+    d.ok(&["thumbnail", &id, "--out", "f.png"]);
+    // A frame file changed after the scan is named.
+    let victim = d
+        .path()
+        .join(format!("frames/AV7-TEST-{}-32.gwf", (T0 + 32.0) as i64));
+    let mut bytes = std::fs::read(&victim).unwrap();
+    let k = bytes.len() / 2;
+    bytes[k] ^= 0x55;
+    std::fs::write(&victim, bytes).unwrap();
+    let out = d.run(&["thumbnail", &id, "--out", "g.png"]);
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("AV7-TEST-1400000032-32.gwf") && err.contains("changed since"),
+        "{err}"
+    );
+}

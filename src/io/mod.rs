@@ -8,6 +8,7 @@ pub mod bundle;
 pub mod gwf;
 #[cfg(feature = "hdf5")]
 pub mod hdf5;
+pub mod inspect;
 pub mod npy;
 pub mod source;
 pub mod text;

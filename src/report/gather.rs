@@ -15,6 +15,9 @@ use std::collections::BTreeMap;
 pub struct ReportParams {
     /// How the catalogue is named on the pages (usually its path).
     pub catalogue: String,
+    /// The target channel reported on (`None`: the catalogue's only target
+    /// channel; an error when it has several).
+    pub channel: Option<String>,
     /// Span start \[GPS s\] (`None` = start of live time).
     pub since_gps: Option<f64>,
     /// Span end \[GPS s\] (`None` = end of live time).
@@ -39,6 +42,7 @@ impl Default for ReportParams {
     fn default() -> Self {
         ReportParams {
             catalogue: String::new(),
+            channel: None,
             since_gps: None,
             until_gps: None,
             min_snr: 0.0,
@@ -257,6 +261,7 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         min_snr: p.min_snr,
         cl: p.cl,
         p0: p.p0,
+        channel: p.channel.clone(),
         ..RateParams::default()
     };
     let rates = rates(conn, &rp)?;
