@@ -198,6 +198,10 @@ fn overlapping_and_repeated_scans() {
         .unwrap();
     assert!(moved > 0, "the overlap held triggers of scan A");
     assert_eq!(listed + moved, found);
+    // `channels` counts the listed triggers.
+    let ch: serde_json::Value =
+        serde_json::from_str(&d.ok(&["channels", "--format", "json"])).unwrap();
+    assert_eq!(ch[0]["n_triggers"].as_i64(), Some(listed), "{ch}");
     // Analysed time is the union of both scans', and every listed trigger
     // is in it.
     let analysed = glitchbook::catalogue::analysed_segments(&conn, "AV7:STRAIN").unwrap();

@@ -180,12 +180,14 @@ pub fn render_family_thumbnails(
 pub const REPORT_IMAGES_PER_FAMILY: usize = 3;
 
 /// The report's images: [`REPORT_IMAGES_PER_FAMILY`] members of every active
-/// family in `out_dir/thumbs`, computed from the scanned bundles. When the
-/// data can no longer be opened there are no images and the reason is
-/// returned beside them (the report goes on without).
+/// family in `out_dir/thumbs`, computed from the files the scans recorded.
+/// When the scan records cannot be read there are no images and the reason
+/// is returned beside them (the report goes on without).
 ///
 /// # Errors
-/// As [`render_family_thumbnails`] once the data are open.
+/// As [`render_family_thumbnails`]: among them a data file missing or
+/// changed since its scan, named in the message (as for `cluster` and
+/// `thumbnail`; changed data are never used).
 pub fn report_thumbnails(
     conn: &Connection,
     out_dir: &std::path::Path,
