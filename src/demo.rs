@@ -1099,6 +1099,18 @@ pub fn convert_to_frames(dir: &Path, frame_s: f64) -> Result<Vec<PathBuf>> {
         );
     }
     write_text(&toml_path, &text)?;
+    let readme = dir.join("README.txt");
+    if let Ok(mut r) = std::fs::read_to_string(&readme) {
+        let _ = write!(
+            r,
+            "\nWritten as frame files (demo --format gwf): every channel is in \
+             frames/AV1-DEMO-GPS-DUR.gwf ({} files of {frame_s} s, processed-data \
+             channels, gzip); bundle.toml names them and the .npy files above were \
+             not kept.\n",
+            written.len()
+        );
+        write_text(&readme, &r)?;
+    }
     for c in chans {
         std::fs::remove_file(&c.file).with_context(|| format!("removing {}", c.file.display()))?;
     }

@@ -444,3 +444,67 @@ fn frame_bundle_scans_like_npy_with_a_missing_file() {
         "{err}"
     );
 }
+
+/// `bundle` on an HDF5 strain file written by h5py 3.16.0 (fixture
+/// `tests/data/hdf5/contiguous_f64.h5`: 64 s at 256 Hz from GPS
+/// 1400000000, `Xstart`/`Xspacing` on `strain/Strain`): the channel is named
+/// after the file, rate and start come from the attributes, and the bundle
+/// reads the samples h5py wrote (`expected/contiguous_f64.npy`).
+#[cfg(feature = "hdf5")]
+#[test]
+fn bundle_of_an_hdf5_file() {
+    use glitchbook::scan::SampleSource;
+    let d = Dir::new();
+    let src = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/hdf5");
+    std::fs::create_dir_all(d.path().join("h")).unwrap();
+    std::fs::copy(
+        src.join("contiguous_f64.h5"),
+        d.path().join("h/AV7-H5STRAIN-1400000000-64.h5"),
+    )
+    .unwrap();
+    d.ok(&["bundle", "h", "--out", "hb", "--target", "AV7-H5STRAIN"]);
+    let b = glitchbook::io::Bundle::open(&d.path().join("hb")).unwrap();
+    let c = &b.channels[0];
+    assert_eq!(c.name, "AV7-H5STRAIN");
+    assert_eq!((c.rate, c.start), (256.0, 1_400_000_000.0));
+    assert_eq!(c.format.name(), "hdf5");
+    let s = glitchbook::io::ChannelSource::open(c).unwrap();
+    let want = glitchbook::io::NpyReader::open(&src.join("expected/contiguous_f64.npy")).unwrap();
+    let mut a = vec![0.0; want.len];
+    let mut w = vec![0.0; want.len];
+    s.read(0, &mut a).unwrap();
+    want.read_f64(0, &mut w).unwrap();
+    assert_eq!(a, w);
+}
+
+/// `demo --format gwf` writes the scenario as frame files (no `.npy` kept)
+/// and runs the whole loop on them.
+#[test]
+fn demo_as_frame_files() {
+    let d = Dir::new();
+    let out = d.ok(&["demo", "--out", "g", "--hours", "0.1", "--format", "gwf"]);
+    assert!(
+        out.contains("as frame files") && out.contains("6. report"),
+        "{out}"
+    );
+    let frames = std::fs::read_dir(d.path().join("g/frames"))
+        .unwrap()
+        .count();
+    assert_eq!(frames, 2); // 360 s in files of 256 s
+    let npy = std::fs::read_dir(d.path().join("g"))
+        .unwrap()
+        .filter(|e| {
+            e.as_ref()
+                .unwrap()
+                .path()
+                .extension()
+                .is_some_and(|x| x == "npy")
+        })
+        .count();
+    assert_eq!(npy, 0);
+    let toml = std::fs::read_to_string(d.path().join("g/bundle.toml")).unwrap();
+    assert!(
+        toml.contains("dir = \"frames\"") && !toml.contains(".npy"),
+        "{toml}"
+    );
+}
