@@ -211,6 +211,8 @@ fn main() {
     let spec = glitchbook::io::ChannelSpec {
         name: "B1:CHANNEL".into(),
         file: npy.clone(),
+        files: vec![npy.clone()],
+        format: glitchbook::io::DataFormat::Npy,
         rate: FS,
         start: 1_400_000_000.0,
         role: glitchbook::io::Role::Target,

@@ -60,6 +60,8 @@ fn main() {
     let spec = ChannelSpec {
         name: "LONG:STRAIN".into(),
         file: path.clone(),
+        files: vec![path.clone()],
+        format: glitchbook::io::DataFormat::Npy,
         rate: fs,
         start: 1_400_000_000.0,
         role: Role::Target,

@@ -45,6 +45,8 @@ fn main() {
     let spec = ChannelSpec {
         name: "AV1:STRAIN".into(),
         file: "/virtual/x.npy".into(),
+        files: vec!["/virtual/x.npy".into()],
+        format: glitchbook::io::DataFormat::Npy,
         rate: fs,
         start: t0,
         role: Role::Target,

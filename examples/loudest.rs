@@ -17,6 +17,8 @@ fn main() -> anyhow::Result<()> {
     let spec = ChannelSpec {
         name: "channel".into(),
         file: PathBuf::from(&args[0]),
+        files: vec![PathBuf::from(&args[0])],
+        format: glitchbook::io::DataFormat::Npy,
         rate: args[1].parse()?,
         start: args[2].parse()?,
         role: Role::Target,

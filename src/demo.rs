@@ -1003,3 +1003,116 @@ fn readme(
     );
     s
 }
+
+/// Length of each demo frame file \[s\] (`demo --format gwf`).
+pub const DEMO_FRAME_S: f64 = 256.0;
+
+/// Turn a demo bundle written by [`write_scenario`] into frame files: every
+/// channel of `DIR/bundle.toml` goes into `DIR/frames/AV1-DEMO-GPS-DUR.gwf`
+/// files of `frame_s` seconds (one frame each, processed-data channels,
+/// samples in the `.npy` file's type, gzip level 1), `bundle.toml` is
+/// rewritten to name them (`format = "gwf"`, `dir = "frames"`) and the
+/// `.npy` files are removed. Returns the frame files written.
+///
+/// # Errors
+/// A bundle that cannot be read, channels that do not share one start and
+/// length, or a file that cannot be written.
+pub fn convert_to_frames(dir: &Path, frame_s: f64) -> Result<Vec<PathBuf>> {
+    use crate::io::gwf::writer::{ChannelData, GwfWriter, Samples};
+    use crate::io::gwf::{ChannelKind, Compression};
+    use crate::scan::SampleSource;
+    let bundle = crate::io::Bundle::open(dir)?;
+    let chans = &bundle.channels;
+    let start = chans.first().context("demo bundle has no channel")?.start;
+    let mut span_s = f64::NAN;
+    let mut srcs = Vec::with_capacity(chans.len());
+    for c in chans {
+        let r = crate::io::NpyReader::open(&c.file)?;
+        let s = r.len as f64 / c.rate;
+        if c.start != start || (span_s.is_finite() && s != span_s) {
+            bail!(
+                "{}: channels do not share one start and length",
+                c.file.display()
+            );
+        }
+        span_s = s;
+        srcs.push((r.dtype, crate::io::ChannelSource::open(c)?));
+    }
+    let frames_dir = dir.join("frames");
+    std::fs::create_dir_all(&frames_dir)
+        .with_context(|| format!("creating {}", frames_dir.display()))?;
+    let mut written = Vec::new();
+    let mut t = 0.0;
+    while t < span_s {
+        let dur = frame_s.min(span_s - t);
+        let t_gps = start + t;
+        let mut f64s: Vec<Vec<f64>> = Vec::with_capacity(chans.len());
+        for (c, (_, src)) in chans.iter().zip(&srcs) {
+            let i0 = (t * c.rate).round() as usize;
+            let n = (dur * c.rate).round() as usize;
+            let mut buf = vec![0.0; n];
+            src.read(i0, &mut buf)?;
+            f64s.push(buf);
+        }
+        let f32s: Vec<Vec<f32>> = f64s
+            .iter()
+            .zip(&srcs)
+            .map(|(x, (dt, _))| match dt {
+                crate::io::NpyDtype::F32 => x.iter().map(|&v| v as f32).collect(),
+                crate::io::NpyDtype::F64 => Vec::new(),
+            })
+            .collect();
+        let data: Vec<ChannelData> = chans
+            .iter()
+            .zip(f64s.iter().zip(&f32s))
+            .zip(&srcs)
+            .map(|((c, (x64, x32)), (dt, _))| {
+                let samples = match dt {
+                    crate::io::NpyDtype::F32 => Samples::F32(x32),
+                    crate::io::NpyDtype::F64 => Samples::F64(x64),
+                };
+                ChannelData::new(
+                    &c.name,
+                    ChannelKind::Proc,
+                    c.rate,
+                    samples,
+                    Compression::Gzip,
+                )
+            })
+            .collect();
+        let path = frames_dir.join(format!("AV1-DEMO-{}-{}.gwf", t_gps.round(), dur.round()));
+        let mut w = GwfWriter::create(&path, 1)?;
+        w.write_frame(crate::catalogue::to_ns(t_gps)?, dur, 0, &data)?;
+        w.finish()?;
+        written.push(path);
+        t += dur;
+    }
+    // bundle.toml names the frame files instead of the .npy files.
+    let toml_path = dir.join("bundle.toml");
+    let mut text = std::fs::read_to_string(&toml_path)
+        .with_context(|| format!("reading {}", toml_path.display()))?;
+    for c in chans {
+        let name = c.file.file_name().and_then(|n| n.to_str()).unwrap_or("");
+        text = text.replace(
+            &format!("file = \"{name}\"\n"),
+            "format = \"gwf\"\ndir = \"frames\"\n",
+        );
+    }
+    write_text(&toml_path, &text)?;
+    let readme = dir.join("README.txt");
+    if let Ok(mut r) = std::fs::read_to_string(&readme) {
+        let _ = write!(
+            r,
+            "\nWritten as frame files (demo --format gwf): every channel is in \
+             frames/AV1-DEMO-GPS-DUR.gwf ({} files of {frame_s} s, processed-data \
+             channels, gzip); bundle.toml names them and the .npy files above were \
+             not kept.\n",
+            written.len()
+        );
+        write_text(&readme, &r)?;
+    }
+    for c in chans {
+        std::fs::remove_file(&c.file).with_context(|| format!("removing {}", c.file.display()))?;
+    }
+    Ok(written)
+}

@@ -22,15 +22,15 @@
 //! zero energy.
 
 use crate::families::features::{EnergyMapSource, RowEnergies, ScanBand};
-use crate::io::Bundle;
-use crate::scan::{Conditioner, NpyChannel, ResolvedParams, SampleSource};
+use crate::io::{Bundle, ChannelSource, ChannelSpec, FileStamp};
+use crate::scan::{Conditioner, ResolvedParams, SampleSource};
 use crate::segments::SegmentList;
 use crate::tf::{mismatch_step, sigma_t, QPlan};
 use anyhow::{anyhow, bail, Context, Result};
 use realfft::{ComplexToReal, RealFftPlanner, RealToComplex};
 use rusqlite::{Connection, OptionalExtension};
 use std::collections::HashMap;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::sync::{Arc, Mutex, OnceLock};
 
 /// Extra padding beyond the scan's, so the longest map window (16 s) fits
@@ -47,11 +47,93 @@ const CACHE_BLOCKS: usize = 48;
 /// conditioners (one per channel and block length), kept in memory.
 const CACHE_PLANS: usize = 64;
 
-/// One channel's data and scan parameters.
-struct ChannelData {
-    src: NpyChannel,
+/// Where a scan's samples are, before they are opened.
+enum DataRef {
+    /// Recorded with the scan (migration 0008): the channel's files and
+    /// their stamps.
+    Recorded {
+        spec: ChannelSpec,
+        stamps: Vec<FileStamp>,
+    },
+    /// Older scans: the bundle directory, reopened.
+    Bundle(PathBuf),
+}
+
+/// A scan's data, opened and checked.
+struct Opened {
+    src: ChannelSource,
+    valid: SegmentList,
+}
+
+/// One scan of a channel: its time, parameters and data (opened on first
+/// use and checked against what the scan recorded).
+struct ScanData {
+    scan_id: i64,
+    analysed: SegmentList,
+    /// Data span of the scan \[GPS s\].
+    span: (f64, f64),
     params: ResolvedParams,
-    valid: OnceLock<SegmentList>,
+    input_checksum: String,
+    data: DataRef,
+    opened: OnceLock<std::result::Result<Arc<Opened>, String>>,
+}
+
+/// One channel's scans, latest first.
+struct ChannelData {
+    scans: Vec<ScanData>,
+}
+
+impl ScanData {
+    /// What this scan is, for messages.
+    fn what(&self, channel: &str) -> String {
+        format!("scan {} of channel {channel}", self.scan_id)
+    }
+
+    /// Open (once) and check the data: every recorded file as stamped, and
+    /// the samples' checksum as the scan computed it.
+    fn open(&self, channel: &str) -> Result<Arc<Opened>> {
+        let r = self.opened.get_or_init(|| {
+            self.open_uncached(channel)
+                .map(Arc::new)
+                .map_err(|e| format!("{e:#}"))
+        });
+        r.clone().map_err(|e| anyhow!(e))
+    }
+
+    fn open_uncached(&self, channel: &str) -> Result<Opened> {
+        let what = self.what(channel);
+        let src = match &self.data {
+            DataRef::Recorded { spec, stamps } => {
+                for st in stamps {
+                    st.verify(&what)?;
+                }
+                ChannelSource::open(spec)?
+            }
+            DataRef::Bundle(path) => {
+                let b = Bundle::open(path).with_context(|| {
+                    format!("opening bundle {} recorded by {what}", path.display())
+                })?;
+                let spec = b
+                    .channels
+                    .iter()
+                    .find(|c| c.name == channel)
+                    .ok_or_else(|| {
+                        anyhow!("bundle {} no longer has channel {channel}", path.display())
+                    })?;
+                ChannelSource::open(spec)?
+            }
+        };
+        let (valid, checksum) = src.survey()?;
+        if checksum != self.input_checksum {
+            bail!(
+                "{}: the samples changed since {what} (checksum {checksum}, recorded {}); \
+                 restore the data or re-scan",
+                src.describe(),
+                self.input_checksum
+            );
+        }
+        Ok(Opened { src, valid })
+    }
 }
 
 /// A whitened block as a time series with unit spectral level in band.
@@ -92,48 +174,96 @@ pub struct BundleMaps {
 }
 
 impl BundleMaps {
-    /// Open the data of every channel that has a scan (kind `scan`): the
-    /// bundle directory and parameters of its latest scan. Channels known
-    /// only from imports have no data and are skipped.
+    /// Know the data of every scan (kind `scan`) of every channel: the
+    /// files recorded with it (or, for scans older than that record, its
+    /// bundle directory), parameters and analysed time. Nothing is opened
+    /// here: a scan's data are opened, and checked against the stamps and
+    /// sample checksum the scan recorded, when a map first needs them. A map
+    /// at time t of a channel comes from the latest scan whose analysed time
+    /// holds t (the scan whose triggers are listed there), else the latest
+    /// whose data span holds it. Channels known only from imports have no
+    /// data.
     ///
     /// # Errors
-    /// A recorded bundle that can no longer be opened (moved or changed).
+    /// Database errors, or a scan record that cannot be read.
     pub fn from_catalogue(conn: &Connection) -> Result<BundleMaps> {
-        let mut st = conn.prepare(
-            "SELECT c.name, s.source_path, s.params_json FROM scans s
-             JOIN channels c ON c.id = s.channel_id
-             WHERE s.kind = 'scan' ORDER BY s.id",
-        )?;
-        let mut latest: HashMap<String, (String, String)> = HashMap::new();
-        let rows = st.query_map([], |r| Ok((r.get::<_, String>(0)?, r.get(1)?, r.get(2)?)))?;
-        for row in rows {
-            let (name, path, params) = row?;
-            latest.insert(name, (path, params));
-        }
-        let mut bundles: HashMap<String, Bundle> = HashMap::new();
-        let mut channels = HashMap::new();
-        for (name, (path, params_json)) in latest {
-            if !bundles.contains_key(&path) {
-                let b = Bundle::open(Path::new(&path)).with_context(|| {
-                    format!("opening bundle {path} recorded by the scan of channel {name}")
-                })?;
-                bundles.insert(path.clone(), b);
-            }
-            let spec = bundles[&path]
-                .channels
-                .iter()
-                .find(|c| c.name == name)
-                .ok_or_else(|| anyhow!("bundle {path} no longer has channel {name}"))?;
+        let has_files = conn.prepare("SELECT data_json FROM scans LIMIT 0").is_ok();
+        let sql = if has_files {
+            "SELECT s.id, c.name, s.source_path, s.params_json, s.input_checksum, \
+             s.span_start_ns, s.span_end_ns, s.data_json FROM scans s \
+             JOIN channels c ON c.id = s.channel_id WHERE s.kind = 'scan' ORDER BY s.id DESC"
+        } else {
+            "SELECT s.id, c.name, s.source_path, s.params_json, s.input_checksum, \
+             s.span_start_ns, s.span_end_ns, NULL FROM scans s \
+             JOIN channels c ON c.id = s.channel_id WHERE s.kind = 'scan' ORDER BY s.id DESC"
+        };
+        type Row = (
+            i64,
+            String,
+            String,
+            String,
+            String,
+            i64,
+            i64,
+            Option<String>,
+        );
+        let rows: Vec<Row> = conn
+            .prepare(sql)?
+            .query_map([], |r| {
+                Ok((
+                    r.get(0)?,
+                    r.get(1)?,
+                    r.get(2)?,
+                    r.get(3)?,
+                    r.get(4)?,
+                    r.get(5)?,
+                    r.get(6)?,
+                    r.get(7)?,
+                ))
+            })?
+            .collect::<rusqlite::Result<_>>()?;
+        let mut channels: HashMap<String, ChannelData> = HashMap::new();
+        for (id, name, path, params_json, checksum, a_ns, b_ns, data_json) in rows {
             let params: ResolvedParams = serde_json::from_str(&params_json)
-                .with_context(|| format!("parameters of the scan of {name}"))?;
-            channels.insert(
-                name,
-                ChannelData {
-                    src: NpyChannel::open(spec)?,
+                .with_context(|| format!("parameters of scan {id} of {name}"))?;
+            let data = match data_json {
+                Some(j) => {
+                    let spec = crate::io::source::spec_from_json(&name, &j)?;
+                    let stamps = conn
+                        .prepare_cached(
+                            "SELECT path, bytes, mtime_ns, checksum FROM scan_files \
+                             WHERE scan_id = ?1 ORDER BY path",
+                        )?
+                        .query_map([id], |r| {
+                            Ok(FileStamp {
+                                path: PathBuf::from(r.get::<_, String>(0)?),
+                                bytes: r.get::<_, i64>(1)? as u64,
+                                mtime_ns: r.get(2)?,
+                                checksum: r.get(3)?,
+                            })
+                        })?
+                        .collect::<rusqlite::Result<_>>()?;
+                    DataRef::Recorded { spec, stamps }
+                }
+                None => DataRef::Bundle(PathBuf::from(path)),
+            };
+            let analysed = crate::catalogue::scan_segments(conn, id)?;
+            channels
+                .entry(name)
+                .or_insert_with(|| ChannelData { scans: Vec::new() })
+                .scans
+                .push(ScanData {
+                    scan_id: id,
+                    analysed,
+                    span: (
+                        crate::catalogue::from_ns(a_ns),
+                        crate::catalogue::from_ns(b_ns),
+                    ),
                     params,
-                    valid: OnceLock::new(),
-                },
-            );
+                    input_checksum: checksum,
+                    data,
+                    opened: OnceLock::new(),
+                });
         }
         Ok(BundleMaps {
             channels,
@@ -143,6 +273,18 @@ impl BundleMaps {
             planner: Mutex::new(rustfft::FftPlanner::new()),
             window_ffts: Mutex::new(RealFftPlanner::new()),
         })
+    }
+
+    /// The scan whose data serve a map of `channel` at GPS `t`.
+    fn scan_at(&self, channel: &str, t: f64) -> Result<&ScanData> {
+        let cd = self.channels.get(channel).ok_or_else(|| {
+            anyhow!("no scanned data for channel {channel} (imported triggers have no data)")
+        })?;
+        cd.scans
+            .iter()
+            .find(|s| s.analysed.contains(t))
+            .or_else(|| cd.scans.iter().find(|s| s.span.0 <= t && t < s.span.1))
+            .ok_or_else(|| anyhow!("{channel}: GPS {t} is in no scan of this channel"))
     }
 
     /// Paths of the bundles in use (for messages).
@@ -156,20 +298,18 @@ impl BundleMaps {
     fn white_block(
         &self,
         channel: &str,
-        cd: &ChannelData,
+        cd: &ScanData,
+        data: &Opened,
         t_center: f64,
     ) -> Result<Arc<WhiteBlock>> {
-        let src = &cd.src;
+        let src = &data.src;
         let fs = src.rate_hz();
         let t0 = src.start_gps();
         let p = &cd.params;
-        let valid = match cd.valid.get() {
-            Some(v) => v,
-            None => {
-                let (v, _) = src.survey()?;
-                cd.valid.get_or_init(|| v)
-            }
-        };
+        let valid = &data.valid;
+        // Caches are per scan: two scans of a channel may read other files.
+        let key_name = format!("{channel}#{}", cd.scan_id);
+        let channel_key = key_name.as_str();
         let Some(seg) = valid.segments().iter().find(|s| s.contains(t_center)) else {
             bail!("{channel}: GPS {t_center} is not in valid data");
         };
@@ -189,13 +329,13 @@ impl BundleMaps {
         let ic = ((t_center - t0) * fs) as usize;
         let k = ic.saturating_sub(a + pad) / step;
         let i0 = (a + k * step).min(b - n);
-        let key = (channel.to_string(), i0, n);
+        let key = (channel_key.to_string(), i0, n);
         if let Some(hit) = self.blocks.lock().expect("cache lock").get(&key) {
             return Ok(hit.clone());
         }
         let cond = {
             let mut c = self.conditioners.lock().expect("cache lock");
-            match c.get(&(channel.to_string(), n)) {
+            match c.get(&(channel_key.to_string(), n)) {
                 Some(hit) => hit.clone(),
                 None => {
                     let hp = (0.5 * p.fmin, 0.9 * p.fmin);
@@ -214,7 +354,7 @@ impl BundleMaps {
                     if c.len() >= CACHE_PLANS {
                         c.clear();
                     }
-                    c.insert((channel.to_string(), n), made.clone());
+                    c.insert((channel_key.to_string(), n), made.clone());
                     made
                 }
             }
@@ -244,18 +384,11 @@ impl BundleMaps {
 
     /// The taper and forward FFT of windows of `m` samples with `taper`
     /// samples of raised cosine at each end (cached per channel and sizes).
-    fn window_plan(
-        &self,
-        channel: &str,
-        cd: &ChannelData,
-        m: usize,
-        taper: usize,
-    ) -> Arc<WindowPlan> {
+    fn window_plan(&self, channel: &str, m: usize, taper: usize) -> Arc<WindowPlan> {
         let key = (channel.to_string(), m, taper);
         if let Some(hit) = self.plans.lock().expect("cache lock").get(&key) {
             return hit.clone();
         }
-        let _ = cd;
         let taper: Vec<f32> = crate::condition::tukey(m, taper)
             .into_iter()
             .map(|v| v as f32)
@@ -281,7 +414,8 @@ impl BundleMaps {
 
 impl EnergyMapSource for BundleMaps {
     fn scan_band(&self, channel: &str) -> Option<ScanBand> {
-        let p = &self.channels.get(channel)?.params;
+        // The latest scan's band (scans are kept latest first).
+        let p = &self.channels.get(channel)?.scans.first()?.params;
         Some(ScanBand {
             f_lo_hz: p.fmin,
             f_hi_hz: p.fmax,
@@ -297,13 +431,12 @@ impl EnergyMapSource for BundleMaps {
         q: f64,
         freqs_hz: &[f64],
     ) -> Result<Vec<Option<RowEnergies>>> {
-        let cd = self.channels.get(channel).ok_or_else(|| {
-            anyhow!("no scanned data for channel {channel} (imported triggers have no data)")
-        })?;
+        let cd = self.scan_at(channel, t_center_gps)?;
+        let data = cd.open(channel)?;
         // Q below 2 loses its meaning as a tile shape (common practice).
         let q = q.clamp(2.0, 128.0);
-        let fs = cd.src.rate_hz();
-        let block = self.white_block(channel, cd, t_center_gps)?;
+        let fs = data.src.rate_hz();
+        let block = self.white_block(channel, cd, &data, t_center_gps)?;
         // Window: the span, three tile durations at the lowest row analysed
         // and a taper of four, each side; a power of two of samples.
         let f_low = freqs_hz
@@ -315,7 +448,7 @@ impl EnergyMapSource for BundleMaps {
         let taper_s = (4.0 * reach_s).clamp(MIN_TAPER_S, MAX_TAPER_S);
         let half_s = 0.5 * span_s + 3.0 * reach_s + taper_s;
         let m = (((2.0 * half_s * fs).ceil() as usize).next_power_of_two()).min(block.x.len());
-        let win = self.window_plan(channel, cd, m, (taper_s * fs).round() as usize);
+        let win = self.window_plan(channel, m, (taper_s * fs).round() as usize);
         let rows = {
             let mut planner = self.planner.lock().expect("planner lock");
             QPlan::single_plane(
@@ -328,7 +461,7 @@ impl EnergyMapSource for BundleMaps {
                 &mut planner,
             )
         };
-        let t0 = cd.src.start_gps();
+        let t0 = data.src.start_gps();
         let ic = ((t_center_gps - t0) * fs).round() as usize;
         let w0 = ic
             .saturating_sub(m / 2)

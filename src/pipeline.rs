@@ -37,6 +37,9 @@ pub struct DemoRunOptions {
     pub seed: u64,
     /// Length of the scenario \[h\] (0.05 to 4).
     pub hours: f64,
+    /// Write the channels as frame files (`DIR/frames/*.gwf`, see
+    /// [`demo::convert_to_frames`]) instead of `.npy` files.
+    pub frames: bool,
 }
 
 /// A line of progress from [`run_demo`].
@@ -160,6 +163,18 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
         sc.dir.display(),
         t.elapsed().as_secs_f64()
     ));
+
+    if o.frames {
+        let t = Instant::now();
+        let files = demo::convert_to_frames(&o.out, demo::DEMO_FRAME_S)?;
+        say(format!(
+            "   as frame files: {} files of {} s in {} ({:.1} s)",
+            files.len(),
+            demo::DEMO_FRAME_S,
+            o.out.join("frames").display(),
+            t.elapsed().as_secs_f64()
+        ));
+    }
 
     // 2. Scan every channel inside the analysis segments.
     let t = Instant::now();

@@ -728,7 +728,7 @@ pub fn scan_channel(
     segments: Option<&SegmentList>,
     progress: &(dyn Fn(f64) + Sync),
 ) -> Result<ChannelScan> {
-    let src = NpyChannel::open(spec)?;
+    let src = crate::io::ChannelSource::open(spec)?;
     let (params, analysed, triggers, input_checksum) =
         scan_source(&src, params, (spec.fmin, spec.fmax), segments, progress)
             .with_context(|| format!("channel {}", spec.name))?;

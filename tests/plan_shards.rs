@@ -106,6 +106,8 @@ fn spec(c: &Chan) -> ChannelSpec {
     ChannelSpec {
         name: c.name.into(),
         file: format!("/virtual/bundle/{}.npy", c.name).into(),
+        files: vec![format!("/virtual/bundle/{}.npy", c.name).into()],
+        format: glitchbook::io::DataFormat::Npy,
         rate: c.rate_hz,
         start: T0,
         role: if c.name.ends_with("STRAIN") {

@@ -77,3 +77,6 @@ mod reliability_kill_pipeline;
 mod reliability_round2;
 /// Issue 6 reliability: schema upgrades and refusal of newer catalogues.
 mod reliability_upgrade;
+
+/// Following a run: days of one channel, overlapping and repeated scans, changed data, frame bundles.
+mod runs_data;

@@ -111,7 +111,8 @@ pub fn check(conn: &Connection) -> Result<CheckReport> {
 
     let bad: i64 = conn.query_row(
         "SELECT COUNT(*) FROM scans s WHERE s.n_triggers != \
-         (SELECT COUNT(*) FROM triggers t WHERE t.scan_id = s.id)",
+         (SELECT COUNT(*) FROM triggers t WHERE t.scan_id = s.id) \
+         + (SELECT COUNT(*) FROM superseded_triggers t WHERE t.scan_id = s.id)",
         [],
         |r| r.get(0),
     )?;

@@ -25,12 +25,12 @@ mod write;
 
 pub use check::{check, logical_checksum, table_counts, CheckItem, CheckReport};
 pub use query::{
-    analysed_segments, channel_by_name, channels, query_triggers, trigger_families, ChannelRow,
-    TriggerFamily, TriggerQuery, TriggerRow,
+    analysed_segments, channel_by_name, channels, query_triggers, scan_segments, trigger_families,
+    ChannelRow, TriggerFamily, TriggerQuery, TriggerRow,
 };
 pub use write::{
-    import_triggers, insert_channel_scan, insert_scan, record_scans, run_key, upsert_channel,
-    ImportRecord, InsertOutcome, ScanKind, ScanRecord,
+    import_triggers, insert_channel_scan, insert_scan, record_scan_files, record_scans, run_key,
+    supersede_earlier, upsert_channel, ImportRecord, InsertOutcome, ScanKind, ScanRecord,
 };
 
 /// Numbered migrations, applied in order; the schema version is
@@ -61,6 +61,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
     (
         "0008_family_edits_classifier",
         include_str!("../../migrations/0008_family_edits_classifier.sql"),
+    ),
+    (
+        "0009_scan_files_supersede",
+        include_str!("../../migrations/0009_scan_files_supersede.sql"),
     ),
 ];
 

@@ -20,7 +20,8 @@ pub struct ChannelRow {
     pub rate_hz: Option<f64>,
     /// Number of scans and imports recorded.
     pub n_scans: i64,
-    /// Number of triggers recorded.
+    /// Number of triggers listed: found by its scans and imports, minus
+    /// those a later scan superseded.
     pub n_triggers: i64,
     /// Total analysed time (union over the channel's scans) \[s\].
     pub analysed_s: f64,
@@ -235,6 +236,8 @@ fn channel_from_row(r: &Row) -> rusqlite::Result<ChannelRow> {
 const CHANNEL_SQL: &str = "SELECT c.id, c.name, c.role, c.rate_hz, \
      (SELECT COUNT(*) FROM scans s WHERE s.channel_id = c.id), \
      (SELECT COALESCE(SUM(s.n_triggers), 0) FROM scans s WHERE s.channel_id = c.id) \
+     - (SELECT COUNT(*) FROM superseded_triggers st JOIN scans s ON s.id = st.scan_id \
+        WHERE s.channel_id = c.id) \
      FROM channels c";
 
 /// The channel called `name`, if any.
@@ -283,6 +286,22 @@ pub fn analysed_segments(conn: &Connection, channel: &str) -> Result<SegmentList
     )?;
     let segs = st
         .query_map([channel], |r| {
+            Ok(Segment::new(from_ns(r.get(0)?), from_ns(r.get(1)?)))
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()?;
+    Ok(SegmentList::from_segments(segs))
+}
+
+/// The analysed segments of one scan.
+///
+/// # Errors
+/// Database errors.
+pub fn scan_segments(conn: &Connection, scan_id: i64) -> Result<SegmentList> {
+    let mut st = conn.prepare_cached(
+        "SELECT start_ns, end_ns FROM analysed_segments WHERE scan_id = ?1 ORDER BY start_ns",
+    )?;
+    let segs = st
+        .query_map([scan_id], |r| {
             Ok(Segment::new(from_ns(r.get(0)?), from_ns(r.get(1)?)))
         })?
         .collect::<rusqlite::Result<Vec<_>>>()?;

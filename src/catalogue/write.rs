@@ -250,10 +250,129 @@ pub fn insert_scan(tx: &Transaction, rec: &ScanRecord) -> Result<InsertOutcome> 
         }
     }
     insert_triggers(tx, scan_id, channel_id, rec.triggers)?;
+    supersede_earlier(tx, scan_id, channel_id, rec.analysed)?;
     Ok(InsertOutcome::Inserted {
         scan_id,
         n_triggers: rec.triggers.len(),
     })
+}
+
+/// The rule for time scanned twice: the latest scan (or import) of a
+/// channel is the one listed for the time it analysed. Earlier triggers of
+/// the channel whose peak lies in the new scan's analysed segments move to
+/// `superseded_triggers` (kept with their id and values, and the id of the
+/// scan that replaced them; their family memberships and fingerprints go
+/// with them out of the listings); so do earlier triggers just outside that
+/// time that overlap a new trigger in time and frequency (one event that
+/// straddles the edge, seen by both scans); and an earlier scan whose analysed time
+/// the new one covers entirely is marked `superseded_by`. So overlapping
+/// scans never list a trigger twice, and the analysed time (the union over
+/// scans) and the triggers agree. Returns the number of triggers moved.
+///
+/// # Errors
+/// SQLite errors.
+pub fn supersede_earlier(
+    tx: &Transaction,
+    scan_id: i64,
+    channel_id: i64,
+    analysed: &SegmentList,
+) -> Result<usize> {
+    let mut moved = 0usize;
+    {
+        let mut copy = tx.prepare_cached(
+            "INSERT INTO superseded_triggers (id, scan_id, channel_id, t_peak_ns, t_start_ns,
+                 t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, superseded_by)
+             SELECT id, scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, f_peak_hz,
+                 f_low_hz, f_high_hz, snr, q, energy, ?1 FROM triggers
+             WHERE channel_id = ?2 AND scan_id != ?1 AND t_peak_ns >= ?3 AND t_peak_ns < ?4",
+        )?;
+        let mut del = tx.prepare_cached(
+            "DELETE FROM triggers WHERE channel_id = ?2 AND scan_id != ?1
+             AND t_peak_ns >= ?3 AND t_peak_ns < ?4",
+        )?;
+        for s in analysed.segments() {
+            let (a, b) = (to_ns(s.start)?, to_ns(s.end)?);
+            moved += copy.execute(params![scan_id, channel_id, a, b])?;
+            del.execute(params![scan_id, channel_id, a, b])?;
+        }
+    }
+    // Events that straddle an edge of the new analysed time: an earlier
+    // trigger (peak outside) that overlaps a new trigger in time and
+    // frequency is the same event seen by both scans; the new one stays.
+    if let Some(ext) = analysed.extent() {
+        let w: i64 = tx
+            .prepare_cached(
+                "SELECT COALESCE(MAX(t_end_ns - t_start_ns), 0) FROM triggers WHERE scan_id = ?1",
+            )?
+            .query_row([scan_id], |r| r.get(0))?;
+        let (a, b) = (to_ns(ext.start)? - w, to_ns(ext.end)? + w);
+        let same_event = "FROM triggers o WHERE o.channel_id = ?2 AND o.scan_id != ?1 \
+             AND o.t_peak_ns BETWEEN ?3 AND ?4 AND EXISTS (SELECT 1 FROM triggers n \
+             WHERE n.channel_id = ?2 AND n.scan_id = ?1 \
+             AND n.t_peak_ns BETWEEN o.t_start_ns - ?5 AND o.t_end_ns + ?5 \
+             AND n.t_start_ns <= o.t_end_ns AND n.t_end_ns >= o.t_start_ns \
+             AND n.f_low_hz <= o.f_high_hz AND n.f_high_hz >= o.f_low_hz)";
+        moved += tx
+            .prepare_cached(&format!(
+                "INSERT INTO superseded_triggers (id, scan_id, channel_id, t_peak_ns, t_start_ns,
+                     t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, superseded_by)
+                 SELECT o.id, o.scan_id, o.channel_id, o.t_peak_ns, o.t_start_ns, o.t_end_ns,
+                     o.f_peak_hz, o.f_low_hz, o.f_high_hz, o.snr, o.q, o.energy, ?1 {same_event}"
+            ))?
+            .execute(params![scan_id, channel_id, a, b, w])?;
+        tx.prepare_cached(&format!(
+            "DELETE FROM triggers WHERE id IN (SELECT o.id {same_event})"
+        ))?
+        .execute(params![scan_id, channel_id, a, b, w])?;
+    }
+    // Earlier scans now wholly covered.
+    let earlier: Vec<i64> = tx
+        .prepare_cached(
+            "SELECT id FROM scans WHERE channel_id = ?1 AND id != ?2 AND superseded_by IS NULL",
+        )?
+        .query_map(params![channel_id, scan_id], |r| r.get(0))?
+        .collect::<rusqlite::Result<_>>()?;
+    for id in earlier {
+        let segs = crate::catalogue::query::scan_segments(tx, id)?;
+        if !segs.is_empty() && segs.difference(analysed).total() <= 1e-9 {
+            tx.prepare_cached("UPDATE scans SET superseded_by = ?1 WHERE id = ?2")?
+                .execute(params![scan_id, id])?;
+        }
+    }
+    Ok(moved)
+}
+
+/// Record where a scan's samples came from: the channel's data description
+/// (`scans.data_json`) and a [`crate::io::FileStamp`] of every file
+/// (`scan_files`; files that do not exist, such as the virtual names of
+/// samples scanned from memory, are not stamped).
+///
+/// # Errors
+/// An unreadable file, or SQLite errors.
+pub fn record_scan_files(
+    tx: &Transaction,
+    scan_id: i64,
+    spec: &crate::io::ChannelSpec,
+) -> Result<()> {
+    tx.prepare_cached("UPDATE scans SET data_json = ?1 WHERE id = ?2")?
+        .execute(params![crate::io::source::spec_json(spec), scan_id])?;
+    let mut st = tx.prepare_cached(
+        "INSERT OR IGNORE INTO scan_files (scan_id, path, bytes, mtime_ns, checksum)
+         VALUES (?1, ?2, ?3, ?4, ?5)",
+    )?;
+    // A file that does not exist (samples scanned from memory under a
+    // virtual name) has nothing to stamp; rereading it fails naming it.
+    for f in spec.files.iter().filter(|f| f.exists()) {
+        let stamp = crate::io::FileStamp::of(f)?;
+        st.execute(params![
+            scan_id,
+            stamp.path.display().to_string(),
+            stamp.bytes as i64,
+            stamp.mtime_ns,
+            stamp.checksum
+        ])?;
+    }
+    Ok(())
 }
 
 /// Insert triggers of one scan (row mapping of the `triggers` table).
@@ -317,7 +436,7 @@ pub fn insert_channel_scan(
 ) -> Result<InsertOutcome> {
     let params_json = serde_json::to_string(&scan.params)?;
     let source = source_path.display().to_string();
-    insert_scan(
+    let outcome = insert_scan(
         tx,
         &ScanRecord {
             channel: &scan.channel.name,
@@ -331,7 +450,12 @@ pub fn insert_channel_scan(
             triggers: &scan.triggers,
         },
     )
-    .with_context(|| format!("recording scan of channel {:?}", scan.channel.name))
+    .with_context(|| format!("recording scan of channel {:?}", scan.channel.name))?;
+    if let InsertOutcome::Inserted { scan_id, .. } = outcome {
+        record_scan_files(tx, scan_id, &scan.channel)
+            .with_context(|| format!("recording the files of channel {:?}", scan.channel.name))?;
+    }
+    Ok(outcome)
 }
 
 /// Record channel scans, each with the bundle directory it was read from
@@ -348,6 +472,12 @@ pub fn record_scans(
     scans: &[(ChannelScan, PathBuf)],
     also: impl FnOnce(&Transaction) -> Result<()>,
 ) -> Result<Vec<InsertOutcome>> {
+    // Checksum the files before taking the write lock (cached for the insert).
+    for (scan, _) in scans {
+        for f in scan.channel.files.iter().filter(|f| f.exists()) {
+            crate::io::FileStamp::of(f)?;
+        }
+    }
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
     let mut out = Vec::with_capacity(scans.len());
     for (scan, bundle_dir) in scans {

@@ -21,6 +21,10 @@ pub struct DemoArgs {
     /// Length of the scenario [hours] (0.05 to 4).
     #[arg(long, default_value_t = 2.0)]
     pub hours: f64,
+    /// How the channels are written: `npy` (one file per channel) or `gwf`
+    /// (frame files of 256 s in DIR/frames/, all channels in each).
+    #[arg(long, default_value = "npy", value_parser = ["npy", "gwf"])]
+    pub format: String,
 }
 
 /// Run the command. The catalogue is `DIR/glitchbook.db` unless `--db` names
@@ -36,6 +40,7 @@ pub fn run(g: &Global, a: DemoArgs) -> Result<ExitCode> {
         db,
         seed: a.seed,
         hours: a.hours,
+        frames: a.format == "gwf",
     };
     // Progress lines; a reader that went away (`| head`) does not stop the demo.
     run_demo(&opts, &mut |line| match line {

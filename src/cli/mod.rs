@@ -5,6 +5,7 @@ use clap::{Parser, Subcommand};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
+mod bundle;
 mod channels;
 mod check;
 mod common;
@@ -69,6 +70,8 @@ pub fn warn(msg: &str) {
 /// its own file in `src/cli/`.
 #[derive(Debug, Subcommand)]
 pub enum Command {
+    /// Write DIR/bundle.toml describing the channels of frame, HDF5 and .npy files.
+    Bundle(bundle::BundleArgs),
     /// Search channels of a bundle for transients and record the triggers.
     Scan(scan::ScanArgs),
     /// Record triggers from an external CSV file.
@@ -127,6 +130,7 @@ pub enum Command {
 pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     let g = &cli.global;
     match cli.command {
+        Command::Bundle(a) => bundle::run(g, a),
         Command::Scan(a) => scan::run(g, a),
         Command::Import(a) => import::run(g, a),
         Command::Triggers(a) => triggers::run(g, a),

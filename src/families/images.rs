@@ -356,14 +356,16 @@ fn witness_image(
 pub const REPORT_IMAGES_PER_FAMILY: usize = 3;
 
 /// The report's images: [`REPORT_IMAGES_PER_FAMILY`] members of every active
-/// family in `out_dir/thumbs`, computed from the scanned bundles, plus the
-/// witnessing aux channel beside the first member of each family in
-/// `witnesses` (see [`render_family_thumbnails`]). When the data can no
-/// longer be opened there are no images and the reason is returned beside
+/// family in `out_dir/thumbs`, computed from the files the scans recorded,
+/// plus the witnessing aux channel beside the first member of each family
+/// in `witnesses` (see [`render_family_thumbnails`]). When the scan records
+/// cannot be read there are no images and the reason is returned beside
 /// them (the report goes on without).
 ///
 /// # Errors
-/// As [`render_family_thumbnails`] once the data are open.
+/// As [`render_family_thumbnails`]: among them a data file missing or
+/// changed since its scan, named in the message (as for `cluster` and
+/// `thumbnail`; changed data are never used).
 pub fn report_thumbnails(
     conn: &Connection,
     out_dir: &std::path::Path,

@@ -1,4 +1,6 @@
-//! The channel bundle: a directory with `bundle.toml` and one `.npy` per channel.
+//! The channel bundle: a directory with `bundle.toml` describing channels
+//! held in `.npy` files (one per channel), frame files (`.gwf`, a channel
+//! spanning many files) or HDF5 strain files.
 //!
 //! ```toml
 //! description = "free text for humans (optional, not used by the tool)"
@@ -13,10 +15,22 @@
 //! fmax = 1000.0            # optional highest analysed frequency [Hz], <= rate/2
 //! ```
 //!
+//! A channel held in frame files names them with `files` (a list; `*` and
+//! `?` match within a file name) or `dir` (every `.gwf` in that directory)
+//! instead of `file`, and `format = "gwf"`; `rate` and `start` (the first
+//! sample of the first file) are checked against the files when the bundle
+//! is opened. Each file carries its own start time; time between files is
+//! a dropout, like NaN. An HDF5 file takes `format = "hdf5"` and optionally
+//! `dataset`, `start_attr` and `spacing_attr` (default: the common
+//! open-data layout, [`crate::io::source::DEFAULT_HDF5_DATASET`]). The
+//! format defaults to the extension of the (first) file (`.gwf`, `.h5` /
+//! `.hdf5` / `.hdf`, else `.npy`). `glitchbook bundle` writes this file from
+//! a set of data files.
+//!
 //! Every error is one line naming `bundle.toml` (with line and column where
 //! TOML gives one), the channel (1-based index and name) and the field.
-use super::npy::NpyReader;
 use super::shown;
+use crate::scan::SampleSource;
 use crate::{Error, Result};
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
@@ -32,13 +46,49 @@ pub enum Role {
     Aux,
 }
 
+/// How a channel's files are stored.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(tag = "format", rename_all = "lowercase")]
+pub enum DataFormat {
+    /// One NumPy `.npy` file (1-D float32/float64).
+    Npy,
+    /// Frame files (`.gwf`); the channel is read by its name.
+    Gwf,
+    /// HDF5 files: the dataset and the attributes with the GPS time of the
+    /// first sample and the sample spacing \[s\].
+    Hdf5 {
+        /// Dataset path.
+        dataset: String,
+        /// Attribute of the start time \[GPS s\].
+        start_attr: String,
+        /// Attribute of the sample spacing \[s\].
+        spacing_attr: String,
+    },
+}
+
+impl DataFormat {
+    /// `npy`, `gwf` or `hdf5`.
+    pub fn name(&self) -> &'static str {
+        match self {
+            DataFormat::Npy => "npy",
+            DataFormat::Gwf => "gwf",
+            DataFormat::Hdf5 { .. } => "hdf5",
+        }
+    }
+}
+
 /// One `[[channel]]` entry of `bundle.toml`, validated.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ChannelSpec {
     /// Channel name (free-form, unique in the bundle).
     pub name: String,
-    /// Absolute path of the `.npy` file.
+    /// Absolute path of the (first) file.
     pub file: PathBuf,
+    /// Every file holding the channel (absolute; `[file]` for a single
+    /// file), in name order; the reader places each by its own start time.
+    pub files: Vec<PathBuf>,
+    /// How the files are stored.
+    pub format: DataFormat,
     /// Sample rate \[Hz\], finite and > 0.
     pub rate: f64,
     /// GPS time of the first sample \[s\], finite.
@@ -73,7 +123,13 @@ struct RawBundle {
 #[serde(deny_unknown_fields)]
 struct RawChannel {
     name: Spanned<String>,
-    file: Spanned<String>,
+    file: Option<Spanned<String>>,
+    files: Option<Spanned<Vec<String>>>,
+    dir: Option<Spanned<String>>,
+    format: Option<Spanned<String>>,
+    dataset: Option<String>,
+    start_attr: Option<String>,
+    spacing_attr: Option<String>,
     rate: Spanned<f64>,
     start: Spanned<f64>,
     role: Spanned<String>,
@@ -95,6 +151,86 @@ fn line_col(text: &str, offset: usize) -> (usize, usize) {
         .count()
         + 1;
     (line, col)
+}
+
+/// A field's error before it is placed: (span, field, message).
+type FieldError = (std::ops::Range<usize>, &'static str, String);
+
+/// The files a channel names with `file`, `files` (globs allowed in the
+/// file name) or `dir` (every `.gwf` in it), absolute, in name order, and
+/// the span of the field that named them.
+fn channel_files(
+    ch: &RawChannel,
+    dir: &Path,
+    name_span: std::ops::Range<usize>,
+) -> std::result::Result<(Vec<PathBuf>, std::ops::Range<usize>), FieldError> {
+    let given = [ch.file.is_some(), ch.files.is_some(), ch.dir.is_some()];
+    if given.iter().filter(|&&g| g).count() != 1 {
+        return Err((
+            name_span,
+            "file",
+            "needs exactly one of 'file', 'files' or 'dir'".into(),
+        ));
+    }
+    let abs = |rel: &str| {
+        let joined = dir.join(rel);
+        std::path::absolute(&joined).unwrap_or(joined)
+    };
+    let check_text = |field: &'static str, v: &str, span: std::ops::Range<usize>| {
+        if v.trim().is_empty() {
+            return Err((span, field, "is empty".to_string()));
+        }
+        if v.chars().any(char::is_control) {
+            return Err((
+                span,
+                field,
+                format!("= \"{}\" contains a control character", shown(v)),
+            ));
+        }
+        Ok(())
+    };
+    if let Some(f) = &ch.file {
+        check_text("file", f.get_ref(), f.span())?;
+        return Ok((vec![abs(f.get_ref())], f.span()));
+    }
+    if let Some(list) = &ch.files {
+        let mut out = Vec::new();
+        for pat in list.get_ref() {
+            check_text("files", pat, list.span())?;
+            if pat.contains(['*', '?']) {
+                let found = super::source::glob_files(&abs(pat))
+                    .map_err(|e| (list.span(), "files", e.to_string()))?;
+                if found.is_empty() {
+                    return Err((
+                        list.span(),
+                        "files",
+                        format!("pattern \"{}\" matches no file", shown(pat)),
+                    ));
+                }
+                out.extend(found);
+            } else {
+                out.push(abs(pat));
+            }
+        }
+        if out.is_empty() {
+            return Err((list.span(), "files", "is an empty list".into()));
+        }
+        out.sort();
+        out.dedup();
+        return Ok((out, list.span()));
+    }
+    let d = ch.dir.as_ref().expect("one of three");
+    check_text("dir", d.get_ref(), d.span())?;
+    let found = super::source::glob_files(&abs(d.get_ref()).join("*.gwf"))
+        .map_err(|e| (d.span(), "dir", e.to_string()))?;
+    if found.is_empty() {
+        return Err((
+            d.span(),
+            "dir",
+            format!("\"{}\" holds no .gwf file", shown(d.get_ref())),
+        ));
+    }
+    Ok((found, d.span()))
 }
 
 /// Parse and validate the text of a `bundle.toml` whose directory is `dir`.
@@ -161,25 +297,60 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> Result<Bundle> {
                 format!("repeats the name of channel #{}", prev + 1),
             ));
         }
-        let file_rel = ch.file.get_ref();
-        if file_rel.trim().is_empty() {
-            return Err(here(ch.file.span(), "file", "is empty".into()));
-        }
-        if file_rel.chars().any(char::is_control) {
-            return Err(here(
-                ch.file.span(),
-                "file",
-                format!("= \"{}\" contains a control character", shown(file_rel)),
-            ));
-        }
-        let joined = dir.join(file_rel);
-        let file = std::path::absolute(&joined).unwrap_or(joined);
-        if let Some(prev) = channels.iter().position(|c| c.file == file) {
-            return Err(here(
-                ch.file.span(),
-                "file",
-                format!("names the same file as channel #{}", prev + 1),
-            ));
+        let (files, where_span) = channel_files(&ch, dir, ch.name.span())
+            .map_err(|(span, field, what)| here(span, field, what))?;
+        let file = files[0].clone();
+        let ext = file
+            .extension()
+            .and_then(|e| e.to_str())
+            .unwrap_or("")
+            .to_ascii_lowercase();
+        let format_name = match &ch.format {
+            Some(f) => f.get_ref().clone(),
+            None => match ext.as_str() {
+                "gwf" => "gwf".into(),
+                "h5" | "hdf5" | "hdf" => "hdf5".into(),
+                _ => "npy".into(),
+            },
+        };
+        let format = match format_name.as_str() {
+            "npy" => DataFormat::Npy,
+            "gwf" => DataFormat::Gwf,
+            "hdf5" => {
+                let d = super::source::Hdf5Names::default();
+                DataFormat::Hdf5 {
+                    dataset: ch.dataset.clone().unwrap_or(d.dataset),
+                    start_attr: ch.start_attr.clone().unwrap_or(d.start_attr),
+                    spacing_attr: ch.spacing_attr.clone().unwrap_or(d.spacing_attr),
+                }
+            }
+            other => {
+                let span = ch.format.as_ref().map_or(where_span.clone(), |f| f.span());
+                return Err(here(
+                    span,
+                    "format",
+                    format!(
+                        "= \"{}\" must be \"npy\", \"gwf\" or \"hdf5\"",
+                        shown(other)
+                    ),
+                ));
+            }
+        };
+        if format == DataFormat::Npy {
+            if files.len() > 1 {
+                return Err(here(
+                    where_span,
+                    "files",
+                    "names several .npy files: a .npy channel is one file".into(),
+                ));
+            }
+            if let Some(prev) = channels.iter().position(|c| c.file == file) {
+                return Err(here(
+                    where_span,
+                    "file",
+                    format!("names the same file as channel #{}", prev + 1),
+                ));
+            }
         }
         let rate = *ch.rate.get_ref();
         if !(rate.is_finite() && rate > 0.0) {
@@ -249,6 +420,8 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> Result<Bundle> {
         channels.push(ChannelSpec {
             name,
             file,
+            files,
+            format,
             rate,
             start,
             role,
@@ -263,8 +436,9 @@ pub fn parse_bundle_toml(text: &str, dir: &Path) -> Result<Bundle> {
 }
 
 impl Bundle {
-    /// Read and validate `DIR/bundle.toml`, then open every channel's `.npy`
-    /// header so a bad file fails before any work starts.
+    /// Read and validate `DIR/bundle.toml`, then open every channel's files
+    /// (headers and frame indexes, no samples) so a bad file fails before
+    /// any work starts.
     ///
     /// # Errors
     /// A missing or unreadable `bundle.toml`, anything
@@ -289,14 +463,14 @@ impl Bundle {
         };
         let bundle = parse_bundle_toml(&text, dir)?;
         for (i, ch) in bundle.channels.iter().enumerate() {
-            let reader = NpyReader::open(&ch.file).map_err(|e| {
+            let src = super::source::ChannelSource::open(ch).map_err(|e| {
                 Error::parse(
                     &toml_path,
-                    format!("channel #{} '{}': field 'file': {e}", i + 1, ch.name),
+                    format!("channel #{} '{}': field 'file': {e:#}", i + 1, ch.name),
                 )
                 .in_field("file")
             })?;
-            let end = ch.start + reader.len as f64 / ch.rate;
+            let end = ch.start + src.len() as f64 / ch.rate;
             if !crate::catalogue::gps_ok(end) {
                 return Err(Error::parse(
                     &toml_path,

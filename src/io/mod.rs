@@ -8,11 +8,14 @@ pub mod bundle;
 pub mod gwf;
 #[cfg(feature = "hdf5")]
 pub mod hdf5;
+pub mod inspect;
 pub mod npy;
+pub mod source;
 pub mod text;
 
-pub use bundle::{parse_bundle_toml, Bundle, ChannelSpec, Role};
+pub use bundle::{parse_bundle_toml, Bundle, ChannelSpec, DataFormat, Role};
 pub use npy::{parse_header, write_npy, NpyDtype, NpyHeader, NpyReader};
+pub use source::{ChannelSource, FileStamp};
 pub use text::{
     parse_injections, parse_segments, parse_trigger_csv, read_injections, read_segments_file,
     read_trigger_csv,

@@ -271,6 +271,29 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                 "INSERT INTO merged_scans(scan_id, merge_id) VALUES (?1, ?2)",
                 params![scan_id, merge_id],
             )?;
+            // Where the shard's scan read its samples (files and stamps).
+            let data_json: Option<String> =
+                shard.query_row("SELECT data_json FROM scans WHERE id = ?1", [s.id], |r| {
+                    r.get(0)
+                })?;
+            tx.execute(
+                "UPDATE scans SET data_json = ?1 WHERE id = ?2",
+                params![data_json, scan_id],
+            )?;
+            type FileRow = (String, i64, i64, String);
+            let files: Vec<FileRow> = shard
+                .prepare(
+                    "SELECT path, bytes, mtime_ns, checksum FROM scan_files WHERE scan_id = ?1",
+                )?
+                .query_map([s.id], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)))?
+                .collect::<rusqlite::Result<_>>()?;
+            for f in files {
+                tx.execute(
+                    "INSERT OR IGNORE INTO scan_files(scan_id, path, bytes, mtime_ns, checksum) \
+                     VALUES (?1, ?2, ?3, ?4, ?5)",
+                    params![scan_id, f.0, f.1, f.2, f.3],
+                )?;
+            }
             let segs: Vec<(i64, i64)> = shard
                 .prepare("SELECT start_ns, end_ns FROM analysed_segments WHERE scan_id = ?1")?
                 .query_map([s.id], |r| Ok((r.get(0)?, r.get(1)?)))?

@@ -238,7 +238,7 @@ pub fn make_plan(
         // Absolute, so shards can run from any working directory.
         let dir = &std::fs::canonicalize(dir).unwrap_or_else(|_| dir.clone());
         for spec in &bundle.channels {
-            let src = crate::scan::NpyChannel::open(spec)?;
+            let src = crate::io::ChannelSource::open(spec)?;
             let (valid, _) = src.survey()?;
             let meta = std::fs::metadata(&spec.file)
                 .with_context(|| format!("{}: cannot stat", spec.file.display()))?;

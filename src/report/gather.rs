@@ -17,6 +17,9 @@ use std::collections::BTreeMap;
 pub struct ReportParams {
     /// How the catalogue is named on the pages (usually its path).
     pub catalogue: String,
+    /// The target channel reported on (`None`: the catalogue's only target
+    /// channel; an error when it has several).
+    pub channel: Option<String>,
     /// Span start \[GPS s\] (`None` = start of live time).
     pub since_gps: Option<f64>,
     /// Span end \[GPS s\] (`None` = end of live time).
@@ -41,6 +44,7 @@ impl Default for ReportParams {
     fn default() -> Self {
         ReportParams {
             catalogue: String::new(),
+            channel: None,
             since_gps: None,
             until_gps: None,
             min_snr: 0.0,
@@ -276,7 +280,8 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     let bin_s = match p.bin_s {
         Some(b) => b,
         None => {
-            let (t0, t1) = crate::rates::live_span(conn, None, p.since_gps, p.until_gps)?;
+            let (t0, t1) =
+                crate::rates::live_span(conn, p.channel.as_deref(), p.since_gps, p.until_gps)?;
             crate::rates::auto_bin_s(t1 - t0)
         }
     };
@@ -287,6 +292,7 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         min_snr: p.min_snr,
         cl: p.cl,
         p0: p.p0,
+        channel: p.channel.clone(),
         ..RateParams::default()
     };
     let rates = rates(conn, &rp)?;

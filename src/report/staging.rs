@@ -57,7 +57,8 @@ impl Staging {
     }
 
     /// Move every file of the staging directory (and of its
-    /// subdirectories, one level) to the same place under `out`, replacing
+    /// subdirectories, two levels: a per-channel report and its images) to
+    /// the same place under `out`, replacing
     /// what is there. Returns the final path of `index.html`.
     ///
     /// # Errors
@@ -77,7 +78,7 @@ impl Staging {
             let src = e.path();
             let dst = to.join(e.file_name());
             let kind = e.file_type()?;
-            if kind.is_dir() && depth == 0 {
+            if kind.is_dir() && depth <= 1 {
                 match std::fs::symlink_metadata(&dst) {
                     Ok(m) if m.file_type().is_symlink() => bail!(
                         "{}: is a symbolic link; the report writes only into real \
