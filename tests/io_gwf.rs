@@ -237,8 +237,8 @@ fn complex_channels_are_refused_by_name() {
     ch.read_samples(0, &mut x).unwrap();
     assert!(x.iter().enumerate().all(|(i, v)| *v == i as f64));
     assert_err(
-        f.channel("X1:NOPE"),
-        &["complex.gwf", "X1:NOPE", "no channel"],
+        f.channel("TB9:NOPE"),
+        &["complex.gwf", "TB9:NOPE", "no channel"],
     );
 }
 
@@ -293,17 +293,17 @@ fn corrupt_files_give_one_line_errors() {
     // A flipped data byte: open works (nothing read), the vector's checksum
     // fails on the first read of that channel, others still read.
     let mut b = good.clone();
-    let at = vect_data_offset(&b, "X1:PROC_INT32");
+    let at = vect_data_offset(&b, "TB9:PROC_INT32");
     b[at + 3] ^= 0x40;
     let p = put("flip.gwf", &b);
     let f = GwfFile::open(&p).unwrap();
-    let ch = f.channel("X1:PROC_INT32").unwrap();
+    let ch = f.channel("TB9:PROC_INT32").unwrap();
     let mut x = vec![0.0; 10];
     assert_err(
         ch.read_samples(0, &mut x),
-        &["flip.gwf", "FrVect", "checksum mismatch", "X1:PROC_INT32"],
+        &["flip.gwf", "FrVect", "checksum mismatch", "TB9:PROC_INT32"],
     );
-    f.channel("X1:PROC_INT16")
+    f.channel("TB9:PROC_INT16")
         .unwrap()
         .read_samples(0, &mut x)
         .unwrap();
@@ -334,14 +334,14 @@ fn corrupt_files_give_one_line_errors() {
     // A flipped byte in a channel structure (its name is right after the
     // common header: flip the comment length's high byte instead).
     let mut b = good.clone();
-    let needle = b"X1:ADC_INT16\0";
+    let needle = b"TB9:ADC_INT16\0";
     let at = b.windows(needle.len()).position(|w| w == needle).unwrap() + needle.len();
     b[at + 7] ^= 0x01; // inside channelGroup
     let p = put("adc.gwf", &b);
     let f = GwfFile::open(&p).unwrap();
     assert_err(
-        f.channel("X1:ADC_INT16"),
-        &["adc.gwf", "FrAdcData", "X1:ADC_INT16", "checksum mismatch"],
+        f.channel("TB9:ADC_INT16"),
+        &["adc.gwf", "FrAdcData", "TB9:ADC_INT16", "checksum mismatch"],
     );
     // Not a regular file.
     assert_err(GwfFile::open(tmp.path()), &["not a regular file"]);

@@ -339,7 +339,7 @@ pub struct StructReader<'a> {
 impl<'a> StructReader<'a> {
     /// Open the structure at `pos`: read its common header and check that it
     /// fits in the file (`file_len` bytes). `what` names it in messages
-    /// (e.g. `FrTOC` or `FrAdcData of X1:ADC, frame 3`); `buf` is the read
+    /// (e.g. `FrTOC` or `FrAdcData of TB9:ADC, frame 3`); `buf` is the read
     /// buffer size.
     ///
     /// # Errors

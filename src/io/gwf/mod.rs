@@ -11,7 +11,7 @@
 //! for info in f.channels()? {
 //!     println!("{} {} {} Hz {}", info.name, info.kind.name(), info.rate_hz, info.elem.name());
 //! }
-//! let ch = f.channel("X1:STRAIN")?;          // per-frame index, no samples read
+//! let ch = f.channel("TB9:STRAIN")?;          // per-frame index, no samples read
 //! let mut buf = vec![0.0; 4096];
 //! ch.read_samples(0, &mut buf)?;              // or ch.read_gps(t, &mut buf)
 //! # Ok(()) }

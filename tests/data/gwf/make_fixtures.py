@@ -10,7 +10,7 @@ Writes into this directory (see README.md):
                       channels; expected samples in expected/<channel>.npy
   adc_calib.gwf       ADC channels whose slope and bias were set afterwards
                       (gwframe has no call for them; see patch_adc_calibration)
-  gap/X-GAP-*.gwf     consecutive 4-s files of one channel, one file missing,
+  gap/T-GAP-*.gwf     consecutive 4-s files of one channel, one file missing,
                       and one file whose frames leave a 1-s hole
   complex.gwf         a complex64 channel (the reader must refuse it)
   manifest.json       what each file holds: channels, kinds, element types,
@@ -31,7 +31,7 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 T0 = 1400000000
 RATE = 256
 FRAMES = 3
-SMOOTH_SEED = 13  # the seed (channel index) of X1:ADC_FLOAT64
+SMOOTH_SEED = 13  # the seed (channel index) of TB9:ADC_FLOAT64
 
 MODES = {
     "raw": Compression.RAW,
@@ -82,13 +82,13 @@ def series(dtype, n, seed):
 
 def channels():
     """(name, kind, dtype, rate) of the codec files' channels."""
-    out = [(f"X1:PROC_{d.upper()}", "proc", d, RATE) for d in DTYPES]
-    out += [("X1:ADC_INT16", "adc", "int16", RATE),
-            ("X1:ADC_INT32", "adc", "int32", 2 * RATE),
-            ("X1:ADC_FLOAT32", "adc", "float32", RATE),
-            ("X1:ADC_FLOAT64", "adc", "float64", RATE),
-            ("X1:SIM_FLOAT64", "sim", "float64", RATE // 2),
-            ("X1:SIM_INT16", "sim", "int16", RATE)]
+    out = [(f"TB9:PROC_{d.upper()}", "proc", d, RATE) for d in DTYPES]
+    out += [("TB9:ADC_INT16", "adc", "int16", RATE),
+            ("TB9:ADC_INT32", "adc", "int32", 2 * RATE),
+            ("TB9:ADC_FLOAT32", "adc", "float32", RATE),
+            ("TB9:ADC_FLOAT64", "adc", "float64", RATE),
+            ("TB9:SIM_FLOAT64", "sim", "float64", RATE // 2),
+            ("TB9:SIM_INT16", "sim", "int16", RATE)]
     return out
 
 
@@ -161,7 +161,7 @@ def write_codec_files(manifest):
         path = os.path.join(HERE, f"codecs_{mode}.gwf")
         with gwframe.FrameWriter(path, compression=comp) as w:
             for k in range(FRAMES):
-                f = gwframe.Frame(start=float(T0 + k), duration=1.0, name="X1", run=-1)
+                f = gwframe.Frame(start=float(T0 + k), duration=1.0, name="TB9", run=-1)
                 for name, kind, _d, rate in chans:
                     f.add_channel(name, data[name][k * rate:(k + 1) * rate],
                                   sample_rate=rate, unit="ct" if kind == "adc" else "m",
@@ -210,13 +210,13 @@ def patch_adc_calibration(path, calib):
 
 def write_adc_calib(manifest):
     path = os.path.join(HERE, "adc_calib.gwf")
-    counts = {"X1:CAL_INT16": series("int16", RATE * 2, 101),
-              "X1:CAL_INT32": series("int32", RATE * 2, 102)}
-    calib = {"X1:CAL_INT16": (np.float32(-0.75), np.float32(6.103515625e-05)),
-             "X1:CAL_INT32": (np.float32(12.5), np.float32(-3.0e-3))}
+    counts = {"TB9:CAL_INT16": series("int16", RATE * 2, 101),
+              "TB9:CAL_INT32": series("int32", RATE * 2, 102)}
+    calib = {"TB9:CAL_INT16": (np.float32(-0.75), np.float32(6.103515625e-05)),
+             "TB9:CAL_INT32": (np.float32(12.5), np.float32(-3.0e-3))}
     with gwframe.FrameWriter(path, compression=Compression.ZERO_SUPPRESS_OTHERWISE_GZIP) as w:
         for k in range(2):
-            f = gwframe.Frame(start=float(T0 + k), duration=1.0, name="X1")
+            f = gwframe.Frame(start=float(T0 + k), duration=1.0, name="TB9")
             for name, x in counts.items():
                 f.add_channel(name, x[k * RATE:(k + 1) * RATE], sample_rate=RATE,
                               unit="ct", channel_type="adc")
@@ -240,18 +240,18 @@ def write_adc_calib(manifest):
 
 
 def write_gap_files(manifest):
-    """Files X-GAP-<start>-4.gwf of 2-s frames for one channel; the file at
-    T0 + 8 is not written. X-GAP-<T0+16>-4 holds frames at 16, 17 and 19 s
+    """Files T-GAP-<start>-4.gwf of 2-s frames for one channel; the file at
+    T0 + 8 is not written. T-GAP-<T0+16>-4 holds frames at 16, 17 and 19 s
     (1-s frames), leaving a 1-s hole inside the file."""
     d = os.path.join(HERE, "gap")
     os.makedirs(d, exist_ok=True)
-    name, rate = "X1:GAP_STRAIN", 128
+    name, rate = "TB9:GAP_STRAIN", 128
     full = series("float32", rate * 20, 7)
-    np.save(os.path.join(HERE, "expected", "X1_GAP_STRAIN_full.npy"), full.astype(np.float64))
+    np.save(os.path.join(HERE, "expected", "TB9_GAP_STRAIN_full.npy"), full.astype(np.float64))
     files = []
     for start, frames in [(T0, [(0, 2), (2, 2)]), (T0 + 4, [(0, 2), (2, 2)]),
                           (T0 + 12, [(0, 2), (2, 2)]), (T0 + 16, [(0, 1), (1, 1), (3, 1)])]:
-        path = os.path.join(d, f"X-GAP-{start}-4.gwf")
+        path = os.path.join(d, f"T-GAP-{start}-4.gwf")
         with gwframe.FrameWriter(path, compression=Compression.GZIP) as w:
             for off, dur in frames:
                 t = start + off
@@ -264,17 +264,17 @@ def write_gap_files(manifest):
         files.append({"file": "gap/" + os.path.basename(path),
                       "frames": [[start + o, dur] for o, dur in frames]})
     manifest["gap"] = {"channel": name, "rate": rate, "t0": T0,
-                       "full": "expected/X1_GAP_STRAIN_full.npy", "files": files}
+                       "full": "expected/TB9_GAP_STRAIN_full.npy", "files": files}
 
 
 def write_complex(manifest):
     path = os.path.join(HERE, "complex.gwf")
-    f = gwframe.Frame(start=float(T0), duration=1.0, name="X1")
+    f = gwframe.Frame(start=float(T0), duration=1.0, name="TB9")
     z = (np.arange(64) + 1j * np.arange(64)).astype(np.complex64)
-    f.add_channel("X1:PROC_COMPLEX", z, sample_rate=64)
-    f.add_channel("X1:PROC_REAL", np.arange(64, dtype=np.float32), sample_rate=64)
+    f.add_channel("TB9:PROC_COMPLEX", z, sample_rate=64)
+    f.add_channel("TB9:PROC_REAL", np.arange(64, dtype=np.float32), sample_rate=64)
     f.write(path, compression=Compression.RAW)
-    manifest["complex.gwf"] = {"complex": "X1:PROC_COMPLEX", "real": "X1:PROC_REAL"}
+    manifest["complex.gwf"] = {"complex": "TB9:PROC_COMPLEX", "real": "TB9:PROC_REAL"}
 
 
 def main():
