@@ -280,12 +280,17 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
     for (fam, name) in &names {
         if let Some(best) = wit.best.iter().find(|r| r.family_id == Some(*fam)) {
             say(format!(
-                "   family {fam} ({name}): best witness {} (aux SNR >= {}, window {} s, efficiency {:.2}, false alarm {:.1e}{})",
+                "   family {fam} ({name}): best witness {} (aux SNR >= {}, window {} s, efficiency {:.2}, false alarm {:.1e}{}{})",
                 best.aux_channel,
                 crate::output::fixed(best.aux_min_snr, 2),
                 best.window_s,
                 best.efficiency,
                 best.false_alarm_any,
+                if best.false_alarm_basis == coupling::background::FalseAlarmBasis::SlidesTail {
+                    " from the analytic tail, beyond the time slides' resolution"
+                } else {
+                    ""
+                },
                 if best.beyond_chance { "" } else { ", consistent with chance" }
             ));
         }

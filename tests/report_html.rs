@@ -181,7 +181,7 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     // efficiency and deadtime in % and seconds, safety; UTC beside GPS.
     let triage = &html[html.find("id=\"triage\"").unwrap()..];
     let triage = &triage[..triage.find("</table>").unwrap()];
-    assert!(triage.contains("deadtime [s]") && triage.contains("best witness"));
+    assert!(triage.contains("deadtime [% (s)]") && triage.contains("best witness"));
     assert!(
         triage.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"),
         "{triage}"

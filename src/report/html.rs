@@ -469,7 +469,7 @@ fn family_veto(d: &ReportData, family: i64) -> Option<(String, f64, f64, String)
 /// last change point, best witness and what a veto would cost.
 fn triage_table(o: &mut String, d: &ReportData) {
     let r = &d.rates;
-    o.push_str("<h3 id=\"triage\">Families at a glance</h3>\n<table class=\"triage\"><tr><th>family</th><th>label</th><th>status</th><th>triggers</th><th>rate now [/h]</th><th>median [/h]</th><th>last change</th><th>best witness</th><th>false alarm</th><th>veto channels</th><th>efficiency [%]</th><th>deadtime [%]</th><th>deadtime [s]</th><th>safety</th></tr>\n");
+    o.push_str("<h3 id=\"triage\">Families at a glance</h3>\n<table class=\"triage\"><tr><th>family</th><th>label</th><th>status</th><th>triggers</th><th>rate now [/h]</th><th>median [/h]</th><th>last change</th><th>best witness</th><th>false alarm</th><th>veto channels</th><th>efficiency [%]</th><th>deadtime [% (s)]</th><th>safety</th></tr>\n");
     let best = d.witnessed_families();
     for f in &d.families {
         let s = r.series.iter().find(|s| s.family_id == Some(f.id));
@@ -478,10 +478,10 @@ fn triage_table(o: &mut String, d: &ReportData) {
             (Some(s), Some(v)) if s.latest_differs => {
                 format!(
                     "<span class=\"flag\">{} (differs from median)</span>",
-                    f3(v)
+                    crate::output::fixed(v, 1)
                 )
             }
-            (_, Some(v)) => f3(v),
+            (_, Some(v)) => crate::output::fixed(v, 1),
             _ => "-".into(),
         };
         let change = s
@@ -507,14 +507,14 @@ fn triage_table(o: &mut String, d: &ReportData) {
         let veto = family_veto(d, f.id);
         let cells = match &veto {
             Some((aux, eff, dt, safety)) => format!(
-                "<td class=\"t\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td>",
+                "<td class=\"t\">{}</td><td>{}</td><td>{} ({})</td><td>{}</td>",
                 html_escape(aux),
                 crate::output::fixed(100.0 * eff, 1),
                 crate::output::fixed(100.0 * dt, 3),
                 crate::output::fixed(dt * r.live_s, 1),
                 state_cell(safety)
             ),
-            None => "<td class=\"t\">none</td><td>-</td><td>-</td><td>-</td><td>-</td>".into(),
+            None => "<td class=\"t\">none</td><td>-</td><td>-</td><td>-</td>".into(),
         };
         let _ = writeln!(
             o,
@@ -522,7 +522,7 @@ fn triage_table(o: &mut String, d: &ReportData) {
             f.label.as_deref().map(html_escape).unwrap_or_default(),
             html_escape(&f.status),
             s.map_or(0, |s| s.n_events),
-            s.map_or("-".into(), |s| f3(s.median_rate_per_hour)),
+            s.map_or("-".into(), |s| crate::output::fixed(s.median_rate_per_hour, 1)),
             id = f.id
         );
     }
