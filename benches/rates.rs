@@ -54,7 +54,7 @@ fn main() {
                status TEXT NOT NULL CHECK(status IN ('active','merged','retired')));
              CREATE TABLE IF NOT EXISTS family_members(trigger_id INTEGER PRIMARY KEY REFERENCES triggers(id) ON DELETE CASCADE,
                family_id INTEGER REFERENCES families(id), probability REAL, novel INTEGER NOT NULL DEFAULT 0);
-             INSERT INTO channels(id, name, role, rate_hz) VALUES (1, 'ZQ1:BENCH-STRAIN', 'target', 4096);",
+             INSERT INTO channels(id, name, role, rate_hz) VALUES (1, 'ZQ1:BENCH_STRAIN', 'target', 4096);",
         )
         .unwrap();
         tx.execute(

@@ -238,6 +238,29 @@ pub fn default_fmin(rate_hz: f64) -> f64 {
     }
 }
 
+/// Default lowest analysed frequency of an aux channel \[Hz\]: `rate / 256`,
+/// at least 1 Hz — a 256 Hz ground-motion sensor is searched from 1 Hz, a
+/// 1024 Hz one from 4 Hz, a 4096 Hz one from 16 Hz as strain is. Sensors
+/// witness through their own band, often far below the strain's 16 Hz (a
+/// seismometer's burst at a few hertz beside an arch at tens of hertz);
+/// the floor keeps the Welch segment (16/fmin s) and padding of a few tens
+/// of seconds. Common practice is to search each sensor in its own band;
+/// the numbers are ours.
+pub fn default_aux_fmin(rate_hz: f64) -> f64 {
+    (rate_hz / 256.0).max(1.0)
+}
+
+/// The lowest frequency a channel brings to [`resolve_params`]: its
+/// bundle's `fmin` when given, else for an aux channel
+/// [`default_aux_fmin`] (a target channel takes [`default_fmin`] there).
+/// A `--fmin` on the command line overrides both.
+pub fn channel_fmin(role: crate::io::Role, rate_hz: f64, bundle_fmin: Option<f64>) -> Option<f64> {
+    match role {
+        crate::io::Role::Aux => bundle_fmin.or(Some(default_aux_fmin(rate_hz))),
+        crate::io::Role::Target => bundle_fmin,
+    }
+}
+
 /// Default highest analysed frequency \[Hz\]: half the Nyquist frequency, a
 /// safe margin for the widest (lowest-Q) windows.
 pub fn default_fmax(rate_hz: f64) -> f64 {
@@ -729,8 +752,9 @@ pub fn scan_channel(
     progress: &(dyn Fn(f64) + Sync),
 ) -> Result<ChannelScan> {
     let src = crate::io::ChannelSource::open(spec)?;
+    let fmin = channel_fmin(spec.role, src.rate_hz(), spec.fmin);
     let (params, analysed, triggers, input_checksum) =
-        scan_source(&src, params, (spec.fmin, spec.fmax), segments, progress)
+        scan_source(&src, params, (fmin, spec.fmax), segments, progress)
             .with_context(|| format!("channel {}", spec.name))?;
     Ok(ChannelScan {
         channel: spec.clone(),

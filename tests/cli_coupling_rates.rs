@@ -3,10 +3,10 @@
 //!
 //! - target `Z1:STRAIN <main> & co`: 100 triggers at T0 + 10 + 20 i s
 //!   (i = 0..99), SNR 10, analysed [T0, T0 + 2000);
-//! - witness `Z1:SEIS-X "pier" <b>`: 40 triggers 0.02 s before targets
+//! - witness `Z1:SEIS_X "pier" <b>`: 40 triggers 0.02 s before targets
 //!   i = 0..39 (SNR 25) and 60 quiet ones (SNR 9) 7 s after targets
 //!   i = 40..99;
-//! - unrelated `Z1:MAG-Y`: 50 triggers at T0 + 15 + 40 k (SNR 30), ≥ 5 s from
+//! - unrelated `Z1:MAG_Y`: 50 triggers at T0 + 15 + 40 k (SNR 30), ≥ 5 s from
 //!   any target.
 //!
 //! The witness channel's own thresholds (quantiles of its SNRs, kept counts
@@ -21,8 +21,8 @@ use serde_json::Value;
 
 const T0: f64 = 1_400_000_000.0;
 const TARGET: &str = "Z1:STRAIN <main> & co";
-const WITNESS: &str = "Z1:SEIS-X \"pier\" <b>";
-const OTHER: &str = "Z1:MAG-Y";
+const WITNESS: &str = "Z1:SEIS_X \"pier\" <b>";
+const OTHER: &str = "Z1:MAG_Y";
 
 fn fixture() -> Value {
     let s = std::fs::read_to_string(concat!(
@@ -220,7 +220,7 @@ fn vetoes_write_segments_and_metadata_with_the_caution() {
 
     // Segment file: the 40 windows [t − 0.02 − 0.05, t − 0.02 + 0.05).
     let dir = d.path().join("vetoes");
-    let stem = "veto_Z1_SEIS-X__pier___b_";
+    let stem = "veto_Z1_SEIS_X__pier___b_";
     let txt = std::fs::read_to_string(dir.join(format!("{stem}.txt"))).unwrap();
     assert!(txt.contains(caution), "{txt}");
     let segs: Vec<(f64, f64)> = txt
@@ -370,7 +370,7 @@ fn report_escapes_channel_names_and_prints_index_path() {
     let html = std::fs::read_to_string(&index).unwrap();
     // HTML escaping of user text (the five characters of html_escape).
     assert!(html.contains("Z1:STRAIN &lt;main&gt; &amp; co"));
-    assert!(html.contains("Z1:SEIS-X &quot;pier&quot; &lt;b&gt;"));
+    assert!(html.contains("Z1:SEIS_X &quot;pier&quot; &lt;b&gt;"));
     assert!(!html.contains(WITNESS) && !html.contains(TARGET));
     assert!(html.contains(OTHER));
     // Both the latest witnesses run (its table has the false-alarm columns)
@@ -381,7 +381,7 @@ fn report_escapes_channel_names_and_prints_index_path() {
         "no injections: nothing shown as safe"
     );
     assert!(html.contains(glitchbook::report::VETO_CAUTION));
-    assert!(html.matches("Z1:SEIS-X &quot;pier&quot; &lt;b&gt;").count() >= 3);
+    assert!(html.matches("Z1:SEIS_X &quot;pier&quot; &lt;b&gt;").count() >= 3);
 }
 
 #[test]

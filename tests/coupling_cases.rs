@@ -57,7 +57,7 @@ fn targets_at(times: &[f64], analysed: SegmentList) -> TargetSet {
 fn grid_by_hand_with_common_time_and_overlaps() {
     let aux = AuxChannel::new(
         7,
-        "Z1:HAND-AUX",
+        "Z1:HAND_AUX",
         // t = 5 is 5 s outside C: never used. t = 9.5 is outside C but its
         // window at w = 1 reaches 0.5 s into it: used at w = 1 only.
         aux_at(&[
@@ -139,7 +139,7 @@ fn grid_by_hand_with_common_time_and_overlaps() {
 fn windows_follow_the_aux_extent() {
     let aux = AuxChannel::new(
         1,
-        "Z1:LONG-AUX",
+        "Z1:LONG_AUX",
         vec![AuxTrigger {
             t_peak: 30.2,
             t_start: 30.0,
@@ -203,7 +203,7 @@ pub(crate) fn planted(seed: u64) -> (TargetSet, Vec<AuxChannel>) {
             60.0,
         ));
     }
-    let mut aux = vec![AuxChannel::new(1, "Z1:WIT-PLANTED", wit, analysed.clone())];
+    let mut aux = vec![AuxChannel::new(1, "Z1:WIT_PLANTED", wit, analysed.clone())];
     for c in 0..5 {
         let trig = (0..5000)
             .map(|_| {
@@ -216,7 +216,7 @@ pub(crate) fn planted(seed: u64) -> (TargetSet, Vec<AuxChannel>) {
             .collect();
         aux.push(AuxChannel::new(
             10 + c,
-            &format!("Z1:DISTRACT-{c}"),
+            &format!("Z1:DISTRACT_{c}"),
             trig,
             analysed.clone(),
         ));
@@ -235,7 +235,7 @@ fn planted_witness_is_round_one_with_lag_peak() {
     let params = VetoParams::default();
     let fam1 = hierarchical_rounds(&targets, Some(1), &aux, &params, None);
     assert!(!fam1.is_empty());
-    assert_eq!(fam1[0].aux_channel, "Z1:WIT-PLANTED");
+    assert_eq!(fam1[0].aux_channel, "Z1:WIT_PLANTED");
     assert!(
         (fam1[0].efficiency - 0.70).abs() < 0.05,
         "{}",
@@ -245,7 +245,7 @@ fn planted_witness_is_round_one_with_lag_peak() {
     assert!(fam1[0].false_alarm < 1e-40, "{}", fam1[0].false_alarm);
     assert_eq!(fam1[0].safety, Safety::Unchecked);
     let all = hierarchical_rounds(&targets, None, &aux, &params, None);
-    assert_eq!(all[0].aux_channel, "Z1:WIT-PLANTED");
+    assert_eq!(all[0].aux_channel, "Z1:WIT_PLANTED");
     assert!(
         (all[0].efficiency - 0.525).abs() < 0.05,
         "{}",
@@ -254,7 +254,7 @@ fn planted_witness_is_round_one_with_lag_peak() {
     // Distractors are unrelated: none is ever picked, and the total
     // deadtime stays tiny.
     assert!(
-        all.iter().all(|r| r.aux_channel == "Z1:WIT-PLANTED"),
+        all.iter().all(|r| r.aux_channel == "Z1:WIT_PLANTED"),
         "{all:?}"
     );
     assert!(all.last().unwrap().total_deadtime < 0.01);
@@ -270,13 +270,13 @@ fn planted_witness_is_round_one_with_lag_peak() {
     let sets = [None, Some(1), Some(2)];
     let rows = witness_table(&targets, &sets, &aux, &Grid::default(), 200, 0.01);
     let best = best_per_set(&rows, &sets);
-    assert_eq!(best[1].aux_channel, "Z1:WIT-PLANTED");
+    assert_eq!(best[1].aux_channel, "Z1:WIT_PLANTED");
     assert!(best[1].beyond_chance && best[1].false_alarm_any < 1e-10);
     assert!(!best[2].beyond_chance, "{:?}", best[2]);
     // Each channel's grid: its own quantile thresholds × 6 windows.
     assert!(
         rows.iter()
-            .filter(|r| r.aux_channel == "Z1:DISTRACT-0" && r.family_id.is_none())
+            .filter(|r| r.aux_channel == "Z1:DISTRACT_0" && r.family_id.is_none())
             .count()
             == 8 * 6
     );
@@ -416,7 +416,7 @@ fn injection_witness_is_unsafe_and_not_proposed() {
     targets = TargetSet::new(targets.triggers, targets.analysed);
     aux.push(AuxChannel::new(
         99,
-        "Z1:INJ-MONITOR",
+        "Z1:INJ_MONITOR",
         inj_mon,
         targets.analysed.clone(),
     ));
@@ -428,14 +428,14 @@ fn injection_witness_is_unsafe_and_not_proposed() {
     let all: Vec<_> = report.rounds.iter().filter(|r| r.mode == "all").collect();
     let mon = all
         .iter()
-        .find(|r| r.aux_channel == "Z1:INJ-MONITOR")
+        .find(|r| r.aux_channel == "Z1:INJ_MONITOR")
         .expect("monitor round");
     assert_eq!(mon.safety, Safety::Unsafe);
     assert_eq!(mon.injections_vetoed, Some(300));
     assert!(mon.safety_binomial_p.unwrap() < 1e-5);
     let wit = all
         .iter()
-        .find(|r| r.aux_channel == "Z1:WIT-PLANTED")
+        .find(|r| r.aux_channel == "Z1:WIT_PLANTED")
         .expect("witness round");
     assert_eq!(wit.safety, Safety::Safe);
     assert!(wit.safety_binomial_p.unwrap() > 1e-3);
@@ -444,14 +444,14 @@ fn injection_witness_is_unsafe_and_not_proposed() {
         report
             .proposals
             .iter()
-            .all(|p| p.aux_channel != "Z1:INJ-MONITOR"),
+            .all(|p| p.aux_channel != "Z1:INJ_MONITOR"),
         "{:?}",
         report.proposals
     );
     let p = report
         .proposals
         .iter()
-        .find(|p| p.aux_channel == "Z1:WIT-PLANTED")
+        .find(|p| p.aux_channel == "Z1:WIT_PLANTED")
         .unwrap();
     assert_eq!(p.state, ProposalState::Proposed);
     // Family 3 (signal-like) gets no safe round.
@@ -494,12 +494,12 @@ fn one_proposal_per_channel_with_combined_deadtime() {
         }
     }
     let targets = TargetSet::new(targets, analysed.clone());
-    let aux = vec![AuxChannel::new(1, "Z1:SPLIT-WIT", wit, analysed.clone())];
+    let aux = vec![AuxChannel::new(1, "Z1:SPLIT_WIT", wit, analysed.clone())];
     let report = veto_report(&targets, &aux, &VetoParams::default(), None);
     let picks = report
         .rounds
         .iter()
-        .filter(|r| r.aux_channel == "Z1:SPLIT-WIT")
+        .filter(|r| r.aux_channel == "Z1:SPLIT_WIT")
         .count();
     assert!(picks >= 3, "{:?}", report.rounds);
     assert!(report.rounds.iter().all(|r| r.safety == Safety::Unchecked));

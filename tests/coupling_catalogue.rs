@@ -92,7 +92,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
     let rep = run_witnesses(&mut conn, &WitnessParams::default()).unwrap();
     // No family_members table: only the "all" set; 6 channels × 8 × 6.
     assert_eq!(rep.rows.len(), 6 * 48);
-    assert_eq!(rep.best[0].aux_channel, "Z1:WIT-PLANTED");
+    assert_eq!(rep.best[0].aux_channel, "Z1:WIT_PLANTED");
     assert!(rep.best[0].beyond_chance);
     assert!(
         rep.best[1..].iter().all(|r| !r.beyond_chance),
@@ -128,7 +128,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
     let mut out = Vec::new();
     write_witnesses(&rep, Format::Json, false, &mut out).unwrap();
     let v: serde_json::Value = serde_json::from_slice(&out).unwrap();
-    assert_eq!(v["witnesses"][0]["aux_channel"], "Z1:WIT-PLANTED");
+    assert_eq!(v["witnesses"][0]["aux_channel"], "Z1:WIT_PLANTED");
     for key in [
         "efficiency",
         "deadtime",
@@ -156,7 +156,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
     let params = VetoParams::default();
     let vr = run_vetoes(&mut conn, &params, Some(&injections)).unwrap();
     let run_id = vr.run_id.unwrap();
-    assert_eq!(vr.rounds[0].aux_channel, "Z1:WIT-PLANTED");
+    assert_eq!(vr.rounds[0].aux_channel, "Z1:WIT_PLANTED");
     assert_eq!(vr.rounds[0].safety, Safety::Safe);
     assert_eq!(vr.proposals.len(), 1);
     assert_eq!(vr.proposals[0].state, ProposalState::Proposed);
@@ -201,7 +201,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
 
     let out_dir = dir.path().join("vetoes");
     let files = write_veto_segments(&vr, &out_dir).unwrap();
-    let txt = out_dir.join("veto_Z1_WIT-PLANTED.txt");
+    let txt = out_dir.join("veto_Z1_WIT_PLANTED.txt");
     assert!(files.contains(&txt));
     let body = std::fs::read_to_string(&txt).unwrap();
     assert!(body.contains("state: proposed"));
@@ -219,7 +219,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
         serde_json::from_str(&std::fs::read_to_string(txt.with_extension("json")).unwrap())
             .unwrap();
     assert_eq!(meta["caution"], VETO_CAUTION);
-    assert_eq!(meta["proposal"]["aux_channel"], "Z1:WIT-PLANTED");
+    assert_eq!(meta["proposal"]["aux_channel"], "Z1:WIT_PLANTED");
     assert!(meta["proposal"]["safety_binomial_p"].is_number());
     assert_eq!(meta["state"], "proposed");
 
@@ -240,7 +240,7 @@ fn witnesses_and_vetoes_round_trip_without_families() {
     );
     let out_dir = dir.path().join("unchecked");
     write_veto_segments(&vr, &out_dir).unwrap();
-    let body = std::fs::read_to_string(out_dir.join("veto_Z1_WIT-PLANTED.txt")).unwrap();
+    let body = std::fs::read_to_string(out_dir.join("veto_Z1_WIT_PLANTED.txt")).unwrap();
     assert!(body.contains("UNCHECKED"), "{body}");
     let (safety, state): (String, String) = conn
         .query_row(
@@ -275,14 +275,14 @@ fn schema_4_coupling_rows_upgrade() {
         tx.commit().unwrap();
         add_channel(
             &c,
-            "Z1:OLD-TGT",
+            "Z1:OLD_TGT",
             "target",
             &[(0.0, 100.0)],
             &[(50.0, 10.0, 100.0)],
         );
         let aux = add_channel(
             &c,
-            "Z1:OLD-AUX",
+            "Z1:OLD_AUX",
             "aux",
             &[(0.0, 100.0)],
             &[(50.0, 20.0, 50.0)],
@@ -400,7 +400,7 @@ fn witnesses_per_family_when_families_exist() {
     let rep = run_witnesses(&mut conn, &WitnessParams::default()).unwrap();
     assert_eq!(rep.rows.len(), 3 * 6 * 48);
     let fam1_best = rep.best.iter().find(|r| r.family_id == Some(1)).unwrap();
-    assert_eq!(fam1_best.aux_channel, "Z1:WIT-PLANTED");
+    assert_eq!(fam1_best.aux_channel, "Z1:WIT_PLANTED");
     assert!((fam1_best.efficiency - 0.70).abs() < 0.05);
     let fam2_best = rep.best.iter().find(|r| r.family_id == Some(2)).unwrap();
     assert!(!fam2_best.beyond_chance, "{fam2_best:?}");
@@ -446,7 +446,7 @@ fn aux_without_common_time_is_warned_and_skipped() {
     );
     add_channel(
         &conn,
-        "Z1:LATE-AUX",
+        "Z1:LATE_AUX",
         "aux",
         &[(200.0, 300.0)],
         &[(250.0, 20.0, 10.0)],
@@ -455,7 +455,7 @@ fn aux_without_common_time_is_warned_and_skipped() {
     assert!(rep.rows.is_empty());
     assert_eq!(rep.warnings.len(), 1);
     assert!(
-        rep.warnings[0].contains("Z1:LATE-AUX"),
+        rep.warnings[0].contains("Z1:LATE_AUX"),
         "{:?}",
         rep.warnings
     );

@@ -484,7 +484,7 @@ fmin = 4.0
 fmax = 30.0
 
 [[channel]]
-name = "Z0:AUX-MAG"
+name = "Z0:AUX_MAG"
 file = "sub/aux.npy"
 rate = 32.0
 start = 1000000000.5

@@ -130,8 +130,10 @@ fn scan_mem(
         rate_hz: c.rate_hz,
         start_gps: T0,
     };
+    // The band a bundle scan gives the channel (aux channels reach lower).
+    let fmin = glitchbook::scan::channel_fmin(spec(c).role, c.rate_hz, None);
     let (params, analysed, triggers, input_checksum) =
-        scan_source(&src, params, (None, None), segs, &|_| {})?;
+        scan_source(&src, params, (fmin, None), segs, &|_| {})?;
     Ok(ChannelScan {
         channel: spec(c),
         params,

@@ -41,9 +41,9 @@ pub fn demo_catalogue(dir: &Path, families: bool) -> PathBuf {
     let path = dir.join("c.db");
     let mut conn = open(&path).unwrap();
     let tx = conn.transaction().unwrap();
-    tx.execute("INSERT INTO channels(id, name, role, rate_hz) VALUES (1, 'ZQ1:TEST-STRAIN_OUT', 'target', 4096)", [])
+    tx.execute("INSERT INTO channels(id, name, role, rate_hz) VALUES (1, 'ZQ1:TEST_STRAIN_OUT', 'target', 4096)", [])
         .unwrap();
-    tx.execute("INSERT INTO channels(id, name, role, rate_hz) VALUES (2, 'ZQ1:ENV-FLUXGATE_Y<&>', 'aux', 512)", [])
+    tx.execute("INSERT INTO channels(id, name, role, rate_hz) VALUES (2, 'ZQ1:ENV_FLUXGATE_Y<&>', 'aux', 512)", [])
         .unwrap();
     for (id, ch) in [(1, 1), (2, 2)] {
         tx.execute(

@@ -74,7 +74,7 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
             family_id: 1,
             trigger_id: 40 + i64::from(k),
             channel: if k == 1 {
-                "AV1:AUX-ONE".into()
+                "AV1:AUX_ONE".into()
             } else {
                 "AV1:STRAIN".into()
             },
@@ -141,7 +141,7 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     }
     assert!(!html.contains("<script>"), "label must be escaped");
     assert!(html.contains("&lt;script&gt;alert(1)&lt;/script&gt;"));
-    assert!(html.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"));
+    assert!(html.contains("ZQ1:ENV_FLUXGATE_Y&lt;&amp;&gt;"));
     assert!(html.contains(VETO_CAUTION));
     assert!(html.contains("safety p"));
     // One proposal per channel with its combined deadtime and state.
@@ -157,7 +157,7 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     // Each image carries its own colour bar (top and threshold marked); the
     // witness image names the aux channel and the member it stands beside.
     assert!(html.contains(">90</text>") && html.contains(">thr</text>"));
-    assert!(html.contains("witness AV1:AUX-ONE at trigger 41"));
+    assert!(html.contains("witness AV1:AUX_ONE at trigger 41"));
     // Spectrograms are drawn with axes (1-2-5 log ticks, 20..2000 Hz inside
     // 15..2200 Hz), the trigger they show, and a colour bar each.
     assert!(html.contains("time from peak [s]") && html.contains("frequency [Hz]"));
@@ -183,7 +183,7 @@ fn report_has_sections_plots_caution_and_escapes_labels() {
     let triage = &triage[..triage.find("</table>").unwrap()];
     assert!(triage.contains("deadtime [% (s)]") && triage.contains("best witness"));
     assert!(
-        triage.contains("ZQ1:ENV-FLUXGATE_Y&lt;&amp;&gt;"),
+        triage.contains("ZQ1:ENV_FLUXGATE_Y&lt;&amp;&gt;"),
         "{triage}"
     );
     assert!(html.contains(&glitchbook::gpstime::utc_label(T0)));
@@ -409,4 +409,46 @@ fn report_passes_the_accessibility_pass() {
     let dir = tempfile::tempdir().unwrap();
     let index = build(dir.path());
     accessibility_pass(&std::fs::read_to_string(&index).unwrap());
+}
+
+/// A later `witnesses --family 2` run holds family 2 only: the report keeps
+/// family 1's rows from the earlier run and takes family 2's from the new
+/// one (each target set from the latest run that computed it).
+#[test]
+fn a_one_family_witness_run_does_not_hide_the_others() {
+    let dir = tempfile::tempdir().unwrap();
+    let db = demo_catalogue(dir.path(), true);
+    add_coupling_and_thumbs(&db, dir.path());
+    let c = open(&db).unwrap();
+    c.execute(
+        "INSERT INTO witness_runs (id, kind, created_utc, params_json, tool_version)
+         VALUES (3, 'witnesses', '2026-01-02T00:00:00Z', '{\"family\":2}', 'test')",
+        [],
+    )
+    .unwrap();
+    c.execute(
+        "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, window_s, targets,
+           targets_hit, aux_triggers, aux_hit, covered_s, analysed_s, deadtime, efficiency,
+           aux_hit_fraction, lift, targets_hit_chance, aux_hit_chance, target_clumping, aux_clumping,
+           chance_p, chance_p_log10, chance_basis, slides, slide_p, false_alarm, false_alarm_basis, false_alarm_any,
+           channels_compared, beyond_chance)
+         VALUES (3, 2, 2, 6.0, 0.05, 200, 90, 500, 95, 50.0, 82800.0, 0.0006, 0.45, 0.19, 750.0,
+                 0.12, 0.3, 1.0, 1.0, 1.0e-120, -120.0, 'targets_poisson', 500, 0.002, 4.0e-119, 'slides_tail',
+                 1.2e-118, 3, 1)",
+        [],
+    )
+    .unwrap();
+    let p = ReportParams {
+        catalogue: db.display().to_string(),
+        ..ReportParams::default()
+    };
+    let data = gather(&c, &p).unwrap();
+    let fams: Vec<Option<i64>> = data.witnesses.iter().map(|w| w.family_id).collect();
+    assert_eq!(fams, vec![Some(1), Some(1), Some(2)], "{fams:?}");
+    let best: Vec<i64> = data
+        .witnessed_families()
+        .iter()
+        .map(|(f, _, _)| *f)
+        .collect();
+    assert_eq!(best, vec![1, 2]);
 }

@@ -410,7 +410,7 @@ pub fn safety_note(report: &VetoReport) -> String {
 }
 
 /// A channel name made safe for a file name: anything outside
-/// `[A-Za-z0-9._-]` becomes `_` (so `Z1:SEIS-X out/1` → `Z1_SEIS-X_out_1`).
+/// `[A-Za-z0-9._-]` becomes `_` (so `Z1:SEIS_X out/1-b` → `Z1_SEIS_X_out_1-b`).
 pub fn sanitise_channel(name: &str) -> String {
     name.chars()
         .map(|c| {
@@ -491,6 +491,6 @@ mod tests {
 
     #[test]
     fn sanitise_colons_and_spaces() {
-        assert_eq!(sanitise_channel("Z1:SEIS-X out/1"), "Z1_SEIS-X_out_1");
+        assert_eq!(sanitise_channel("Z1:SEIS_X out/1-b"), "Z1_SEIS_X_out_1-b");
     }
 }

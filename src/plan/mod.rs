@@ -285,7 +285,8 @@ pub fn plan_channel(
     file: (u64, i64),
     params: &ScanParams,
 ) -> Result<PlanChannel> {
-    let rp = resolve_params(params, rate_hz, limits.0, limits.1)
+    let fmin = crate::scan::channel_fmin(role, rate_hz, limits.0);
+    let rp = resolve_params(params, rate_hz, fmin, limits.1)
         .with_context(|| format!("{}: channel {name}", bundle.display()))?;
     Ok(PlanChannel {
         bundle: bundle.to_path_buf(),

@@ -428,10 +428,37 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
                 |r| r.get(0),
             )?)
         };
-        if let Some(run) = latest("witnesses")? {
-            witnesses = read_witnesses(conn, run)?;
-            lags = read_lags(conn, run)?;
+        // A `witnesses --family F` run holds that family only: each target
+        // set (a family, or all target triggers) shows its rows from the
+        // latest run that computed it, so one family's re-run does not hide
+        // the others'.
+        let mut per_set: Vec<(Option<i64>, i64)> = conn
+            .prepare(
+                "SELECT w.family_id, max(w.run_id) FROM witness_stats w \
+                 JOIN witness_runs r ON r.id = w.run_id AND r.kind = 'witnesses' \
+                 GROUP BY w.family_id",
+            )?
+            .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?;
+        per_set.sort_by_key(|&(_, run)| run);
+        let runs: std::collections::BTreeSet<i64> = per_set.iter().map(|&(_, run)| run).collect();
+        let chosen = |family: Option<i64>, run: i64| per_set.contains(&(family, run));
+        for &run in runs.iter().rev() {
+            witnesses.extend(
+                read_witnesses(conn, run)?
+                    .into_iter()
+                    .filter(|w| chosen(w.family_id, run)),
+            );
+            lags.extend(
+                read_lags(conn, run)?
+                    .into_iter()
+                    .filter(|l| chosen(l.family_id, run)),
+            );
         }
+        // Target sets in order (all target triggers first), each set's rows
+        // in its run's order (the sort is stable).
+        witnesses.sort_by_key(|w| w.family_id);
+        lags.sort_by_key(|l| l.family_id);
         if let Some(run) = latest("vetoes")? {
             vetoes = read_vetoes(conn, run)?;
             proposals = read_proposals(conn, run)?;

@@ -451,8 +451,14 @@ fn family_veto(d: &ReportData, family: i64) -> Option<(String, f64, f64, String)
         .filter(|v| v.mode == "family" && v.family_id == Some(family))
         .collect();
     let last = rounds.iter().max_by_key(|v| v.round)?;
-    let mut aux: Vec<&str> = rounds.iter().map(|v| v.aux_channel.as_str()).collect();
-    aux.dedup();
+    // Each channel once, in round order (a channel can come back in a
+    // later round with another threshold or window).
+    let mut aux: Vec<&str> = Vec::new();
+    for v in &rounds {
+        if !aux.contains(&v.aux_channel.as_str()) {
+            aux.push(&v.aux_channel);
+        }
+    }
     let safety = ["unsafe", "unchecked", "safe"]
         .into_iter()
         .find(|s| rounds.iter().any(|v| v.safety == *s))
