@@ -193,9 +193,13 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
     }
     let rep = families::cluster_catalogue(&mut conn, &params, &src)?;
     g.info(&format!(
-        "clustered {} triggers into {} families ({} new fingerprints, run {})",
+        "clustered {} triggers with SNR >= {} into {} families, then placed {} quieter ones \
+         ({} left unclassified as quiet); {} new fingerprints, run {}",
         rep.n_clustered,
+        params.min_snr,
         rep.families.len(),
+        rep.n_quiet_placed,
+        rep.n_quiet,
         rep.n_features_computed,
         rep.run_id
     ));
