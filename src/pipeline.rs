@@ -347,8 +347,12 @@ pub fn run_demo(o: &DemoRunOptions, on_line: &mut dyn FnMut(DemoLine)) -> Result
             ..ReportParams::default()
         },
     )?;
-    let (thumbs, missing) =
-        families::report_thumbnails(&conn, &report_dir, &data.witnessed_families())?;
+    let (thumbs, missing) = families::report_thumbnails(
+        &conn,
+        &report_dir,
+        &data.family_ids(),
+        &data.witnessed_families(),
+    )?;
     if let Some(why) = missing {
         on_line(DemoLine::Warning(why));
     }

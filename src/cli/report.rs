@@ -59,8 +59,12 @@ impl ReportArgs {
 /// Spectrogram images of a few representative members of each family
 /// (`families::report_thumbnails`); without the data, none (warned).
 fn thumbnails(conn: &Connection, out_dir: &Path, d: &ReportData) -> Result<Vec<Thumbnail>> {
-    let (images, missing) =
-        glitchbook::families::report_thumbnails(conn, out_dir, &d.witnessed_families())?;
+    let (images, missing) = glitchbook::families::report_thumbnails(
+        conn,
+        out_dir,
+        &d.family_ids(),
+        &d.witnessed_families(),
+    )?;
     if let Some(why) = missing {
         super::warn(&why);
     }

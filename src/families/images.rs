@@ -248,9 +248,25 @@ pub fn render_family_thumbnails(
     per_family: usize,
     witnesses: &[(i64, String, f64)],
 ) -> Result<Vec<Thumbnail>> {
+    render_thumbnails_of(conn, src, dir, per_family, witnesses, None)
+}
+
+/// As [`render_family_thumbnails`], for the families in `only` when given.
+fn render_thumbnails_of(
+    conn: &Connection,
+    src: &dyn EnergyMapSource,
+    dir: &std::path::Path,
+    per_family: usize,
+    witnesses: &[(i64, String, f64)],
+    only: Option<&[i64]>,
+) -> Result<Vec<Thumbnail>> {
     std::fs::create_dir_all(dir).with_context(|| format!("creating {}", dir.display()))?;
     let mut out = Vec::new();
-    for f in list_families(conn)?.iter().filter(|f| !f.novel) {
+    let wanted = |id: i64| only.is_none_or(|ids| ids.contains(&id));
+    for f in list_families(conn)?
+        .iter()
+        .filter(|f| !f.novel && wanted(f.id))
+    {
         for (k, t) in family_member_ids(conn, f.id, per_family)?
             .into_iter()
             .enumerate()
@@ -355,8 +371,8 @@ fn witness_image(
 /// Images per family in the report.
 pub const REPORT_IMAGES_PER_FAMILY: usize = 3;
 
-/// The report's images: [`REPORT_IMAGES_PER_FAMILY`] members of every active
-/// family in `out_dir/thumbs`, computed from the files the scans recorded,
+/// The report's images: [`REPORT_IMAGES_PER_FAMILY`] members of each active
+/// family of `families` (the report's target channel's) in `out_dir/thumbs`, computed from the files the scans recorded,
 /// plus the witnessing aux channel beside the first member of each family
 /// in `witnesses` (see [`render_family_thumbnails`]). When the scan records
 /// cannot be read there are no images and the reason is returned beside
@@ -369,6 +385,7 @@ pub const REPORT_IMAGES_PER_FAMILY: usize = 3;
 pub fn report_thumbnails(
     conn: &Connection,
     out_dir: &std::path::Path,
+    families: &[i64],
     witnesses: &[(i64, String, f64)],
 ) -> Result<(Vec<Thumbnail>, Option<String>)> {
     let src = match crate::maps::BundleMaps::from_catalogue(conn) {
@@ -380,12 +397,13 @@ pub fn report_thumbnails(
             ))
         }
     };
-    let images = render_family_thumbnails(
+    let images = render_thumbnails_of(
         conn,
         &src,
         &out_dir.join("thumbs"),
         REPORT_IMAGES_PER_FAMILY,
         witnesses,
+        Some(families),
     )?;
     Ok((images, None))
 }

@@ -129,6 +129,11 @@ pub struct WitnessRow {
 }
 
 impl ReportData {
+    /// The ids of the families on this report (the target channel's).
+    pub fn family_ids(&self) -> Vec<i64> {
+        self.families.iter().map(|f| f.id).collect()
+    }
+
     /// The best witness of each family marked beyond chance: (family id,
     /// aux channel, window \[s\]); the first such row of the family, the one
     /// `glitchbook witnesses` lists as its best.
