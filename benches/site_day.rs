@@ -276,85 +276,52 @@ fn main() {
         gl.len()
     );
 
-    let db = tmp.path().join("site.db");
-    let db = db.to_str().unwrap();
-    let b1 = tmp.path().join("day-a");
-    let b2 = tmp.path().join("day-b");
-    let first = paths.len().min(2);
-    let files =
-        |p: &[PathBuf]| -> Vec<String> { p.iter().map(|x| x.display().to_string()).collect() };
+    let db = tmp.path().join("site.db").display().to_string();
+    let out_dir = |name: &str| tmp.path().join(name).display().to_string();
     let mut rows: Vec<(f64, f64)> = Vec::new();
+    // One stage: `glitchbook --db DB ARGS` (bundle, which writes no
+    // catalogue, ignores --db).
     let mut run = |name: &str, args: Vec<String>| {
-        let a: Vec<&str> = args.iter().map(String::as_str).collect();
+        let mut a = vec!["--db", db.as_str()];
+        a.extend(args.iter().map(String::as_str));
         rows.push(stage(name, &a));
     };
     println!("  {:<34} {:>11} {:>13}", "stage", "wall", "peak RSS");
-    let mut a = vec!["bundle".to_string()];
-    a.extend(files(&paths[..first]));
-    a.extend([
-        "--out".into(),
-        b1.display().to_string(),
-        "--target".into(),
-        "SD1:STRAIN".into(),
-    ]);
-    run(&format!("bundle (first {first} h)"), a);
-    run(
-        &format!("scan (first {first} h)"),
-        vec![
-            "--db".into(),
-            db.into(),
-            "scan".into(),
-            b1.display().to_string(),
-        ],
-    );
-    run("cluster", vec!["--db".into(), db.into(), "cluster".into()]);
-    if paths.len() > first {
-        let rest = paths.len() - first;
+    // The daily loop: the first two hours are scanned and clustered, the
+    // rest arrives as a second bundle whose triggers are assigned.
+    let first = paths.len().min(2);
+    let parts = [
+        ("first", &paths[..first], "day-a", "cluster"),
+        ("next", &paths[first..], "day-b", "assign"),
+    ];
+    for (word, part, dir, then) in parts {
+        if part.is_empty() {
+            continue;
+        }
+        let h = part.len();
         let mut a = vec!["bundle".to_string()];
-        a.extend(files(&paths[first..]));
+        a.extend(part.iter().map(|x| x.display().to_string()));
         a.extend([
             "--out".into(),
-            b2.display().to_string(),
+            out_dir(dir),
             "--target".into(),
             "SD1:STRAIN".into(),
         ]);
-        run(&format!("bundle (next {rest} h)"), a);
+        run(&format!("bundle ({word} {h} h)"), a);
         run(
-            &format!("scan (next {rest} h)"),
-            vec![
-                "--db".into(),
-                db.into(),
-                "scan".into(),
-                b2.display().to_string(),
-            ],
+            &format!("scan ({word} {h} h)"),
+            vec!["scan".into(), out_dir(dir)],
         );
-        run("assign", vec!["--db".into(), db.into(), "assign".into()]);
+        run(then, vec![then.into()]);
     }
-    run(
-        "witnesses",
-        vec!["--db".into(), db.into(), "witnesses".into()],
-    );
-    let vdir = tmp.path().join("vetoes").display().to_string();
+    run("witnesses", vec!["witnesses".into()]);
     run(
         "vetoes",
-        vec![
-            "--db".into(),
-            db.into(),
-            "vetoes".into(),
-            "--out".into(),
-            vdir,
-        ],
+        vec!["vetoes".into(), "--out".into(), out_dir("vetoes")],
     );
-    let rdir = tmp.path().join("report").display().to_string();
     run(
         "report",
-        vec![
-            "--db".into(),
-            db.into(),
-            "report".into(),
-            "--out".into(),
-            rdir,
-        ],
+        vec!["report".into(), "--out".into(), out_dir("report")],
     );
     let total: f64 = rows.iter().map(|r| r.0).sum();
     let peak = rows.iter().map(|r| r.1).fold(0.0, f64::max);
