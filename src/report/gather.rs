@@ -437,7 +437,7 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         // set (a family, or all target triggers) shows its rows from the
         // latest run that computed it, so one family's re-run does not hide
         // the others'.
-        let mut per_set: Vec<(Option<i64>, i64)> = conn
+        let per_set: Vec<(Option<i64>, i64)> = conn
             .prepare(
                 "SELECT w.family_id, max(w.run_id) FROM witness_stats w \
                  JOIN witness_runs r ON r.id = w.run_id AND r.kind = 'witnesses' \
@@ -445,10 +445,9 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
             )?
             .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
             .collect::<rusqlite::Result<_>>()?;
-        per_set.sort_by_key(|&(_, run)| run);
         let runs: std::collections::BTreeSet<i64> = per_set.iter().map(|&(_, run)| run).collect();
         let chosen = |family: Option<i64>, run: i64| per_set.contains(&(family, run));
-        for &run in runs.iter().rev() {
+        for &run in &runs {
             witnesses.extend(
                 read_witnesses(conn, run)?
                     .into_iter()
