@@ -7,6 +7,13 @@ use rusqlite::params;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
+/// The column list of a `witness_stats` row, up to `VALUES`.
+const INSERT_WITNESS_STATS: &str = "INSERT INTO witness_stats (run_id, family_id, aux_channel_id,
+    aux_min_snr, window_s, targets, targets_hit, aux_triggers, aux_hit, covered_s, analysed_s,
+    deadtime, efficiency, aux_hit_fraction, lift, targets_hit_chance, aux_hit_chance,
+    target_clumping, aux_clumping, chance_p, chance_p_log10, chance_basis, slides, slide_p,
+    false_alarm, false_alarm_basis, false_alarm_any, channels_compared, beyond_chance) VALUES";
+
 /// Add one witness run with stats, a lag histogram and veto rounds, and
 /// write two small PNG "spectrograms" (gradients made here).
 fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
@@ -19,17 +26,14 @@ fn add_coupling_and_thumbs(db: &Path, dir: &Path) -> Vec<Thumbnail> {
     )
     .unwrap();
     c.execute(
-        "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, window_s, targets,
-           targets_hit, aux_triggers, aux_hit, covered_s, analysed_s, deadtime, efficiency,
-           aux_hit_fraction, lift, targets_hit_chance, aux_hit_chance, target_clumping, aux_clumping,
-           chance_p, chance_p_log10, chance_basis, slides, slide_p, false_alarm, false_alarm_basis, false_alarm_any,
-           channels_compared, beyond_chance)
-         VALUES (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 0.356, 573.4,
+        &format!(
+            "{INSERT_WITNESS_STATS} (1, 1, 2, 8.0, 0.1, 480, 300, 900, 320, 90.0, 82800.0, 0.00109, 0.625, 0.356, 573.4,
                  0.52, 2.1, 1.0, 1.0, 5.0e-251, -250.3, 'targets_poisson', 500, 0.002, 9.0e-250, 'slides_tail',
                  2.7e-249, 3, 1),
                 (1, 1, 2, 12.0, 0.1, 480, 200, 400, 210, 60.0, 82800.0, 0.00072, 0.417, 0.525, 579.2,
                  0.21, 0.9, 1.0, 1.0, 2.0e-78, -77.7, 'targets_poisson', 500, 0.002, 3.6e-77, 'slides_tail',
-                 1.1e-76, 3, 1)",
+                 1.1e-76, 3, 1)"
+        ),
         [],
     )
     .unwrap();
@@ -427,14 +431,11 @@ fn a_one_family_witness_run_does_not_hide_the_others() {
     )
     .unwrap();
     c.execute(
-        "INSERT INTO witness_stats (run_id, family_id, aux_channel_id, aux_min_snr, window_s, targets,
-           targets_hit, aux_triggers, aux_hit, covered_s, analysed_s, deadtime, efficiency,
-           aux_hit_fraction, lift, targets_hit_chance, aux_hit_chance, target_clumping, aux_clumping,
-           chance_p, chance_p_log10, chance_basis, slides, slide_p, false_alarm, false_alarm_basis, false_alarm_any,
-           channels_compared, beyond_chance)
-         VALUES (3, 2, 2, 6.0, 0.05, 200, 90, 500, 95, 50.0, 82800.0, 0.0006, 0.45, 0.19, 750.0,
+        &format!(
+            "{INSERT_WITNESS_STATS} (3, 2, 2, 6.0, 0.05, 200, 90, 500, 95, 50.0, 82800.0, 0.0006, 0.45, 0.19, 750.0,
                  0.12, 0.3, 1.0, 1.0, 1.0e-120, -120.0, 'targets_poisson', 500, 0.002, 4.0e-119, 'slides_tail',
-                 1.2e-118, 3, 1)",
+                 1.2e-118, 3, 1)"
+        ),
         [],
     )
     .unwrap();

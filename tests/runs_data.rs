@@ -80,6 +80,21 @@ fn triggers_json(d: &Dir, extra: &[&str]) -> Vec<serde_json::Value> {
 
 const SCAN: [&str; 4] = ["--fmin", "20", "--fmax", "400"];
 
+/// The first day's glitches written as bundle `day1` (one target channel)
+/// and scanned; returns its number of samples.
+fn scanned_first_day(d: &Dir) -> usize {
+    let n = (DAY_S * RATE) as usize;
+    npy_bundle(
+        d,
+        "day1",
+        "AV7:STRAIN",
+        &series(1, T0, n, &day_glitches(0, T0)),
+        T0,
+    );
+    scan(d, "day1", &[]);
+    n
+}
+
 fn scan(d: &Dir, bundle: &str, extra: &[&str]) -> String {
     let mut args = vec!["scan", bundle];
     args.extend_from_slice(&SCAN);
@@ -252,15 +267,7 @@ fn overlapping_and_repeated_scans() {
 #[test]
 fn changed_data_is_refused_naming_the_file() {
     let d = Dir::new();
-    let n = (DAY_S * RATE) as usize;
-    npy_bundle(
-        &d,
-        "day1",
-        "AV7:STRAIN",
-        &series(1, T0, n, &day_glitches(0, T0)),
-        T0,
-    );
-    scan(&d, "day1", &[]);
+    let n = scanned_first_day(&d);
     let id = triggers_json(&d, &["--min-snr", "8"])[0]["id"].to_string();
     // Same size, other samples.
     let path = d.path().join("day1/data.npy");
@@ -279,7 +286,6 @@ fn changed_data_is_refused_naming_the_file() {
         );
     }
     assert_eq!(before, d.checksum());
-    let _ = Path::new("");
 }
 
 /// Two target channels (one scanned, one imported with the default role):
@@ -288,15 +294,7 @@ fn changed_data_is_refused_naming_the_file() {
 #[test]
 fn report_with_two_target_channels() {
     let d = Dir::new();
-    let n = (DAY_S * RATE) as usize;
-    npy_bundle(
-        &d,
-        "day1",
-        "AV7:STRAIN",
-        &series(1, T0, n, &day_glitches(0, T0)),
-        T0,
-    );
-    scan(&d, "day1", &[]);
+    scanned_first_day(&d);
     d.write("other.csv", &crate::cli_util::trigger_csv(40, T0 + 5.0));
     d.ok(&["import", "other.csv", "--channel", "AV7:OTHER"]);
     let index = d.ok(&["report", "--out", "rep"]);
