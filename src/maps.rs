@@ -413,9 +413,13 @@ impl BundleMaps {
 }
 
 impl EnergyMapSource for BundleMaps {
-    fn scan_band(&self, channel: &str) -> Option<ScanBand> {
-        // The latest scan's band (scans are kept latest first).
-        let p = &self.channels.get(channel)?.scans.first()?.params;
+    fn scan_band(&self, channel: &str, t_gps: f64) -> Option<ScanBand> {
+        // The band of the scan whose data holds the time (the one its map is
+        // made from), else the latest scan's (scans are kept latest first).
+        let p = match self.scan_at(channel, t_gps) {
+            Ok(s) => &s.params,
+            Err(_) => &self.channels.get(channel)?.scans.first()?.params,
+        };
         Some(ScanBand {
             f_lo_hz: p.fmin,
             f_hi_hz: p.fmax,

@@ -127,7 +127,8 @@ fn two_days_of_one_channel() {
         t1,
     );
     scan(&d, "day1", &[]);
-    scan(&d, "day2", &[]);
+    // The scientists moved the threshold for the second day.
+    scan(&d, "day2", &["--snr-threshold", "6"]);
     assert_eq!(count(&d.db(), "scans"), 2);
     d.ok(&["cluster", "--min-snr", "8"]);
     let trig = triggers_json(&d, &["--min-snr", "8"]);
@@ -151,6 +152,16 @@ fn two_days_of_one_channel() {
     // Every glitch of both days is found in its own day's data by the maps.
     let conn = glitchbook::catalogue::open(&d.db()).unwrap();
     let maps = glitchbook::maps::BundleMaps::from_catalogue(&conn).unwrap();
+    // Each day's images take the threshold (colour scale) of that day's
+    // scan: 1 + SNR²/2 for SNR 5.5 (the default) and 6.
+    use glitchbook::families::features::EnergyMapSource;
+    for (t, snr) in [(T0 + 10.0, 5.5f64), (t1 + 10.0, 6.0)] {
+        let band = maps.scan_band("AV7:STRAIN", t).expect("scanned");
+        assert!(
+            (band.z_threshold - (1.0 + snr * snr / 2.0)).abs() < 1e-9,
+            "{t}: {band:?}"
+        );
+    }
     for (day, t0) in [(0, T0), (1, t1)] {
         for (tg, f0, q, _) in day_glitches(day, t0) {
             let rows = maps.energy_rows("AV7:STRAIN", tg, 0.5, q, &[f0]).unwrap();

@@ -157,9 +157,11 @@ pub trait EnergyMapSource: Sync {
         Ok(bin_rows(&rows, t_center_gps, span_s, n_times, Binning::Max))
     }
 
-    /// What the scan of `channel` analysed (band and threshold), when
-    /// known; images use it for their frequency range and colour scale.
-    fn scan_band(&self, _channel: &str) -> Option<ScanBand> {
+    /// What the scan of `channel` that holds GPS `t_gps` analysed (band and
+    /// threshold), when known; images use it for their frequency range and
+    /// colour scale. Scans of one channel may differ (a re-scan with
+    /// another `--fmin` or threshold covers only its own time).
+    fn scan_band(&self, _channel: &str, _t_gps: f64) -> Option<ScanBand> {
         None
     }
 }

@@ -104,7 +104,7 @@ fn channel_map(
 ) -> Result<(Vec<f32>, ImageExtent, ColourScale)> {
     let freqs = super::features::log_grid(f_lo, f_hi, IMAGE_FREQS);
     let map = src.energy_map(channel, t_gps, span_s, q, &freqs, IMAGE_TIMES)?;
-    let scale = ColourScale::for_map(&map, src.scan_band(channel).map(|b| b.z_threshold));
+    let scale = ColourScale::for_map(&map, src.scan_band(channel, t_gps).map(|b| b.z_threshold));
     Ok((
         map,
         ImageExtent::log_rows(span_s, f_lo, f_hi, IMAGE_FREQS),
@@ -160,7 +160,10 @@ pub fn render_trigger_thumbnail(
             }
         }
     };
-    let view = image_view(&row.trig, src.scan_band(&row.channel).as_ref());
+    let view = image_view(
+        &row.trig,
+        src.scan_band(&row.channel, row.trig.t_peak).as_ref(),
+    );
     let q = super::features::map_q(&row.trig);
     if let Ok((map, extent, scale)) = channel_map(src, &row.channel, row.trig.t_peak, view, q) {
         write(&map, (IMAGE_TIMES, IMAGE_FREQS), (4, 4), &extent, &scale)?;
@@ -330,7 +333,7 @@ fn witness_image(
     .into_iter()
     .filter(|a| a.t_start - window_s <= row.trig.t_peak && row.trig.t_peak <= a.t_end + window_s)
     .max_by(|a, b| a.snr.total_cmp(&b.snr));
-    let band = src.scan_band(aux);
+    let band = src.scan_band(aux, row.trig.t_peak);
     let (trig, view) = match &near {
         Some(a) => {
             let trig = a.to_trigger();
