@@ -413,6 +413,10 @@ impl BundleMaps {
 }
 
 impl EnergyMapSource for BundleMaps {
+    fn has_data(&self, channel: &str) -> bool {
+        self.channels.contains_key(channel)
+    }
+
     fn scan_band(&self, channel: &str, t_gps: f64) -> Option<ScanBand> {
         // The band of the scan whose data holds the time (the one its map is
         // made from), else the latest scan's (scans are kept latest first).

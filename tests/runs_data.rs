@@ -300,7 +300,9 @@ fn changed_data_is_refused_naming_the_file() {
 }
 
 /// Two target channels (one scanned, one imported with the default role):
-/// `report` writes one report per target and an index linking them;
+/// `cluster` and `assign` leave the imported one's triggers out with a
+/// warning (no raw data, no fingerprint) instead of failing; `report`
+/// writes one report per target and an index linking them;
 /// `--channel` writes one alone; an unknown name is refused.
 #[test]
 fn report_with_two_target_channels() {
@@ -308,6 +310,17 @@ fn report_with_two_target_channels() {
     scanned_first_day(&d);
     d.write("other.csv", &crate::cli_util::trigger_csv(40, T0 + 5.0));
     d.ok(&["import", "other.csv", "--channel", "AV7:OTHER"]);
+    // The imported target has no raw data: `cluster` and `assign` work on
+    // the scanned one and say which triggers were left out and why.
+    for args in [&["cluster", "--min-snr", "8"][..], &["assign"][..]] {
+        let out = d.run(args);
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(out.status.success(), "{args:?}: {err}");
+        assert!(
+            err.contains("AV7:OTHER: 40 target triggers") && err.contains("without raw data"),
+            "{args:?}: {err}"
+        );
+    }
     let index = d.ok(&["report", "--out", "rep"]);
     assert!(index.trim().ends_with("rep/index.html"), "{index}");
     let top = std::fs::read_to_string(d.path().join("rep/index.html")).unwrap();

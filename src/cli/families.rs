@@ -192,6 +192,7 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         return assign(g, &mut conn, &src);
     }
     let rep = families::cluster_catalogue(&mut conn, &params, &src)?;
+    warn_without_data(&rep.without_data);
     g.info(&format!(
         "clustered {} triggers with SNR >= {} into {} families, then placed {} quieter ones \
          ({} left unclassified as quiet); {} new fingerprints, run {}",
@@ -218,8 +219,19 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
     print_families(&conn, Format::Table)
 }
 
+/// Say which target channels' triggers were left out for want of raw data.
+fn warn_without_data(without: &[(String, usize)]) {
+    for (channel, n) in without {
+        super::warn(&format!(
+            "{channel}: {n} target triggers left without a family: they were imported without \
+             raw data, so they have no fingerprint (scan the channel's data to classify them)"
+        ));
+    }
+}
+
 fn assign(g: &Global, conn: &mut Connection, src: &BundleMaps) -> Result<ExitCode> {
     let rep = families::assign_new(conn, src)?;
+    warn_without_data(&rep.without_data);
     g.info(&format!(
         "assigned {} triggers; {} novel; {} quiet (below the clustering SNR, not placed with confidence)",
         rep.n_assigned, rep.n_novel, rep.n_quiet

@@ -98,6 +98,25 @@ fn target_triggers(conn: &Connection, min_snr: f64, only_unassigned: bool) -> Re
     target_triggers_in(conn, min_snr, f64::INFINITY, only_unassigned)
 }
 
+/// Split off the rows of channels without raw data (triggers imported
+/// without it have no fingerprint); their counts per channel go to
+/// `skipped`.
+fn with_data(
+    rows: Vec<Row>,
+    src: &dyn EnergyMapSource,
+    skipped: &mut Vec<(String, usize)>,
+) -> Vec<Row> {
+    let (keep, without): (Vec<Row>, Vec<Row>) =
+        rows.into_iter().partition(|r| src.has_data(&r.channel));
+    for r in without {
+        match skipped.iter_mut().find(|(c, _)| *c == r.channel) {
+            Some((_, n)) => *n += 1,
+            None => skipped.push((r.channel, 1)),
+        }
+    }
+    keep
+}
+
 /// Fingerprints of `rows`, computing (in parallel) and storing those missing
 /// or of another feature version. Returns (maps, scalars) per row and the
 /// number computed. With `need_maps` false the maps are stored but not
@@ -204,7 +223,12 @@ pub fn cluster_catalogue(
 ) -> Result<ClusterReport> {
     p.check()?;
     let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-    let rows = target_triggers(&tx, p.min_snr, false)?;
+    let mut without_data = Vec::new();
+    let rows = with_data(
+        target_triggers(&tx, p.min_snr, false)?,
+        src,
+        &mut without_data,
+    );
     let need_maps = p.n_map_components > 0;
     let (fps, n_computed) = ensure_features(&tx, &rows, src, need_maps)?;
     let (mut model, fit) = fit_and_group(&fps, p)?;
@@ -221,7 +245,11 @@ pub fn cluster_catalogue(
     store_memberships(&tx, run_id, &rows, &fit, &group_family, &pins)?;
     model.component_family = fit.groups.iter().map(|&g| group_family[g]).collect();
     // Quieter triggers: placed where the model is confident, else `quiet`.
-    let quiet = target_triggers_in(&tx, f64::NEG_INFINITY, p.min_snr, false)?;
+    let quiet = with_data(
+        target_triggers_in(&tx, f64::NEG_INFINITY, p.min_snr, false)?,
+        src,
+        &mut without_data,
+    );
     let (qfps, n_quiet_computed) = ensure_features(&tx, &quiet, src, need_maps)?;
     let placed = store_placements(&tx, run_id, &model, &quiet, &qfps, "cluster", &pins)?;
     tx.execute(
@@ -239,6 +267,7 @@ pub fn cluster_catalogue(
         bic: fit.bic,
         events,
         families,
+        without_data,
     })
 }
 
@@ -485,6 +514,7 @@ fn store_placements(
         n_quiet: 0,
         n_class_labelled: 0,
         n_class_unclassified: 0,
+        without_data: Vec::new(),
     };
     if rows.is_empty() {
         return Ok(rep);
@@ -551,7 +581,12 @@ pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<As
         )
         .into());
     };
-    let rows = target_triggers(&tx, f64::NEG_INFINITY, true)?;
+    let mut without_data = Vec::new();
+    let rows = with_data(
+        target_triggers(&tx, f64::NEG_INFINITY, true)?,
+        src,
+        &mut without_data,
+    );
     let need_maps = !model.map_pca.components.is_empty();
     let (fps, _) = ensure_features(&tx, &rows, src, need_maps)?;
     let pins = active_pins(&tx)?;
@@ -559,6 +594,7 @@ pub fn assign_new(conn: &mut Connection, src: &dyn EnergyMapSource) -> Result<As
     let ids: Vec<i64> = rows.iter().map(|r| r.id).collect();
     (rep.n_class_labelled, rep.n_class_unclassified) =
         super::classifier_db::classify_triggers(&tx, &ids)?;
+    rep.without_data = without_data;
     tx.commit()?;
     Ok(rep)
 }

@@ -157,6 +157,12 @@ pub trait EnergyMapSource: Sync {
         Ok(bin_rows(&rows, t_center_gps, span_s, n_times, Binning::Max))
     }
 
+    /// Whether raw data of `channel` can be read (false for a channel whose
+    /// triggers were imported without data: they get no fingerprint).
+    fn has_data(&self, _channel: &str) -> bool {
+        true
+    }
+
     /// What the scan of `channel` that holds GPS `t_gps` analysed (band and
     /// threshold), when known; images use it for their frequency range and
     /// colour scale. Scans of one channel may differ (a re-scan with

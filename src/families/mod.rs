@@ -145,6 +145,9 @@ pub struct ClusterReport {
     pub events: Vec<FamilyEvent>,
     /// The active families after the run.
     pub families: Vec<FamilySummary>,
+    /// Target channels whose triggers were left out, having no raw data
+    /// (imported without it), with their number of triggers.
+    pub without_data: Vec<(String, usize)>,
 }
 
 /// Result of [`assign_new`].
@@ -160,6 +163,9 @@ pub struct AssignReport {
     pub n_class_labelled: usize,
     /// Triggers the latest classifier left without a label.
     pub n_class_unclassified: usize,
+    /// Target channels whose new triggers were left out, having no raw
+    /// data (imported without it), with their number of triggers.
+    pub without_data: Vec<(String, usize)>,
 }
 
 /// One entry of a family's label history.
