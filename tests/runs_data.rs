@@ -154,7 +154,6 @@ fn two_days_of_one_channel() {
     let maps = glitchbook::maps::BundleMaps::from_catalogue(&conn).unwrap();
     // Each day's images take the threshold (colour scale) of that day's
     // scan: 1 + SNR²/2 for SNR 5.5 (the default) and 6.
-    use glitchbook::families::features::EnergyMapSource;
     for (t, snr) in [(T0 + 10.0, 5.5f64), (t1 + 10.0, 6.0)] {
         let band = maps.scan_band("AV7:STRAIN", t).expect("scanned");
         assert!(
