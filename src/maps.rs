@@ -417,6 +417,10 @@ impl EnergyMapSource for BundleMaps {
         self.channels.contains_key(channel)
     }
 
+    fn has_data_at(&self, channel: &str, t_gps: f64) -> bool {
+        self.scan_at(channel, t_gps).is_ok()
+    }
+
     fn scan_band(&self, channel: &str, t_gps: f64) -> Option<ScanBand> {
         // The band of the scan whose data holds the time (the one its map is
         // made from), else the latest scan's (scans are kept latest first).

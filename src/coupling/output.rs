@@ -400,7 +400,9 @@ pub fn safety_note(report: &VetoReport) -> String {
         Some(n) => format!(
             "Safety: {n} injections; a veto is unsafe (not proposed) when \
              P(X >= injections vetoed | Binomial(injections, deadtime)) < {:e} (common practice); \
-             the Poisson figure is shown for reference.",
+             the Poisson figure is shown for reference. A veto is UNCHECKED when its injections \
+             are too few to show it unsafe at its deadtime (even all vetoed would not be below \
+             the limit).",
             report.params.safety_p
         ),
         None => "Safety: NOT CHECKED (no injections given): every veto is UNCHECKED; run with \

@@ -24,7 +24,9 @@
 //! is lenient at large deadtime). Below [`VetoParams::safety_p`] (default
 //! 1e-5, common practice) a round is unsafe: nothing is removed for it and
 //! its channel takes no part in later rounds. Without injections a round is
-//! `unchecked`, never safe.
+//! `unchecked`, never safe; so is one whose injections are too few to show
+//! it unsafe at its deadtime (even all of them vetoed, `deadtime^N`, would
+//! not be below the limit).
 //!
 //! # Proposals
 //! The rounds of one aux channel (over all target triggers and every
@@ -155,13 +157,18 @@ pub struct SafetyCheck {
 
 /// Check a veto of `deadtime` that holds `vetoed` of `injections`
 /// injections: unsafe when the exact binomial tail is below `limit`.
-/// `None` injections: unchecked.
+/// `None` injections: unchecked. Also unchecked when the injections could
+/// not show the veto unsafe whatever it held: with N injections the
+/// smallest tail is `P(X ≥ N) = deadtime^N` (every one vetoed), and when
+/// that is not below `limit` (say 2 injections at deadtime 0.005: 2.5e-5)
+/// passing says nothing — too few injections for this deadtime.
 pub fn safety_check(injections: Option<(u64, u64)>, deadtime: f64, limit: f64) -> SafetyCheck {
     let Some((n, k)) = injections else {
         return SafetyCheck::default();
     };
     let binomial_p = binomial_ln_sf(k, n, deadtime).exp();
     let mu = n as f64 * deadtime;
+    let can_fail = binomial_ln_sf(n, n, deadtime) < limit.ln();
     SafetyCheck {
         injections: Some(n),
         injections_vetoed: Some(k),
@@ -170,8 +177,10 @@ pub fn safety_check(injections: Option<(u64, u64)>, deadtime: f64, limit: f64) -
         poisson_p: Some(poisson_ln_sf(k, mu).exp()),
         safety: if binomial_p < limit {
             Safety::Unsafe
-        } else {
+        } else if can_fail {
             Safety::Safe
+        } else {
+            Safety::Unchecked
         },
     }
 }
@@ -697,5 +706,26 @@ mod tests {
         // Nothing vetoed: P(X ≥ 0) = 1, safe.
         let c = safety_check(Some((30, 0)), 0.01, 1e-5);
         assert_eq!((c.safety, c.binomial_p), (Safety::Safe, Some(1.0)));
+    }
+
+    #[test]
+    fn too_few_injections_to_fail_is_unchecked() {
+        // 2 injections, deadtime 0.005: even both vetoed gives
+        // P(X >= 2 | Binomial(2, 0.005)) = 0.005^2 = 2.5e-5 (exact, by hand),
+        // not below 1e-5: the check cannot fail, so it is not a pass.
+        let c = safety_check(Some((2, 2)), 0.005, 1e-5);
+        assert_eq!(c.safety, Safety::Unchecked);
+        assert!((c.binomial_p.unwrap() - 2.5e-5).abs() < 1e-12);
+        // No injection inside the analysed time: nothing to check.
+        assert_eq!(
+            safety_check(Some((0, 0)), 0.005, 1e-5).safety,
+            Safety::Unchecked
+        );
+        // 3 at 0.005: 1.25e-7 is reachable, and 3 of 3 vetoed is unsafe.
+        assert_eq!(
+            safety_check(Some((3, 3)), 0.005, 1e-5).safety,
+            Safety::Unsafe
+        );
+        assert_eq!(safety_check(Some((3, 0)), 0.005, 1e-5).safety, Safety::Safe);
     }
 }

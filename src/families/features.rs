@@ -163,6 +163,11 @@ pub trait EnergyMapSource: Sync {
         true
     }
 
+    /// Whether a scan of `channel` holds GPS `t_gps` (its map can be made).
+    fn has_data_at(&self, channel: &str, _t_gps: f64) -> bool {
+        self.has_data(channel)
+    }
+
     /// What the scan of `channel` that holds GPS `t_gps` analysed (band and
     /// threshold), when known; images use it for their frequency range and
     /// colour scale. Scans of one channel may differ (a re-scan with

@@ -270,10 +270,8 @@ fn render_thumbnails_of(
         .iter()
         .filter(|f| !f.novel && wanted(f.id))
     {
-        for (k, t) in family_member_ids(conn, f.id, per_family)?
-            .into_iter()
-            .enumerate()
-        {
+        let mut rows = Vec::new();
+        for t in family_member_ids(conn, f.id, per_family)? {
             let p = dir.join(format!("family_{}_trigger_{t}.png", f.id));
             let (extent, scale) = render_trigger_thumbnail(conn, t, src, &p, ImageStyle::Bare)?;
             let row = trigger_row(conn, t)?.ok_or_else(|| {
@@ -292,12 +290,15 @@ fn render_thumbnails_of(
                 extent,
                 scale,
             });
-            if k > 0 {
-                continue;
-            }
-            for (_, aux, window_s) in witnesses.iter().filter(|w| w.0 == f.id) {
-                let p = dir.join(format!("family_{}_trigger_{t}_aux.png", f.id));
-                out.push(witness_image(conn, src, (f.id, &row), aux, *window_s, p)?);
+            rows.push(row);
+        }
+        // The witness beside the first member its data cover (an aux
+        // channel's analysed time can start later than the target's: a
+        // longer padding, another day's bundle not scanned for it).
+        for (_, aux, window_s) in witnesses.iter().filter(|w| w.0 == f.id) {
+            if let Some(row) = rows.iter().find(|r| src.has_data_at(aux, r.trig.t_peak)) {
+                let p = dir.join(format!("family_{}_trigger_{}_aux.png", f.id, row.id));
+                out.push(witness_image(conn, src, (f.id, row), aux, *window_s, p)?);
             }
         }
     }

@@ -603,8 +603,9 @@ pub struct VetoRoundScore {
     pub false_alarm: f64,
     /// The tool's safety state: `safe`, `unsafe` or `unchecked`.
     pub safety: String,
-    /// Part of a proposal (every round not unsafe is merged into its
-    /// channel's proposal).
+    /// Proposed: its safety was checked against the injections and passed
+    /// (a round that is unsafe, or whose safety could not be checked, is
+    /// not put forward).
     pub proposed: bool,
 }
 
@@ -672,7 +673,7 @@ pub fn veto_score(
                 right_channel,
                 false_alarm: r.false_alarm,
                 safety: r.safety.as_str().into(),
-                proposed: r.safety != Safety::Unsafe,
+                proposed: r.safety == Safety::Safe,
             }
         })
         .collect();
