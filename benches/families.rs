@@ -6,7 +6,8 @@
 //! to a temporary directory, scanned into a catalogue, maps from
 //! [`BundleMaps`]: whitening, windows, Q rows; features stored in SQLite)
 //! and with a synthetic map source (the feature code alone).
-//! Run: `cargo bench --bench families` (about a minute).
+//! Run: `cargo bench --bench families` (about a minute);
+//! `cargo bench --bench families -- fingerprints` times the real path only.
 
 use glitchbook::families::features::{fingerprint, SineGaussian, SineGaussianSource};
 use glitchbook::families::gmm::{fit_auto_k, Gmm, GmmParams};
@@ -128,6 +129,9 @@ fn main() {
         rayon::current_num_threads()
     );
     fingerprints_from_bundle(30.0, 1.0);
+    if std::env::args().any(|a| a == "fingerprints") {
+        return;
+    }
 
     // Fingerprints.
     let n_fp = 4000;

@@ -23,12 +23,14 @@
 
 use crate::families::features::{EnergyMapSource, RowEnergies, ScanBand};
 use crate::io::{Bundle, ChannelSource, ChannelSpec, FileStamp};
-use crate::scan::{Conditioner, ResolvedParams, SampleSource};
+use crate::scan::{CondBuffers, Conditioner, ResolvedParams, SampleSource};
 use crate::segments::SegmentList;
-use crate::tf::{mismatch_step, sigma_t, QPlan};
+use crate::tf::{mismatch_step, sigma_t, QPlan, Workspace};
 use anyhow::{anyhow, bail, Context, Result};
 use realfft::{ComplexToReal, RealFftPlanner, RealToComplex};
 use rusqlite::{Connection, OptionalExtension};
+use rustfft::num_complex::Complex;
+use std::cell::RefCell;
 use std::collections::HashMap;
 use std::path::PathBuf;
 use std::sync::{Arc, Mutex, OnceLock};
@@ -154,7 +156,14 @@ struct WindowPlan {
 
 type BlockKey = (String, usize, usize);
 /// A block conditioner and the inverse FFT back to a time series.
-type BlockPlan = (Conditioner, Arc<dyn ComplexToReal<f32>>);
+struct BlockPlan {
+    conditioner: Conditioner,
+    inverse: Arc<dyn ComplexToReal<f32>>,
+    /// Buffers of finished blocks (conditioning and inverse-FFT scratch),
+    /// taken by the next: a block's buffers are several MB, and allocating
+    /// them afresh cost a page fault per 4 KiB (about one per thread).
+    spare: Mutex<Vec<(CondBuffers, Vec<Complex<f32>>)>>,
+}
 type PlanKey = (String, usize, usize);
 
 /// Energy maps from the bundles recorded in a catalogue's scans.
@@ -339,17 +348,18 @@ impl BundleMaps {
                 Some(hit) => hit.clone(),
                 None => {
                     let hp = (0.5 * p.fmin, 0.9 * p.fmin);
-                    let made = Arc::new((
+                    let made = Arc::new(BlockPlan {
                         // Taper the scan's padding (the conditioner tapers half its `pad`).
-                        Conditioner::new(
+                        conditioner: Conditioner::new(
                             n,
                             fs,
                             (2.0 * p.pad_s * fs).round() as usize,
                             welch_n,
                             hp,
                         )?,
-                        RealFftPlanner::<f32>::new().plan_fft_inverse(n),
-                    ));
+                        inverse: RealFftPlanner::<f32>::new().plan_fft_inverse(n),
+                        spare: Mutex::new(Vec::new()),
+                    });
                     // Short stretches each have their own length: bounded.
                     if c.len() >= CACHE_PLANS {
                         c.clear();
@@ -359,8 +369,12 @@ impl BundleMaps {
                 }
             }
         };
-        let (conditioner, inverse) = (&cond.0, &cond.1);
-        let mut spec = conditioner.whiten_block(src, i0)?;
+        let (conditioner, inverse) = (&cond.conditioner, &cond.inverse);
+        let spare = cond.spare.lock().expect("cache lock").pop();
+        let (mut b, mut scratch) =
+            spare.unwrap_or_else(|| (conditioner.buffers(), inverse.make_scratch_vec()));
+        conditioner.whiten_block_with(src, i0, &mut b)?;
+        let spec = &mut b.whitened;
         // A real series has real DC and Nyquist bins.
         spec[0].im = 0.0;
         if let Some(last) = spec.last_mut() {
@@ -368,8 +382,9 @@ impl BundleMaps {
         }
         let mut x = inverse.make_output_vec();
         inverse
-            .process(&mut spec, &mut x)
+            .process_with_scratch(spec, &mut x, &mut scratch)
             .map_err(|e| anyhow!("{channel}: inverse FFT: {e}"))?;
+        cond.spare.lock().expect("cache lock").push((b, scratch));
         // Unnormalised inverse of unit-power bins: spectral level n; scale to 1.
         let scale = 1.0 / (n as f32).sqrt();
         x.iter_mut().for_each(|v| *v *= scale);
@@ -461,49 +476,91 @@ impl EnergyMapSource for BundleMaps {
         let half_s = 0.5 * span_s + 3.0 * reach_s + taper_s;
         let m = (((2.0 * half_s * fs).ceil() as usize).next_power_of_two()).min(block.x.len());
         let win = self.window_plan(channel, m, (taper_s * fs).round() as usize);
-        let rows = {
-            let mut planner = self.planner.lock().expect("planner lock");
-            QPlan::single_plane(
+        MAP_SCRATCH.with(|cell| {
+            let mut guard = cell.borrow_mut();
+            let sc = &mut *guard;
+            let rows = QPlan::single_plane_with(
                 fs,
                 m,
                 q,
                 freqs_hz,
                 mismatch_step(cd.params.mismatch),
                 (0.5 * cd.params.fmin, 0.9 * cd.params.fmin),
-                &mut planner,
-            )
-        };
-        let t0 = data.src.start_gps();
-        let ic = ((t_center_gps - t0) * fs).round() as usize;
-        let w0 = ic
-            .saturating_sub(m / 2)
-            .clamp(block.i0, block.i0 + block.x.len() - m);
-        let xs = &block.x[w0 - block.i0..w0 - block.i0 + m];
-        let mut input: Vec<f32> = xs.iter().zip(&win.taper).map(|(x, u)| x * u).collect();
-        let mut spec = win.fft.make_output_vec();
-        win.fft
-            .process(&mut input, &mut spec)
-            .map_err(|e| anyhow!("{channel}: FFT: {e}"))?;
-        spec.iter_mut().for_each(|c| *c *= win.unit);
-        let tw0 = t0 + w0 as f64 / fs;
-        let mut ws = rows.workspace();
-        let plane_rows = &rows.planes[0].rows;
-        let mut out: Vec<Option<RowEnergies>> = vec![None; freqs_hz.len()];
-        // single_plane keeps the rows that fit, in the order given.
-        let mut r = 0;
-        for (j, &f) in freqs_hz.iter().enumerate() {
-            if r < plane_rows.len() && plane_rows[r].f_hz == f {
-                let (z, dt) = rows.row_energies_expected(0, r, &spec, &mut ws);
-                out[j] = Some(RowEnergies {
-                    t0_gps: tw0,
-                    dt_s: dt,
-                    z,
-                });
-                r += 1;
+                &mut |n_t| {
+                    sc.iffts
+                        .entry(n_t)
+                        .or_insert_with(|| {
+                            self.planner
+                                .lock()
+                                .expect("planner lock")
+                                .plan_fft_inverse(n_t)
+                        })
+                        .clone()
+                },
+            );
+            let t0 = data.src.start_gps();
+            let ic = ((t_center_gps - t0) * fs).round() as usize;
+            let w0 = ic
+                .saturating_sub(m / 2)
+                .clamp(block.i0, block.i0 + block.x.len() - m);
+            let xs = &block.x[w0 - block.i0..w0 - block.i0 + m];
+            sc.input.clear();
+            sc.input
+                .extend(xs.iter().zip(&win.taper).map(|(x, u)| x * u));
+            sc.spec
+                .resize(win.fft.complex_len(), Complex::new(0.0, 0.0));
+            sc.fft_scratch
+                .resize(win.fft.get_scratch_len(), Complex::new(0.0, 0.0));
+            win.fft
+                .process_with_scratch(&mut sc.input, &mut sc.spec, &mut sc.fft_scratch)
+                .map_err(|e| anyhow!("{channel}: FFT: {e}"))?;
+            let spec = &mut sc.spec[..win.fft.complex_len()];
+            spec.iter_mut().for_each(|c| *c *= win.unit);
+            let tw0 = t0 + w0 as f64 / fs;
+            let ws = sc.ws.get_or_insert_with(|| rows.workspace());
+            rows.fit_workspace(ws);
+            let plane_rows = &rows.planes[0].rows;
+            let mut out: Vec<Option<RowEnergies>> = vec![None; freqs_hz.len()];
+            // single_plane keeps the rows that fit, in the order given.
+            let mut r = 0;
+            for (j, &f) in freqs_hz.iter().enumerate() {
+                if r < plane_rows.len() && plane_rows[r].f_hz == f {
+                    let (z, dt) = rows.row_energies_expected(0, r, spec, ws);
+                    out[j] = Some(RowEnergies {
+                        t0_gps: tw0,
+                        dt_s: dt,
+                        z,
+                    });
+                    r += 1;
+                }
             }
-        }
-        Ok(out)
+            Ok(out)
+        })
     }
+}
+
+/// Buffers and inverse-FFT plans of one thread's energy maps, reused from
+/// trigger to trigger: a map's window length and rows change with nearly
+/// every trigger, and allocating (and zeroing) them per map, and locking
+/// one shared planner for every row, cost about a tenth of the fingerprint
+/// time (perf, `cargo bench --bench families`). Kept for the thread's life
+/// (a few MB at the longest windows).
+#[derive(Default)]
+struct MapScratch {
+    /// Tapered window samples.
+    input: Vec<f32>,
+    /// Window spectrum.
+    spec: Vec<Complex<f32>>,
+    /// Scratch of the window FFT.
+    fft_scratch: Vec<Complex<f32>>,
+    /// Row buffers.
+    ws: Option<Workspace>,
+    /// Inverse FFTs of the rows by length (plans depend on the length only).
+    iffts: HashMap<usize, Arc<dyn rustfft::Fft<f32>>>,
+}
+
+thread_local! {
+    static MAP_SCRATCH: RefCell<MapScratch> = RefCell::new(MapScratch::default());
 }
 
 /// The bundle directory a channel's latest scan read (absolute when the

@@ -158,6 +158,22 @@ impl Row {
         highpass_hz: (f64, f64),
         planner: &mut FftPlanner<f32>,
     ) -> Option<Row> {
+        Row::with_ifft(f_hz, q, fs_hz, n, step, highpass_hz, &mut |n_t| {
+            planner.plan_fft_inverse(n_t)
+        })
+    }
+
+    /// As [`Row::new`], with the inverse FFT of a length from `ifft` (a
+    /// cache of plans, so no planner need be locked while rows are made).
+    pub fn with_ifft(
+        f_hz: f64,
+        q: f64,
+        fs_hz: f64,
+        n: usize,
+        step: f64,
+        highpass_hz: (f64, f64),
+        ifft: &mut dyn FnMut(usize) -> Arc<dyn Fft<f32>>,
+    ) -> Option<Row> {
         let t_block = n as f64 / fs_hz;
         let nbins = n / 2 + 1;
         let half_width_hz = BISQUARE_HALF_WIDTH * f_hz / q;
@@ -192,7 +208,7 @@ impl Row {
             dnu: (1.0 / (t_block * half_width_hz)) as f32,
             norm,
             n_t,
-            ifft: planner.plan_fft_inverse(n_t),
+            ifft: ifft(n_t),
         })
     }
 }
@@ -314,9 +330,25 @@ impl QPlan {
         highpass_hz: (f64, f64),
         planner: &mut FftPlanner<f32>,
     ) -> QPlan {
+        QPlan::single_plane_with(fs_hz, n, q, freqs_hz, step, highpass_hz, &mut |n_t| {
+            planner.plan_fft_inverse(n_t)
+        })
+    }
+
+    /// As [`QPlan::single_plane`], with the rows' inverse FFTs from `ifft`
+    /// (see [`Row::with_ifft`]).
+    pub fn single_plane_with(
+        fs_hz: f64,
+        n: usize,
+        q: f64,
+        freqs_hz: &[f64],
+        step: f64,
+        highpass_hz: (f64, f64),
+        ifft: &mut dyn FnMut(usize) -> Arc<dyn Fft<f32>>,
+    ) -> QPlan {
         let rows: Vec<Row> = freqs_hz
             .iter()
-            .filter_map(|&f| Row::new(f, q, fs_hz, n, step, highpass_hz, planner))
+            .filter_map(|&f| Row::with_ifft(f, q, fs_hz, n, step, highpass_hz, ifft))
             .collect();
         let max_n_t = rows.iter().map(|r| r.n_t).max().unwrap_or(1);
         let max_scratch = rows
@@ -351,6 +383,18 @@ impl QPlan {
             scratch: vec![Complex::new(0.0, 0.0); self.max_scratch],
             med: Vec::with_capacity(self.max_n_t),
             hot: Vec::with_capacity(self.max_n_t / CHUNK + 1),
+        }
+    }
+
+    /// Grow `ws` (made for another plan) to serve this one: buffers are
+    /// reused rather than allocated per call (energy maps make a plan per
+    /// trigger). Every buffer is overwritten before it is read.
+    pub fn fit_workspace(&self, ws: &mut Workspace) {
+        if ws.buf.len() < self.max_n_t {
+            ws.buf.resize(self.max_n_t, Complex::new(0.0, 0.0));
+        }
+        if ws.scratch.len() < self.max_scratch {
+            ws.scratch.resize(self.max_scratch, Complex::new(0.0, 0.0));
         }
     }
 
