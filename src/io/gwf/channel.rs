@@ -4,12 +4,12 @@
 //! Memory: an uncompressed vector is read straight from the file (only the
 //! bytes asked for). A compressed vector has no random access (a zlib
 //! stream or a zero-suppressed bit stream must be decoded from its start).
-//! One of at most [`WHOLE_BYTES`] decompressed (a frame of a few seconds to
-//! minutes) is decoded whole: its structure read in one piece, checked,
+//! A gzip or differences + gzip one of at most [`WHOLE_BYTES`]
+//! decompressed (a frame of a few seconds to minutes) is decoded whole: its structure read in one piece, checked,
 //! and decoded in one call (libdeflate for gzip) into its stored elements
 //! (2 bytes a sample for int16), which the channel keeps in its pool, shared
-//! by every reader, and converts to f64 as read. Larger vectors are decoded
-//! as a stream: the channel keeps a small pool of decoders, each with a window of the
+//! by every reader, and converts to f64 as read. Larger vectors, and
+//! zero-suppressed ones, are decoded as a stream: the channel keeps a small pool of decoders, each with a window of the
 //! last samples it produced (at most [`WINDOW_SAMPLES`] f64): a read that
 //! starts inside a window or after it continues that decoder, so reading in
 //! order — the scan's survey, and its overlapping blocks, which step back by
@@ -445,7 +445,12 @@ impl GwfChannel {
     fn whole_vector(&self, k: usize) -> Result<Option<Arc<Vec<u8>>>> {
         let v = &self.pieces[k].1.vect;
         let elems_bytes = v.n_data.saturating_mul(v.elem.size() as u64);
-        if elems_bytes > self.whole_limit || v.struct_len > 2 * self.whole_limit {
+        // Zero suppression reads faster through the stream, which decodes
+        // straight to f64 (f32 noise: 284-317 against 232-270 MB/s whole).
+        if elems_bytes > self.whole_limit
+            || v.struct_len > 2 * self.whole_limit
+            || v.compression == Compression::ZeroSuppress
+        {
             return Ok(None);
         }
         let (mut bytes, mut elems) = {
