@@ -168,23 +168,45 @@ pub trait SampleSource: Sync {
     /// Stream the samples once: the time covered by finite samples (NaN and
     /// ±Inf are dropouts; sample i covers `[t0 + i/fs, t0 + (i+1)/fs)`) and
     /// an xxh3-128 checksum of the samples (as little-endian f64).
+    ///
+    /// Chunks of [`crate::io::npy::STRETCH_CHUNK_SAMPLES`] are read two at
+    /// a time, in parallel when the thread pool has a second thread (a
+    /// compressed frame file then decodes on two cores; memory: two
+    /// chunks), and checked and hashed in order.
     fn survey(&self) -> Result<(SegmentList, String)> {
-        let (fs, t0) = (self.rate_hz(), self.start_gps());
+        let (fs, t0, len) = (self.rate_hz(), self.start_gps(), self.len());
         let mut hasher = xxhash_rust::xxh3::Xxh3::new();
         let mut bytes: Vec<u8> = Vec::new();
-        let runs = crate::io::npy::finite_runs(
-            self.len(),
-            crate::io::npy::STRETCH_CHUNK_SAMPLES,
-            |first, buf| self.read(first, buf),
-            |chunk| {
-                bytes.resize(8 * chunk.len(), 0);
-                for (o, x) in bytes.chunks_exact_mut(8).zip(chunk) {
+        let mut runs = crate::io::npy::FiniteRuns::default();
+        let chunk = crate::io::npy::STRETCH_CHUNK_SAMPLES.min(len).max(1);
+        let (mut buf_a, mut buf_b) = (vec![0.0; chunk], Vec::new());
+        let mut first = 0;
+        while first < len {
+            let na = chunk.min(len - first);
+            let nb = chunk.min(len - first - na);
+            buf_b.resize(nb, 0.0);
+            let (a, b) = (&mut buf_a[..na], &mut buf_b[..nb]);
+            let (ra, rb) = rayon::join(
+                || self.read(first, a),
+                || match b.len() {
+                    0 => Ok(()),
+                    _ => self.read(first + na, b),
+                },
+            );
+            ra?;
+            rb?;
+            for (at, c) in [(first, &*a), (first + na, &*b)] {
+                bytes.resize(8 * c.len(), 0);
+                for (o, x) in bytes.chunks_exact_mut(8).zip(c) {
                     o.copy_from_slice(&x.to_le_bytes());
                 }
                 hasher.update(&bytes);
-            },
-        )?;
+                runs.feed(at, c);
+            }
+            first += na + nb;
+        }
         let segs = runs
+            .finish(len)
             .iter()
             .map(|&(a, b)| Segment::new(t0 + a as f64 / fs, t0 + b as f64 / fs))
             .collect();

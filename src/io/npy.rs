@@ -553,38 +553,58 @@ pub fn finite_runs(
     mut read: impl FnMut(usize, &mut [f64]) -> anyhow::Result<()>,
     mut each: impl FnMut(&[f64]),
 ) -> anyhow::Result<Vec<(usize, usize)>> {
-    let mut runs = Vec::new();
-    let mut run_start: Option<usize> = None;
+    let mut runs = FiniteRuns::default();
     let mut buf = vec![0.0f64; chunk.max(1).min(len)];
     let mut first = 0;
     while first < len {
         let n = buf.len().min(len - first);
         read(first, &mut buf[..n])?;
         each(&buf[..n]);
+        runs.feed(first, &buf[..n]);
+        first += n;
+    }
+    Ok(runs.finish(len))
+}
+
+/// The runs of finite samples of a series fed chunk by chunk, in order
+/// (see [`finite_runs`]).
+#[derive(Debug, Default)]
+pub struct FiniteRuns {
+    runs: Vec<(usize, usize)>,
+    run_start: Option<usize>,
+}
+
+impl FiniteRuns {
+    /// The samples from index `first` (the next after the last chunk fed).
+    pub fn feed(&mut self, first: usize, chunk: &[f64]) {
         // Most data are finite: a sub-chunk that continues an open run and
         // is all finite changes nothing, and that test vectorises.
-        for (c, sub) in buf[..n].chunks(64).enumerate() {
-            if run_start.is_some() && sub.iter().fold(true, |a, x| a & x.is_finite()) {
+        for (c, sub) in chunk.chunks(64).enumerate() {
+            if self.run_start.is_some() && sub.iter().fold(true, |a, x| a & x.is_finite()) {
                 continue;
             }
             let base = first + 64 * c;
             for (k, x) in sub.iter().enumerate() {
-                match (x.is_finite(), run_start) {
-                    (true, None) => run_start = Some(base + k),
+                match (x.is_finite(), self.run_start) {
+                    (true, None) => self.run_start = Some(base + k),
                     (false, Some(s)) => {
-                        runs.push((s, base + k));
-                        run_start = None;
+                        self.runs.push((s, base + k));
+                        self.run_start = None;
                     }
                     _ => {}
                 }
             }
         }
-        first += n;
     }
-    if let Some(s) = run_start {
-        runs.push((s, len));
+
+    /// The runs as index ranges `[start, end)`, for a series of `len`
+    /// samples (all fed).
+    pub fn finish(mut self, len: usize) -> Vec<(usize, usize)> {
+        if let Some(s) = self.run_start {
+            self.runs.push((s, len));
+        }
+        self.runs
     }
-    Ok(runs)
 }
 
 /// The file size must equal header + samples exactly.

@@ -3,15 +3,21 @@
 //!
 //! Memory: an uncompressed vector is read straight from the file (only the
 //! bytes asked for). A compressed vector has no random access (a zlib
-//! stream or a zero-suppressed bit stream must be decoded from its start),
-//! so the channel keeps a small pool of decoders, each with a window of the
+//! stream or a zero-suppressed bit stream must be decoded from its start).
+//! A gzip or differences + gzip one of at most [`WHOLE_BYTES`]
+//! decompressed (a frame of a few seconds to minutes) is decoded whole: its structure read in one piece, checked,
+//! and decoded in one call (libdeflate for gzip) into its stored elements
+//! (2 bytes a sample for int16), which the channel keeps in its pool, shared
+//! by every reader, and converts to f64 as read. Larger vectors, and
+//! zero-suppressed ones, are decoded as a stream: the channel keeps a small pool of decoders, each with a window of the
 //! last samples it produced (at most [`WINDOW_SAMPLES`] f64): a read that
 //! starts inside a window or after it continues that decoder, so reading in
 //! order — the scan's survey, and its overlapping blocks, which step back by
 //! the block padding — decodes each vector about once. The pool holds at
-//! most [`POOL_BYTES`] of windows (least recently used dropped first), so
-//! memory is bounded by these constants and the caller's buffers, not by the
-//! file or vector size. A read that starts before every window restarts a
+//! most [`POOL_BYTES`] of windows and whole vectors (least recently used
+//! dropped first; a few spare buffers are kept for reuse), so memory is
+//! bounded by these constants and the caller's buffers, not by the file or
+//! vector size. A read that starts before every window restarts a
 //! decoder from the vector's start (correct, slower).
 //!
 //! Checksums: the first read of a vector verifies its structure checksum
@@ -19,7 +25,7 @@
 //! returned.
 use super::file::{ChannelKind, Piece};
 use super::format::{Compression, ElemType};
-use super::vect::{read_raw, Decoder, Source};
+use super::vect::{decode_whole, read_raw, samples_from_le, Decoder, Source, VectMeta};
 use crate::scan::SampleSource;
 use anyhow::{anyhow, bail, Result};
 use std::os::unix::fs::FileExt;
@@ -30,7 +36,7 @@ use std::sync::{Arc, Mutex};
 /// Largest decoded window a decoder keeps \[samples\] (8 MB of f64).
 pub const WINDOW_SAMPLES: usize = 1 << 20;
 
-/// Most window memory one channel keeps across its decoders \[bytes\].
+/// Most memory one channel keeps in decoder windows and whole vectors \[bytes\].
 pub const POOL_BYTES: usize = 48 << 20;
 
 /// Tolerance for frames on one sample grid \[samples\].
@@ -50,6 +56,8 @@ pub struct GwfChannel {
     pieces: Vec<(usize, Piece)>,
     verified: Vec<AtomicBool>,
     pool: Mutex<Pool>,
+    /// [`WHOLE_BYTES`] (0 in tests that compare with the streaming decoder).
+    whole_limit: u64,
 }
 
 impl std::fmt::Debug for GwfChannel {
@@ -67,8 +75,74 @@ impl std::fmt::Debug for GwfChannel {
 #[derive(Default)]
 struct Pool {
     cursors: Vec<Cursor>,
+    /// Vectors decoded whole, shared by every reader (see [`WHOLE_BYTES`]).
+    whole: Vec<Whole>,
     bytes: usize,
     tick: u64,
+    /// Buffers of evicted whole vectors and of compressed input, kept for
+    /// the next (at most [`SPARES`]), so decoding frame after frame does not
+    /// allocate and fault in fresh memory every time.
+    spare: Vec<Vec<u8>>,
+}
+
+/// Spare buffers a channel keeps.
+const SPARES: usize = 3;
+
+/// Largest vector decoded whole \[bytes of its elements, decompressed\]:
+/// its FrVect structure is read in one piece (checksum verified on those
+/// bytes), then decoded in one call into a buffer of the declared size,
+/// kept as the stored elements (2 bytes a sample for int16, 4 for float32)
+/// and converted to f64 as read. Larger vectors (and structures of more
+/// than twice this) are decoded as a stream with a window.
+pub const WHOLE_BYTES: u64 = 8 << 20;
+
+/// A vector decoded whole: its elements, little-endian, differences summed
+/// back, not calibrated.
+struct Whole {
+    piece: usize,
+    elems: Arc<Vec<u8>>,
+    used: u64,
+}
+
+impl Pool {
+    /// Return a buffer for reuse.
+    fn keep_bytes(&mut self, b: Vec<u8>) {
+        if self.spare.len() < SPARES && b.capacity() > 0 {
+            self.spare.push(b);
+        }
+    }
+
+    fn take_bytes(&mut self) -> Vec<u8> {
+        self.spare.pop().unwrap_or_default()
+    }
+
+    /// Drop the least recently used cursors and whole vectors until the
+    /// pool holds at most [`POOL_BYTES`] (keeping at least one).
+    fn evict(&mut self) {
+        while self.bytes > POOL_BYTES && self.cursors.len() + self.whole.len() > 1 {
+            let c = self.cursors.iter().enumerate().min_by_key(|(_, c)| c.used);
+            let w = self.whole.iter().enumerate().min_by_key(|(_, w)| w.used);
+            match (c, w) {
+                (Some((i, c)), Some((_, w))) if c.used < w.used => {
+                    let old = self.cursors.swap_remove(i);
+                    self.bytes -= old.bytes();
+                }
+                (Some((i, _)), None) => {
+                    let old = self.cursors.swap_remove(i);
+                    self.bytes -= old.bytes();
+                }
+                (_, Some((j, _))) => {
+                    let old = self.whole.swap_remove(j);
+                    self.bytes -= old.elems.capacity();
+                    // Reused when no reader holds it any more.
+                    if let Ok(v) = Arc::try_unwrap(old.elems) {
+                        self.keep_bytes(v);
+                    }
+                }
+                (None, None) => break,
+            }
+        }
+    }
 }
 
 /// A decoder of one vector with a window of its last samples.
@@ -188,6 +262,7 @@ impl GwfChannel {
             pieces: placed,
             verified,
             pool: Mutex::new(Pool::default()),
+            whole_limit: WHOLE_BYTES,
         })
     }
 
@@ -262,11 +337,12 @@ impl GwfChannel {
                     self.len
                 )
             })?;
-        out.fill(f64::NAN);
         // First piece that ends after `start`.
         let mut k = self
             .pieces
             .partition_point(|(i, p)| i + p.vect.n_data as usize <= start);
+        // Samples before `done` are written (NaN where no valid frame).
+        let mut done = start;
         while k < self.pieces.len() {
             let (first, p) = &self.pieces[k];
             if *first >= end {
@@ -274,18 +350,23 @@ impl GwfChannel {
             }
             let a = start.max(*first);
             let b = end.min(first + p.vect.n_data as usize);
+            out[done - start..a - start].fill(f64::NAN);
+            let o = &mut out[a - start..b - start];
             if p.valid {
-                self.read_piece(k, (a - first) as u64, &mut out[a - start..b - start])
-                    .map_err(|e| {
-                        anyhow!(
-                            "{e} (channel {}, frame {})",
-                            crate::io::shown(&self.name),
-                            p.frame
-                        )
-                    })?;
+                self.read_piece(k, (a - first) as u64, o).map_err(|e| {
+                    anyhow!(
+                        "{e} (channel {}, frame {})",
+                        crate::io::shown(&self.name),
+                        p.frame
+                    )
+                })?;
+            } else {
+                o.fill(f64::NAN);
             }
+            done = b;
             k += 1;
         }
+        out[done - start..].fill(f64::NAN);
         Ok(())
     }
 
@@ -321,15 +402,7 @@ impl GwfChannel {
             let end = v.struct_pos + v.struct_len - 4;
             while pos < end {
                 let n = ((end - pos) as usize).min(buf.len());
-                self.src
-                    .file
-                    .read_exact_at(&mut buf[..n], pos)
-                    .map_err(|e| {
-                        anyhow!(
-                            "{}: reading FrVect at byte {pos}: {e}",
-                            self.src.path.display()
-                        )
-                    })?;
+                self.read_at(&mut buf[..n], pos)?;
                 c.update(&buf[..n]);
                 pos += n as u64;
             }
@@ -337,27 +410,115 @@ impl GwfChannel {
             self.src.file.read_exact_at(&mut stored, end).map_err(|e| {
                 anyhow!("{}: reading FrVect checksum: {e}", self.src.path.display())
             })?;
-            let stored = u32::from_le_bytes(stored);
-            if stored != c.value() {
-                bail!(
-                    "{}: FrVect at byte {}: field chkSum: checksum mismatch (stored {stored:#010x}, computed {:#010x}): the file is corrupt",
-                    self.src.path.display(),
-                    v.struct_pos,
-                    c.value()
-                );
-            }
+            self.check_crc(v, u32::from_le_bytes(stored), c.value())?;
         }
         self.verified[k].store(true, Ordering::Release);
         Ok(())
     }
 
+    fn read_at(&self, buf: &mut [u8], pos: u64) -> Result<()> {
+        self.src.file.read_exact_at(buf, pos).map_err(|e| {
+            anyhow!(
+                "{}: reading FrVect at byte {pos}: {e}",
+                self.src.path.display()
+            )
+        })
+    }
+
+    fn check_crc(&self, v: &VectMeta, stored: u32, computed: u32) -> Result<()> {
+        if stored != computed {
+            bail!(
+                "{}: FrVect at byte {}: field chkSum: checksum mismatch (stored {stored:#010x}, computed {computed:#010x}): the file is corrupt",
+                self.src.path.display(),
+                v.struct_pos,
+            );
+        }
+        Ok(())
+    }
+
+    /// Piece `k`'s vector decoded whole, from the pool or decoded now:
+    /// `None` when it is too large for that (see [`WHOLE_BYTES`]) or the
+    /// one-call decoder refuses its data (then the streaming decoder reads
+    /// it, and reports any error exactly as it always did). The structure
+    /// is read once, its checksum verified on those bytes (first use only),
+    /// and its data decoded from them.
+    fn whole_vector(&self, k: usize) -> Result<Option<Arc<Vec<u8>>>> {
+        let v = &self.pieces[k].1.vect;
+        let elems_bytes = v.n_data.saturating_mul(v.elem.size() as u64);
+        // Zero suppression reads faster through the stream, which decodes
+        // straight to f64 (f32 noise: 284-317 against 232-270 MB/s whole).
+        if elems_bytes > self.whole_limit
+            || v.struct_len > 2 * self.whole_limit
+            || v.compression == Compression::ZeroSuppress
+        {
+            return Ok(None);
+        }
+        let (mut bytes, mut elems) = {
+            let mut pool = self
+                .pool
+                .lock()
+                .map_err(|_| anyhow!("cursor pool poisoned"))?;
+            pool.tick += 1;
+            let tick = pool.tick;
+            if let Some(w) = pool.whole.iter_mut().find(|w| w.piece == k) {
+                w.used = tick;
+                return Ok(Some(w.elems.clone()));
+            }
+            (pool.take_bytes(), pool.take_bytes())
+        };
+        let len = v.struct_len as usize;
+        bytes.clear();
+        bytes.resize(len, 0);
+        self.read_at(&mut bytes, v.struct_pos)?;
+        if v.chk_type == 1 && !self.verified[k].load(Ordering::Acquire) {
+            let stored = u32::from_le_bytes(bytes[len - 4..].try_into().expect("4 bytes"));
+            self.check_crc(v, stored, super::crc::cksum(&bytes[..len - 4]))?;
+        }
+        self.verified[k].store(true, Ordering::Release);
+        let at = (v.data_pos - v.struct_pos) as usize;
+        let (bytes, ok) = decode_whole(&self.src, v, bytes, at, &mut elems);
+        let mut pool = self
+            .pool
+            .lock()
+            .map_err(|_| anyhow!("cursor pool poisoned"))?;
+        pool.keep_bytes(bytes);
+        if !ok {
+            pool.keep_bytes(elems);
+            return Ok(None);
+        }
+        // Another reader may have decoded it meanwhile: keep one.
+        if let Some(w) = pool.whole.iter().find(|w| w.piece == k) {
+            let w = w.elems.clone();
+            pool.keep_bytes(elems);
+            return Ok(Some(w));
+        }
+        let elems = Arc::new(elems);
+        pool.tick += 1;
+        let used = pool.tick;
+        pool.bytes += elems.capacity();
+        pool.whole.push(Whole {
+            piece: k,
+            elems: elems.clone(),
+            used,
+        });
+        pool.evict();
+        Ok(Some(elems))
+    }
+
     /// Samples `[a, a + out.len())` of piece `k`'s vector.
     fn read_piece(&self, k: usize, a: u64, out: &mut [f64]) -> Result<()> {
-        self.verify(k)?;
         let p = &self.pieces[k].1;
         if p.vect.compression == Compression::Raw {
+            self.verify(k)?;
             return read_raw(&self.src, &p.vect, p.scale, a, out);
         }
+        if let Some(w) = self.whole_vector(k)? {
+            let size = p.vect.elem.size();
+            let a = a as usize * size;
+            samples_from_le(p.vect.elem, p.scale, &w[a..a + out.len() * size], out);
+            return Ok(());
+        }
+        self.verify(k)?;
         let mut cur = self.take_cursor(k, a)?;
         // Pieces of at most half a window: after decoding up to a piece's
         // end the window still holds the whole piece.
@@ -429,16 +590,7 @@ impl GwfChannel {
         c.used = pool.tick;
         pool.bytes += c.bytes();
         pool.cursors.push(c);
-        while pool.bytes > POOL_BYTES && pool.cursors.len() > 1 {
-            let (i, _) = pool
-                .cursors
-                .iter()
-                .enumerate()
-                .min_by_key(|(_, c)| c.used)
-                .expect("non-empty pool");
-            let old = pool.cursors.swap_remove(i);
-            pool.bytes -= old.bytes();
-        }
+        pool.evict();
     }
 }
 
@@ -461,5 +613,45 @@ impl SampleSource for GwfChannel {
             self.src.path.display(),
             crate::io::shown(&self.name)
         )
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::GwfFile;
+    use std::path::PathBuf;
+
+    /// Every channel of the gwframe codec fixtures (every element type and
+    /// compression, `tests/data/gwf/README.md`) reads bit for bit the same
+    /// through the whole-vector decoders as through the streaming ones,
+    /// whole and in ranges that cross frames, from two threads at once.
+    #[test]
+    fn whole_vector_and_streaming_decoders_agree() {
+        let dir = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/gwf");
+        let mut compared = 0;
+        for codec in ["raw", "gzip", "diffgzip", "zs2", "zs4", "zs8", "zsgz"] {
+            let f = GwfFile::open(&dir.join(format!("codecs_{codec}.gwf"))).unwrap();
+            let names: Vec<String> = f.channel_names().map(|(n, _)| n.to_string()).collect();
+            for name in names {
+                let whole = f.channel(&name).unwrap();
+                let mut stream = f.channel(&name).unwrap();
+                stream.whole_limit = 0;
+                let n = whole.len;
+                let (mut a, mut b) = (vec![0.0; n], vec![0.0; n]);
+                rayon::join(
+                    || whole.read_samples(0, &mut a).unwrap(),
+                    || stream.read_samples(0, &mut b).unwrap(),
+                );
+                let bits = |x: &[f64]| x.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+                assert_eq!(bits(&a), bits(&b), "{codec} {name}");
+                for (lo, hi) in [(n / 3 + 1, n - 2), (1, n / 2 + 3), (0, n)] {
+                    let mut part = vec![0.0; hi - lo];
+                    whole.read_samples(lo, &mut part).unwrap();
+                    assert_eq!(bits(&part), bits(&a[lo..hi]), "{codec} {name} [{lo}, {hi})");
+                }
+                compared += 1;
+            }
+        }
+        assert!(compared > 100, "{compared} channels compared");
     }
 }

@@ -4,13 +4,13 @@
 //! and whole files carry it (frame-format specification version 8, checksum
 //! type 1); the test below checks it against coreutils' `cksum`.
 //!
-//! Slicing-by-8 tables: about 2–3 GB/s on one core, so verifying a vector
-//! costs little next to decompressing it.
+//! Slicing-by-16 tables (16 KiB): about 3–4 GB/s on one core, so verifying
+//! a vector costs little next to decompressing it.
 
 const POLY: u32 = 0x04C1_1DB7;
 
-const fn tables() -> [[u32; 256]; 8] {
-    let mut t = [[0u32; 256]; 8];
+const fn tables() -> [[u32; 256]; 16] {
+    let mut t = [[0u32; 256]; 16];
     let mut i = 0;
     while i < 256 {
         let mut c = (i as u32) << 24;
@@ -27,7 +27,7 @@ const fn tables() -> [[u32; 256]; 8] {
         i += 1;
     }
     let mut s = 1;
-    while s < 8 {
+    while s < 16 {
         let mut i = 0;
         while i < 256 {
             let prev = t[s - 1][i];
@@ -39,7 +39,7 @@ const fn tables() -> [[u32; 256]; 8] {
     t
 }
 
-static T: [[u32; 256]; 8] = tables();
+static T: [[u32; 256]; 16] = tables();
 
 /// Running `cksum` CRC over a byte stream.
 #[derive(Debug, Clone, Copy, Default)]
@@ -58,19 +58,29 @@ impl Cksum {
     pub fn update(&mut self, mut data: &[u8]) {
         self.len += data.len() as u64;
         let mut c = self.crc;
-        while data.len() >= 8 {
-            let a = c ^ u32::from_be_bytes([data[0], data[1], data[2], data[3]]);
-            let b = u32::from_be_bytes([data[4], data[5], data[6], data[7]]);
-            c = T[7][(a >> 24) as usize]
-                ^ T[6][((a >> 16) & 0xff) as usize]
-                ^ T[5][((a >> 8) & 0xff) as usize]
-                ^ T[4][(a & 0xff) as usize]
-                ^ T[3][(b >> 24) as usize]
-                ^ T[2][((b >> 16) & 0xff) as usize]
-                ^ T[1][((b >> 8) & 0xff) as usize]
-                ^ T[0][(b & 0xff) as usize];
-            data = &data[8..];
+        let mut blocks = data.chunks_exact(16);
+        for d in &mut blocks {
+            let w = |i: usize| u32::from_be_bytes([d[i], d[i + 1], d[i + 2], d[i + 3]]);
+            let (a, b, e, f) = (c ^ w(0), w(4), w(8), w(12));
+            let byte = |x: u32, k: u32| ((x >> k) & 0xff) as usize;
+            c = T[15][byte(a, 24)]
+                ^ T[14][byte(a, 16)]
+                ^ T[13][byte(a, 8)]
+                ^ T[12][byte(a, 0)]
+                ^ T[11][byte(b, 24)]
+                ^ T[10][byte(b, 16)]
+                ^ T[9][byte(b, 8)]
+                ^ T[8][byte(b, 0)]
+                ^ T[7][byte(e, 24)]
+                ^ T[6][byte(e, 16)]
+                ^ T[5][byte(e, 8)]
+                ^ T[4][byte(e, 0)]
+                ^ T[3][byte(f, 24)]
+                ^ T[2][byte(f, 16)]
+                ^ T[1][byte(f, 8)]
+                ^ T[0][byte(f, 0)];
         }
+        data = blocks.remainder();
         for &x in data {
             c = (c << 8) ^ T[0][((c >> 24) ^ x as u32) as usize];
         }

@@ -1,6 +1,9 @@
 //! FrVect: where a vector's data lie, and the decoders that turn its
-//! (compressed) bytes into f64 samples, in order, without holding the whole
-//! vector: input is read in chunks of at most [`INPUT_CHUNK`] bytes.
+//! (compressed) bytes into f64 samples: [`decode_whole`] for a vector whose
+//! bytes are in memory (one call, libdeflate for gzip), and [`Decoder`], in
+//! order, without holding the whole vector (input read in chunks of at most
+//! [`INPUT_CHUNK`] bytes), for large vectors and as the reference when the
+//! first declines.
 //!
 //! Decompression, as written by the reference library (checked against
 //! every gwframe fixture in `tests/data/gwf/`):
@@ -108,6 +111,19 @@ struct Input {
 }
 
 impl Input {
+    /// Input already in memory: the data are `bytes[at..at + n_bytes]`.
+    fn in_memory(src: Arc<Source>, m: &VectMeta, bytes: Vec<u8>, at: usize) -> Input {
+        let end = m.data_pos + m.n_bytes;
+        Input {
+            src,
+            next: end,
+            end,
+            hi: at + m.n_bytes as usize,
+            lo: at,
+            buf: bytes,
+        }
+    }
+
     fn new(src: Arc<Source>, m: &VectMeta) -> Input {
         Input {
             src,
@@ -279,6 +295,11 @@ impl Decoder {
     /// # Errors
     /// Called on a raw vector (use [`read_raw`]).
     pub fn new(src: Arc<Source>, m: &VectMeta, scale: Scale) -> Result<Decoder> {
+        let input = Input::new(src, m);
+        Decoder::with_input(input, m, scale)
+    }
+
+    fn with_input(input: Input, m: &VectMeta, scale: Scale) -> Result<Decoder> {
         let kind = match m.compression {
             Compression::Raw => bail!("internal: raw vectors are read directly"),
             Compression::Gzip | Compression::DiffGzip => Kind::Inflate {
@@ -315,13 +336,18 @@ impl Decoder {
             }
         };
         Ok(Decoder {
-            input: Input::new(src, m),
+            input,
             elem: m.elem,
             scale,
             kind,
             produced: 0,
             n_data: m.n_data,
         })
+    }
+
+    /// The decoder's input buffer (for reuse).
+    fn into_bytes(self) -> Vec<u8> {
+        self.input.buf
     }
 
     /// Memory held by the decoder \[bytes\] (input buffer and state).
@@ -407,6 +433,33 @@ impl Decoder {
     }
 
     fn unsuppress(&mut self, out: &mut [f64]) -> Result<()> {
+        let elem = self.elem;
+        self.zero_blocks(out, |st, input, o| match elem {
+            ElemType::I16 => run(st, input, o, |a| a as u16 as i16 as f64),
+            ElemType::U16 => run(st, input, o, |a| a as u16 as f64),
+            ElemType::I32 => run(st, input, o, |a| a as u32 as i32 as f64),
+            ElemType::U32 => run(st, input, o, |a| a as u32 as f64),
+            ElemType::F32 => run(st, input, o, |a| f32::from_bits(a as u32) as f64),
+            ElemType::I64 => run(st, input, o, |a| a as i64 as f64),
+            ElemType::U64 => run(st, input, o, |a| a as f64),
+            ElemType::F64 => run(st, input, o, f64::from_bits),
+            _ => unreachable!("zero suppression only for 2-, 4- and 8-byte elements"),
+        })
+    }
+
+    /// Zero-suppressed decoding of the next `out.len()` elements as their
+    /// bit patterns (the element's word, zero-extended), uncalibrated.
+    fn unsuppress_words(&mut self, out: &mut [u64]) -> Result<()> {
+        self.zero_blocks(out, |st, input, o| run(st, input, o, |a| a))
+    }
+
+    /// The block structure of zero suppression: block headers read here,
+    /// each block's values by `block_run`.
+    fn zero_blocks<T>(
+        &mut self,
+        out: &mut [T],
+        mut block_run: impl FnMut(&mut ZeroState, &mut Input, &mut [T]) -> Result<()>,
+    ) -> Result<()> {
         let Kind::Zero(st) = &mut self.kind else {
             unreachable!()
         };
@@ -421,7 +474,6 @@ impl Decoder {
             }
             st.started = true;
         }
-        let elem = self.elem;
         let mut done = 0;
         while done < out.len() {
             if st.left_in_block == 0 {
@@ -443,18 +495,7 @@ impl Decoder {
                 st.left_in_block = st.block;
             }
             let m = (st.left_in_block as usize).min(out.len() - done);
-            let o = &mut out[done..done + m];
-            match elem {
-                ElemType::I16 => run(st, input, o, |a| a as u16 as i16 as f64)?,
-                ElemType::U16 => run(st, input, o, |a| a as u16 as f64)?,
-                ElemType::I32 => run(st, input, o, |a| a as u32 as i32 as f64)?,
-                ElemType::U32 => run(st, input, o, |a| a as u32 as f64)?,
-                ElemType::F32 => run(st, input, o, |a| f32::from_bits(a as u32) as f64)?,
-                ElemType::I64 => run(st, input, o, |a| a as i64 as f64)?,
-                ElemType::U64 => run(st, input, o, |a| a as f64)?,
-                ElemType::F64 => run(st, input, o, f64::from_bits)?,
-                _ => unreachable!("zero suppression only for 2-, 4- and 8-byte elements"),
-            }
+            block_run(st, input, &mut out[done..done + m])?;
             st.left_in_block -= m as u32;
             done += m;
         }
@@ -470,13 +511,109 @@ impl Decoder {
     }
 }
 
+/// Decode a whole compressed vector at once into `out`: its `n_data`
+/// elements as little-endian bytes of the stored type (differences already
+/// summed back), uncalibrated, from its compressed data `bytes[at..at +
+/// n_bytes]` already in memory. gzip and differences + gzip go through
+/// libdeflate (one call into a buffer of the known decompressed size), zero
+/// suppression through [`Decoder`] on the bytes in memory. [`convert_le`]
+/// and the calibration then give the samples.
+///
+/// Returns `bytes` back, and whether it decoded: `false` when the data are
+/// not exactly `n_data` elements of valid compressed data (corrupt, or a
+/// stream longer than declared). The caller then reads the vector with the
+/// streaming [`Decoder`], whose samples and errors stay the reference (it
+/// returns the samples before a corruption, and ignores data past the
+/// declared length, as it always did).
+pub fn decode_whole(
+    src: &Arc<Source>,
+    m: &VectMeta,
+    bytes: Vec<u8>,
+    at: usize,
+    out: &mut Vec<u8>,
+) -> (Vec<u8>, bool) {
+    let size = m.elem.size();
+    let want = m.n_data as usize * size;
+    out.clear();
+    out.resize(want, 0);
+    match m.compression {
+        Compression::Gzip | Compression::DiffGzip => {
+            let Some(data) = bytes.get(at..at + m.n_bytes as usize) else {
+                return (bytes, false);
+            };
+            let mut z = libdeflater::Decompressor::new();
+            if z.zlib_decompress(data, out) != Ok(want) {
+                return (bytes, false);
+            }
+            if m.compression == Compression::DiffGzip {
+                integrate_in_place(m.elem, out);
+            }
+            (bytes, true)
+        }
+        Compression::ZeroSuppress => {
+            if at as u64 + m.n_bytes > bytes.len() as u64 {
+                return (bytes, false);
+            }
+            let mut d = match Decoder::with_input(
+                Input::in_memory(src.clone(), m, bytes, at),
+                m,
+                Scale::IDENTITY,
+            ) {
+                Ok(d) => d,
+                Err(_) => return (Vec::new(), false),
+            };
+            let mut words = [0u64; 2048];
+            for chunk in out.chunks_mut(words.len() * size) {
+                let w = &mut words[..chunk.len() / size];
+                if d.unsuppress_words(w).is_err() {
+                    return (d.into_bytes(), false);
+                }
+                for (c, v) in chunk.chunks_exact_mut(size).zip(w.iter()) {
+                    c.copy_from_slice(&v.to_le_bytes()[..size]);
+                }
+            }
+            (d.into_bytes(), true)
+        }
+        Compression::Raw => (bytes, false),
+    }
+}
+
+/// Sum little-endian integer differences back in place (wrap-around).
+fn integrate_in_place(elem: ElemType, bytes: &mut [u8]) {
+    macro_rules! integ {
+        ($t:ty, $n:expr) => {{
+            let mut a: $t = 0;
+            for b in bytes.chunks_exact_mut($n) {
+                a = a.wrapping_add(<$t>::from_le_bytes(
+                    (&*b).try_into().expect("element bytes"),
+                ));
+                b.copy_from_slice(&a.to_le_bytes());
+            }
+        }};
+    }
+    match elem {
+        ElemType::I8 | ElemType::U8 => integ!(u8, 1),
+        ElemType::I16 | ElemType::U16 => integ!(u16, 2),
+        ElemType::I32 | ElemType::U32 => integ!(u32, 4),
+        ElemType::I64 | ElemType::U64 => integ!(u64, 8),
+        _ => unreachable!("differences only for integer vectors"),
+    }
+}
+
+/// Samples from elements decoded by [`decode_whole`]: `bytes` holds
+/// `out.len()` little-endian elements; calibrated.
+pub fn samples_from_le(elem: ElemType, scale: Scale, bytes: &[u8], out: &mut [f64]) {
+    convert_le(elem, bytes, out);
+    scale.apply(out);
+}
+
 /// Decode `out.len()` values of the current block.
 #[inline]
-fn run(
+fn run<T: Copy>(
     st: &mut ZeroState,
     input: &mut Input,
-    out: &mut [f64],
-    conv: impl Fn(u64) -> f64,
+    out: &mut [T],
+    conv: impl Fn(u64) -> T,
 ) -> Result<()> {
     let (nbits, offset, mask) = (st.nbits, st.offset, st.mask);
     let mut acc = st.acc;
@@ -550,4 +687,125 @@ fn refill(st: &mut ZeroState, input: &mut Input) -> Result<()> {
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Write;
+
+    fn source() -> Arc<Source> {
+        let path = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("Cargo.toml");
+        let file = File::open(&path).unwrap();
+        let len = file.metadata().unwrap().len();
+        Arc::new(Source { file, path, len })
+    }
+
+    fn meta(elem: ElemType, compression: Compression, n_data: u64, n_bytes: u64) -> VectMeta {
+        VectMeta {
+            struct_pos: 0,
+            struct_len: n_bytes + 8,
+            chk_type: 0,
+            data_pos: 4,
+            n_bytes,
+            n_data,
+            elem,
+            compress: 0,
+            compression,
+            dx: 1.0,
+            start_x: 0.0,
+            unit_y: String::new(),
+        }
+    }
+
+    fn zlib(bytes: &[u8]) -> Vec<u8> {
+        let mut e = flate2::write::ZlibEncoder::new(Vec::new(), flate2::Compression::new(6));
+        e.write_all(bytes).unwrap();
+        e.finish().unwrap()
+    }
+
+    /// Decoded whole, and by the streaming decoder (the reference): the
+    /// stored elements, and whether the whole-vector decoder took it.
+    fn both(m: &VectMeta, data: &[u8]) -> (bool, Vec<u8>, Result<Vec<f64>>) {
+        let mut bytes = vec![0u8; 4];
+        bytes.extend_from_slice(data);
+        bytes.extend_from_slice(&[0; 4]);
+        let mut elems = Vec::new();
+        let (_, ok) = decode_whole(&source(), m, bytes, 4, &mut elems);
+        let mut input = vec![0u8; 4];
+        input.extend_from_slice(data);
+        let mut dec =
+            Decoder::with_input(Input::in_memory(source(), m, input, 4), m, Scale::IDENTITY)
+                .unwrap();
+        let mut out = vec![0.0; m.n_data as usize];
+        let streamed = dec.decode(&mut out).map(|_| out);
+        (ok, elems, streamed)
+    }
+
+    #[test]
+    fn whole_decoding_equals_streaming_or_declines() {
+        // Differences that wrap around int16.
+        let x: Vec<i16> = (0..5000)
+            .map(|i: i32| (i.wrapping_mul(7919) % 65536 - 32768) as i16)
+            .collect();
+        let le: Vec<u8> = x.iter().flat_map(|v| v.to_le_bytes()).collect();
+        let n = x.len() as u64;
+        let want: Vec<f64> = x.iter().map(|&v| v as f64).collect();
+        let as_f64 = |e: &[u8]| {
+            let mut o = vec![0.0; e.len() / 2];
+            convert_le(ElemType::I16, e, &mut o);
+            o
+        };
+        // gzip: decoded whole, equal to the stream's.
+        let z = zlib(&le);
+        let m = meta(ElemType::I16, Compression::Gzip, n, z.len() as u64);
+        let (ok, elems, streamed) = both(&m, &z);
+        assert!(ok);
+        assert_eq!(as_f64(&elems), want);
+        assert_eq!(streamed.unwrap(), want);
+        // Differences + gzip (wrap-around differences summed back).
+        let mut prev = 0i16;
+        let d: Vec<u8> = x
+            .iter()
+            .flat_map(|&v| {
+                let dv = v.wrapping_sub(prev);
+                prev = v;
+                dv.to_le_bytes()
+            })
+            .collect();
+        let z = zlib(&d);
+        let m = meta(ElemType::I16, Compression::DiffGzip, n, z.len() as u64);
+        let (ok, elems, streamed) = both(&m, &z);
+        assert!(ok);
+        assert_eq!(as_f64(&elems), want);
+        assert_eq!(streamed.unwrap(), want);
+        // A stream longer than declared: declined (the streaming decoder
+        // returns the declared elements, as it always did).
+        let z = zlib(&le);
+        let m = meta(ElemType::I16, Compression::Gzip, n - 10, z.len() as u64);
+        let (ok, _, streamed) = both(&m, &z);
+        assert!(!ok);
+        assert_eq!(streamed.unwrap(), want[..want.len() - 10]);
+        // Cut short or corrupt: declined; the streaming decoder's error stays.
+        let m = meta(ElemType::I16, Compression::Gzip, n, z.len() as u64 / 2);
+        let (ok, _, streamed) = both(&m, &z[..z.len() / 2]);
+        assert!(!ok);
+        assert!(streamed.is_err());
+        let mut bad = z.clone();
+        bad[z.len() / 3] ^= 0x55;
+        let m = meta(ElemType::I16, Compression::Gzip, n, bad.len() as u64);
+        assert!(!both(&m, &bad).0);
+        // Zero suppression that ends early: block size 12, a block of 2-bit
+        // values, then nothing.
+        let zs = [12u8, 0, 0x01, 0xff];
+        let m = meta(
+            ElemType::I16,
+            Compression::ZeroSuppress,
+            24,
+            zs.len() as u64,
+        );
+        let (ok, _, streamed) = both(&m, &zs);
+        assert!(!ok);
+        assert!(streamed.is_err());
+    }
 }
