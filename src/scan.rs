@@ -261,15 +261,19 @@ pub fn default_fmin(rate_hz: f64) -> f64 {
 }
 
 /// Default lowest analysed frequency of an aux channel \[Hz\]: `rate / 256`,
-/// at least 1 Hz — a 256 Hz ground-motion sensor is searched from 1 Hz, a
-/// 1024 Hz one from 4 Hz, a 4096 Hz one from 16 Hz as strain is. Sensors
+/// at least 1 Hz and at most the strain's 16 Hz — a 256 Hz ground-motion
+/// sensor is searched from 1 Hz, a 1024 Hz one from 4 Hz, one of 4096 Hz or
+/// faster from 16 Hz as strain is (slow channels keep [`default_fmin`]'s
+/// rate/16 when that is lower). Sensors
 /// witness through their own band, often far below the strain's 16 Hz (a
 /// seismometer's burst at a few hertz beside an arch at tens of hertz);
 /// the floor keeps the Welch segment (16/fmin s) and padding of a few tens
 /// of seconds. Common practice is to search each sensor in its own band;
 /// the numbers are ours.
 pub fn default_aux_fmin(rate_hz: f64) -> f64 {
-    (rate_hz / 256.0).max(1.0)
+    (rate_hz / 256.0)
+        .clamp(1.0, 16.0)
+        .min(default_fmin(rate_hz))
 }
 
 /// The lowest frequency a channel brings to [`resolve_params`]: its
@@ -790,6 +794,25 @@ pub fn scan_channel(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn aux_channels_are_searched_in_their_own_band() {
+        // rate/256 between 1 Hz and the strain's 16 Hz (a fast sensor is not
+        // searched from above the strain band), never above rate/16.
+        use crate::io::Role;
+        for (rate, want) in [
+            (256.0, 1.0),
+            (512.0, 2.0),
+            (1024.0, 4.0),
+            (4096.0, 16.0),
+            (16384.0, 16.0),
+            (8.0, 0.5),
+        ] {
+            assert_eq!(channel_fmin(Role::Aux, rate, None), Some(want), "{rate} Hz");
+        }
+        assert_eq!(channel_fmin(Role::Aux, 256.0, Some(4.0)), Some(4.0));
+        assert_eq!(channel_fmin(Role::Target, 256.0, None), None);
+    }
 
     /// The tile-count estimate behind [`MAX_TILES_PER_BLOCK`] follows the
     /// planned tiling within its stated factor 2, and the defaults are far
