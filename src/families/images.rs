@@ -239,8 +239,9 @@ pub struct Thumbnail {
 /// first) of every active family, written as
 /// `dir/family_<id>_trigger_<trigger id>.png`; and for each family in
 /// `witnesses` (family id, aux channel, coincidence window \[s\]) the aux
-/// channel's image at the first member's time, written as
-/// `dir/family_<id>_trigger_<trigger id>_aux.png`.
+/// channel's image at the time of the first member its scans hold (none
+/// when they hold none, e.g. an aux channel imported without data), written
+/// as `dir/family_<id>_trigger_<trigger id>_aux.png`.
 ///
 /// # Errors
 /// The directory cannot be made, or an image cannot be computed or written.
@@ -376,9 +377,10 @@ fn witness_image(
 pub const REPORT_IMAGES_PER_FAMILY: usize = 3;
 
 /// The report's images: [`REPORT_IMAGES_PER_FAMILY`] members of each active
-/// family of `families` (the report's target channel's) in `out_dir/thumbs`, computed from the files the scans recorded,
-/// plus the witnessing aux channel beside the first member of each family
-/// in `witnesses` (see [`render_family_thumbnails`]). When the scan records
+/// family of `families` (the report's target channel's) in
+/// `out_dir/thumbs`, computed from the files the scans recorded, plus the
+/// witnessing aux channel of each family in `witnesses` beside the first
+/// member its data cover (see [`render_family_thumbnails`]). When the scan records
 /// cannot be read there are no images and the reason is returned beside
 /// them (the report goes on without).
 ///
