@@ -604,6 +604,14 @@ pub struct CondBuffers {
     pub whitened: Vec<Complex<f32>>,
 }
 
+impl CondBuffers {
+    /// First sample of the last block whitened with
+    /// [`Conditioner::whiten_block_reusing`] (None after any other use).
+    pub fn reuse_origin(&self) -> Option<usize> {
+        self.welch.rows_at().map(|r| r.0)
+    }
+}
+
 impl Conditioner {
     /// Plan for blocks of `n` samples at `fs_hz` with `pad` samples of
     /// padding (half of it tapered), Welch segments of `welch_n` samples (50%
@@ -676,11 +684,37 @@ impl Conditioner {
         i0: usize,
         b: &mut CondBuffers,
     ) -> Result<()> {
+        self.whiten_block_from(src, i0, None, b)
+    }
+
+    /// As [`Conditioner::whiten_block_with`], keeping the Welch segments
+    /// this block shares with the previous one whitened with `b` (see
+    /// [`crate::condition::Welch::estimate_band_at`]): the same result, bit
+    /// for bit. The caller must use `b` with one source only.
+    ///
+    /// # Errors
+    /// Read errors of the source.
+    pub fn whiten_block_reusing(
+        &self,
+        src: &dyn SampleSource,
+        i0: usize,
+        b: &mut CondBuffers,
+    ) -> Result<()> {
+        self.whiten_block_from(src, i0, Some(i0), b)
+    }
+
+    fn whiten_block_from(
+        &self,
+        src: &dyn SampleSource,
+        i0: usize,
+        origin: Option<usize>,
+        b: &mut CondBuffers,
+    ) -> Result<()> {
         let (n, fs) = (self.n, src.rate_hz());
         src.read(i0, &mut b.x)?;
         let df_psd = self
             .welch
-            .estimate_band(&b.x, fs, self.f_top_hz, &mut b.welch)?;
+            .estimate_band_at(&b.x, origin, fs, self.f_top_hz, &mut b.welch)?;
         let mean = crate::condition::sum(&b.x) / n as f64;
         for (v, w) in b.x.iter_mut().zip(&self.taper) {
             *v = (*v - mean) * w;
