@@ -155,6 +155,15 @@ struct WindowPlan {
 }
 
 type BlockKey = (String, usize, usize);
+type BlockSlot = OnceLock<std::result::Result<Arc<WhiteBlock>, String>>;
+
+/// Whitened blocks by key, each with the serial number of its last use.
+#[derive(Default)]
+struct BlockCache {
+    slots: HashMap<BlockKey, (u64, Arc<BlockSlot>)>,
+    /// Uses so far.
+    serial: u64,
+}
 /// A block conditioner and the inverse FFT back to a time series.
 struct BlockPlan {
     conditioner: Conditioner,
@@ -169,7 +178,9 @@ type PlanKey = (String, usize, usize);
 /// Energy maps from the bundles recorded in a catalogue's scans.
 pub struct BundleMaps {
     channels: HashMap<String, ChannelData>,
-    blocks: Mutex<HashMap<BlockKey, Arc<WhiteBlock>>>,
+    /// Whitened blocks (a slot is filled once, by the first thread to need
+    /// the block; an error is not kept).
+    blocks: Mutex<BlockCache>,
     /// Block conditioners and inverse FFTs per block length.
     conditioners: Mutex<HashMap<(String, usize), Arc<BlockPlan>>>,
     plans: Mutex<HashMap<PlanKey, Arc<WindowPlan>>>,
@@ -276,7 +287,7 @@ impl BundleMaps {
         }
         Ok(BundleMaps {
             channels,
-            blocks: Mutex::new(HashMap::new()),
+            blocks: Mutex::new(BlockCache::default()),
             conditioners: Mutex::new(HashMap::new()),
             plans: Mutex::new(HashMap::new()),
             planner: Mutex::new(rustfft::FftPlanner::new()),
@@ -339,9 +350,72 @@ impl BundleMaps {
         let k = ic.saturating_sub(a + pad) / step;
         let i0 = (a + k * step).min(b - n);
         let key = (channel_key.to_string(), i0, n);
-        if let Some(hit) = self.blocks.lock().expect("cache lock").get(&key) {
-            return Ok(hit.clone());
+        // One slot per block: a thread that needs a block another is
+        // whitening waits for it rather than whitening it again.
+        let slot = {
+            let mut cache = self.blocks.lock().expect("cache lock");
+            cache.serial += 1;
+            let serial = cache.serial;
+            if let Some((used, hit)) = cache.slots.get_mut(&key) {
+                *used = serial;
+                hit.clone()
+            } else {
+                if cache.slots.len() >= CACHE_BLOCKS {
+                    // Drop the least recently used block (clearing them all
+                    // dropped the blocks the threads were working in, and
+                    // they were whitened again).
+                    let oldest = cache
+                        .slots
+                        .iter()
+                        .min_by_key(|(_, (used, _))| *used)
+                        .map(|(k, _)| k.clone());
+                    if let Some(k) = oldest {
+                        cache.slots.remove(&k);
+                    }
+                }
+                let slot = Arc::new(OnceLock::new());
+                cache.slots.insert(key.clone(), (serial, slot.clone()));
+                slot
+            }
+        };
+        let made = slot.get_or_init(|| {
+            self.whiten_block(channel, cd, data, channel_key, i0, n, welch_n)
+                .map(Arc::new)
+                .map_err(|e| format!("{e:#}"))
+        });
+        match made {
+            Ok(block) => Ok(block.clone()),
+            Err(e) => {
+                // Not kept: a later map may try again.
+                let mut cache = self.blocks.lock().expect("cache lock");
+                if cache
+                    .slots
+                    .get(&key)
+                    .is_some_and(|(_, s)| Arc::ptr_eq(s, &slot))
+                {
+                    cache.slots.remove(&key);
+                }
+                Err(anyhow!("{e}"))
+            }
         }
+    }
+
+    /// Whiten the block of `n` samples from sample `i0` (see
+    /// [`BundleMaps::white_block`]).
+    #[allow(clippy::too_many_arguments)]
+    fn whiten_block(
+        &self,
+        channel: &str,
+        cd: &ScanData,
+        data: &Opened,
+        channel_key: &str,
+        i0: usize,
+        n: usize,
+        welch_n: usize,
+    ) -> Result<WhiteBlock> {
+        let src = &data.src;
+        let fs = src.rate_hz();
+        let p = &cd.params;
         let cond = {
             let mut c = self.conditioners.lock().expect("cache lock");
             match c.get(&(channel_key.to_string(), n)) {
@@ -370,10 +444,28 @@ impl BundleMaps {
             }
         };
         let (conditioner, inverse) = (&cond.conditioner, &cond.inverse);
-        let spare = cond.spare.lock().expect("cache lock").pop();
+        let spare = {
+            let mut pool = cond.spare.lock().expect("cache lock");
+            // Buffers whose last block overlaps this one from below hold
+            // Welch segments of this one (blocks step by 28 s of 48 s).
+            let overlapping = pool
+                .iter()
+                .enumerate()
+                .filter_map(|(j, (b, _))| {
+                    let o = b.reuse_origin()?;
+                    (o <= i0 && i0 - o < n).then_some((j, o))
+                })
+                .max_by_key(|&(_, o)| o);
+            match overlapping {
+                Some((j, _)) => Some(pool.swap_remove(j)),
+                None => pool.pop(),
+            }
+        };
         let (mut b, mut scratch) =
             spare.unwrap_or_else(|| (conditioner.buffers(), inverse.make_scratch_vec()));
-        conditioner.whiten_block_with(src, i0, &mut b)?;
+        // One source per block plan (its key names the channel and scan), so
+        // the buffers' Welch segments may be kept.
+        conditioner.whiten_block_reusing(src, i0, &mut b)?;
         let spec = &mut b.whitened;
         // A real series has real DC and Nyquist bins.
         spec[0].im = 0.0;
@@ -388,13 +480,7 @@ impl BundleMaps {
         // Unnormalised inverse of unit-power bins: spectral level n; scale to 1.
         let scale = 1.0 / (n as f32).sqrt();
         x.iter_mut().for_each(|v| *v *= scale);
-        let out = Arc::new(WhiteBlock { i0, x });
-        let mut cache = self.blocks.lock().expect("cache lock");
-        if cache.len() >= CACHE_BLOCKS {
-            cache.clear();
-        }
-        cache.insert(key, out.clone());
-        Ok(out)
+        Ok(WhiteBlock { i0, x })
     }
 
     /// The taper and forward FFT of windows of `m` samples with `taper`
@@ -458,6 +544,20 @@ impl EnergyMapSource for BundleMaps {
         q: f64,
         freqs_hz: &[f64],
     ) -> Result<Vec<Option<RowEnergies>>> {
+        let mut out = Vec::new();
+        self.energy_rows_into(channel, t_center_gps, span_s, q, freqs_hz, &mut out)?;
+        Ok(out)
+    }
+
+    fn energy_rows_into(
+        &self,
+        channel: &str,
+        t_center_gps: f64,
+        span_s: f64,
+        q: f64,
+        freqs_hz: &[f64],
+        out: &mut Vec<Option<RowEnergies>>,
+    ) -> Result<()> {
         let cd = self.scan_at(channel, t_center_gps)?;
         let data = cd.open(channel)?;
         // Q below 2 loses its meaning as a tile shape (common practice).
@@ -520,12 +620,22 @@ impl EnergyMapSource for BundleMaps {
             let ws = sc.ws.get_or_insert_with(|| rows.workspace());
             rows.fit_workspace(ws);
             let plane_rows = &rows.planes[0].rows;
-            let mut out: Vec<Option<RowEnergies>> = vec![None; freqs_hz.len()];
+            // The previous rows' buffers serve this map's rows, each the
+            // buffer of the same row index where there is one (rows of an
+            // index have similar lengths from trigger to trigger, so the
+            // buffers seldom grow).
+            let mut previous = std::mem::take(out);
+            previous.resize(freqs_hz.len(), None);
+            out.resize(freqs_hz.len(), None);
             // single_plane keeps the rows that fit, in the order given.
             let mut r = 0;
             for (j, &f) in freqs_hz.iter().enumerate() {
                 if r < plane_rows.len() && plane_rows[r].f_hz == f {
-                    let (z, dt) = rows.row_energies_expected(0, r, spec, ws);
+                    let mut z = match previous[j].take() {
+                        Some(row) => row.z,
+                        None => sc.spare_z.pop().unwrap_or_default(),
+                    };
+                    let dt = rows.row_energies_expected_into(0, r, spec, ws, &mut z);
                     out[j] = Some(RowEnergies {
                         t0_gps: tw0,
                         dt_s: dt,
@@ -534,7 +644,9 @@ impl EnergyMapSource for BundleMaps {
                     r += 1;
                 }
             }
-            Ok(out)
+            sc.spare_z
+                .extend(previous.into_iter().flatten().map(|r| r.z));
+            Ok(())
         })
     }
 }
@@ -557,6 +669,8 @@ struct MapScratch {
     ws: Option<Workspace>,
     /// Inverse FFTs of the rows by length (plans depend on the length only).
     iffts: HashMap<usize, Arc<dyn rustfft::Fft<f32>>>,
+    /// Row buffers handed back by the caller and not yet reused.
+    spare_z: Vec<Vec<f32>>,
 }
 
 thread_local! {
