@@ -544,20 +544,6 @@ impl EnergyMapSource for BundleMaps {
         q: f64,
         freqs_hz: &[f64],
     ) -> Result<Vec<Option<RowEnergies>>> {
-        let mut out = Vec::new();
-        self.energy_rows_into(channel, t_center_gps, span_s, q, freqs_hz, &mut out)?;
-        Ok(out)
-    }
-
-    fn energy_rows_into(
-        &self,
-        channel: &str,
-        t_center_gps: f64,
-        span_s: f64,
-        q: f64,
-        freqs_hz: &[f64],
-        out: &mut Vec<Option<RowEnergies>>,
-    ) -> Result<()> {
         let cd = self.scan_at(channel, t_center_gps)?;
         let data = cd.open(channel)?;
         // Q below 2 loses its meaning as a tile shape (common practice).
@@ -620,22 +606,12 @@ impl EnergyMapSource for BundleMaps {
             let ws = sc.ws.get_or_insert_with(|| rows.workspace());
             rows.fit_workspace(ws);
             let plane_rows = &rows.planes[0].rows;
-            // The previous rows' buffers serve this map's rows, each the
-            // buffer of the same row index where there is one (rows of an
-            // index have similar lengths from trigger to trigger, so the
-            // buffers seldom grow).
-            let mut previous = std::mem::take(out);
-            previous.resize(freqs_hz.len(), None);
-            out.resize(freqs_hz.len(), None);
+            let mut out: Vec<Option<RowEnergies>> = vec![None; freqs_hz.len()];
             // single_plane keeps the rows that fit, in the order given.
             let mut r = 0;
             for (j, &f) in freqs_hz.iter().enumerate() {
                 if r < plane_rows.len() && plane_rows[r].f_hz == f {
-                    let mut z = match previous[j].take() {
-                        Some(row) => row.z,
-                        None => sc.spare_z.pop().unwrap_or_default(),
-                    };
-                    let dt = rows.row_energies_expected_into(0, r, spec, ws, &mut z);
+                    let (z, dt) = rows.row_energies_expected(0, r, spec, ws);
                     out[j] = Some(RowEnergies {
                         t0_gps: tw0,
                         dt_s: dt,
@@ -644,9 +620,7 @@ impl EnergyMapSource for BundleMaps {
                     r += 1;
                 }
             }
-            sc.spare_z
-                .extend(previous.into_iter().flatten().map(|r| r.z));
-            Ok(())
+            Ok(out)
         })
     }
 }
@@ -669,8 +643,6 @@ struct MapScratch {
     ws: Option<Workspace>,
     /// Inverse FFTs of the rows by length (plans depend on the length only).
     iffts: HashMap<usize, Arc<dyn rustfft::Fft<f32>>>,
-    /// Row buffers handed back by the caller and not yet reused.
-    spare_z: Vec<Vec<f32>>,
 }
 
 thread_local! {

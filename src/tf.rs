@@ -102,16 +102,10 @@ pub struct Tiling {
 
 /// `|y|² × scale` of every tile of `row` (its transform in `ws.buf`).
 fn scaled_energies(ws: &Workspace, row: &Row, scale: f32) -> Vec<f32> {
-    let mut out = Vec::new();
-    scaled_energies_into(ws, row, scale, &mut out);
-    out
-}
-
-/// As [`scaled_energies`], into `out` (cleared first; its allocation is
-/// reused).
-fn scaled_energies_into(ws: &Workspace, row: &Row, scale: f32, out: &mut Vec<f32>) {
-    out.clear();
-    out.extend(ws.buf[..row.n_t].iter().map(|y| y.norm_sqr() * scale));
+    ws.buf[..row.n_t]
+        .iter()
+        .map(|y| y.norm_sqr() * scale)
+        .collect()
 }
 
 /// Kept tiles are screened for significant ones in chunks of this many.
@@ -628,26 +622,12 @@ impl QPlan {
         whitened: &[Complex<f32>],
         ws: &mut Workspace,
     ) -> (Vec<f32>, f64) {
-        let mut z = Vec::new();
-        let dt = self.row_energies_expected_into(plane, row, whitened, ws, &mut z);
-        (z, dt)
-    }
-
-    /// As [`QPlan::row_energies_expected`], into `z` (its allocation is
-    /// reused: energy maps make 33 rows per trigger, up to 2^19 tiles
-    /// each); returns the tile spacing \[s\].
-    pub fn row_energies_expected_into(
-        &self,
-        plane: usize,
-        row: usize,
-        whitened: &[Complex<f32>],
-        ws: &mut Workspace,
-        z: &mut Vec<f32>,
-    ) -> f64 {
         let r = &self.planes[plane].rows[row];
         self.row_transform(r, whitened, ws);
-        scaled_energies_into(ws, r, (1.0 / r.norm) as f32, z);
-        self.tile_spacing(r)
+        (
+            scaled_energies(ws, r, (1.0 / r.norm) as f32),
+            self.tile_spacing(r),
+        )
     }
 
     /// Run only the inverse FFTs of every row (the plan's FFT-only cost, for

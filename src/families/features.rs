@@ -139,24 +139,6 @@ pub trait EnergyMapSource: Sync {
         freqs_hz: &[f64],
     ) -> Result<Vec<Option<RowEnergies>>>;
 
-    /// As [`EnergyMapSource::energy_rows`], into `out` (replaced). A source
-    /// may reuse the row buffers `out` holds from a previous call
-    /// ([`crate::maps::BundleMaps`] does: a trigger's rows are several MB,
-    /// and allocating them afresh cost page faults); by default the rows
-    /// are made anew.
-    fn energy_rows_into(
-        &self,
-        channel: &str,
-        t_center_gps: f64,
-        span_s: f64,
-        q: f64,
-        freqs_hz: &[f64],
-        out: &mut Vec<Option<RowEnergies>>,
-    ) -> Result<()> {
-        *out = self.energy_rows(channel, t_center_gps, span_s, q, freqs_hz)?;
-        Ok(())
-    }
-
     /// Normalised energy Z on `n_times` equal bins spanning `[t_center_gps
     /// − span_s/2, t_center_gps + span_s/2)` × the frequencies `freqs_hz`
     /// \[Hz\], at quality factor `q`; row-major `[time][freq]`; each bin the
@@ -460,33 +442,9 @@ pub fn fingerprint(
     channel: &str,
     src: &dyn EnergyMapSource,
 ) -> Result<Fingerprint> {
-    // The rows' buffers are kept per thread and handed back to the source
-    // for the next trigger (see [`EnergyMapSource::energy_rows_into`]). A
-    // source may wait on a parallel job (opening data), and the thread may
-    // run another trigger's fingerprint meanwhile: that one, finding the
-    // buffers in use, makes its own.
-    FINGERPRINT_ROWS.with(|cell| match cell.try_borrow_mut() {
-        Ok(mut rows) => fingerprint_with(trigger, channel, src, &mut rows),
-        Err(_) => fingerprint_with(trigger, channel, src, &mut Vec::new()),
-    })
-}
-
-thread_local! {
-    /// One thread's analysis rows, reused from trigger to trigger.
-    static FINGERPRINT_ROWS: std::cell::RefCell<Vec<Option<RowEnergies>>> =
-        const { std::cell::RefCell::new(Vec::new()) };
-}
-
-/// [`fingerprint`], with the rows made in `rows`.
-fn fingerprint_with(
-    trigger: &Trigger,
-    channel: &str,
-    src: &dyn EnergyMapSource,
-    rows: &mut Vec<Option<RowEnergies>>,
-) -> Result<Fingerprint> {
     let lay = MapLayout::of(trigger);
     let span = lay.analysis_span_s();
-    src.energy_rows_into(channel, lay.t_gps, span, lay.q, &lay.rows_hz, rows)?;
+    let rows = src.energy_rows(channel, lay.t_gps, span, lay.q, &lay.rows_hz)?;
     if rows.len() != N_ROWS {
         bail!(
             "energy rows for {channel} at GPS {:.3}: {} rows, expected {N_ROWS}",
@@ -511,7 +469,7 @@ fn fingerprint_with(
         let stored = (0..N_FREQS).map(|j| rows[2 * j + 1].as_ref());
         bin_rows_into(stored, lay.t_gps, s, N_TIMES, Binning::Max, &mut maps);
     }
-    let grid = bin_rows(rows, lay.t_gps, span, N_BINS, Binning::Mean);
+    let grid = bin_rows(&rows, lay.t_gps, span, N_BINS, Binning::Mean);
     let in_band: Vec<bool> = rows.iter().map(Option::is_some).collect();
     let m = morphology(&grid, &in_band, &lay, span / N_BINS as f64);
     let q = lay.q;
