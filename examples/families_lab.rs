@@ -5,7 +5,7 @@
 //! fingerprints reused) and prints the family scores; settings from the
 //! environment: `CRIT` (`bic`/`icl`, default icl), `MORPH` (0: peak
 //! frequency and Q only), `OVERLAP` (component grouping, default 0.5),
-//! `SEED` (default 0).
+//! `SEED` (default 0), `NINIT` (seeded initialisations per fit, default 2).
 use anyhow::Result;
 use glitchbook::catalogue::{self, TriggerQuery};
 use glitchbook::families::features::{fingerprint, SCALAR_NAMES};
@@ -95,6 +95,7 @@ fn eval(base: &Path) -> Result<()> {
         },
         morphology: env_or("MORPH", 1) == 1,
         merge_overlap: env_or("OVERLAP", 0.5),
+        n_init: env_or("NINIT", 2),
         ..Default::default()
     };
     for seed in [1u64, 2, 3] {
