@@ -398,7 +398,8 @@ pub fn write_vetoes(report: &VetoReport, format: Format, out: &mut dyn Write) ->
 pub fn safety_note(report: &VetoReport) -> String {
     match report.injections_given {
         Some(n) => format!(
-            "Safety: {n} injections; a veto is unsafe (not proposed) when \
+            "Safety: {n} injections given, each veto judged on those inside the analysed time \
+             (vetoed/inside in its row); a veto is unsafe (not proposed) when \
              P(X >= injections vetoed | Binomial(injections, deadtime)) < {:e} (common practice); \
              the Poisson figure is shown for reference. A veto is UNCHECKED when its injections \
              are too few to show it unsafe at its deadtime (even all vetoed would not be below \
