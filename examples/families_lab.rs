@@ -6,6 +6,8 @@
 //! environment: `CRIT` (`bic`/`icl`, default icl), `MORPH` (0: peak
 //! frequency and Q only), `OVERLAP` (component grouping, default 0.5),
 //! `SEED` (default 0), `NINIT` (seeded initialisations per fit, default 2).
+//! `... -- DIR stability` clusters each scenario seed with clustering
+//! seeds 0..`STARTS` (product defaults) and reports the medoid partition.
 use anyhow::Result;
 use glitchbook::catalogue::{self, TriggerQuery};
 use glitchbook::families::features::{fingerprint, SCALAR_NAMES};
@@ -153,10 +155,73 @@ fn eval(base: &Path) -> Result<()> {
     Ok(())
 }
 
+/// Cluster each scenario seed with clustering seeds 0..`STARTS` (default 6)
+/// and pick the partition that agrees most with the others (largest summed
+/// ARI between partitions, a medoid): is the most central partition a good
+/// one when single seeds are not?
+fn stability(base: &Path) -> Result<()> {
+    use glitchbook::families::{self, metrics::adjusted_rand_index, ClusterParams};
+    let starts: u64 = env_or("STARTS", 6);
+    for seed in [1u64, 2, 3] {
+        let dir = base.join(format!("qm4_s{seed}"));
+        let mut parts: Vec<Vec<i64>> = Vec::new();
+        let mut truth_ari = Vec::new();
+        for cs in 0..starts {
+            let db = base.join(format!("stab_s{seed}.db"));
+            let _ = std::fs::remove_file(&db);
+            std::fs::copy(dir.join("lab.db"), &db)?;
+            let mut conn = catalogue::open(&db)?;
+            let src = BundleMaps::from_catalogue(&conn)?;
+            let p = ClusterParams {
+                seed: cs,
+                ..Default::default()
+            };
+            families::cluster_catalogue(&mut conn, &p, &src)?;
+            let sc = glitchbook::scenario::score::score_catalogue(
+                &conn,
+                &dir,
+                None,
+                None,
+                &Default::default(),
+            )?;
+            truth_ari.push(sc.families.expect("families").ari_all);
+            let mut st = conn.prepare(
+                "SELECT t.id, COALESCE(m.family_id, -1) FROM triggers t \
+                 LEFT JOIN family_members m ON m.trigger_id = t.id ORDER BY t.id",
+            )?;
+            let v: Vec<i64> = st
+                .query_map([], |r| r.get::<_, i64>(1))?
+                .collect::<std::result::Result<_, _>>()?;
+            parts.push(v);
+        }
+        let sums: Vec<f64> = (0..parts.len())
+            .map(|i| {
+                (0..parts.len())
+                    .filter(|&j| j != i)
+                    .map(|j| adjusted_rand_index(&parts[i], &parts[j]))
+                    .sum()
+            })
+            .collect();
+        let medoid = (0..sums.len())
+            .max_by(|&a, &b| sums[a].total_cmp(&sums[b]))
+            .unwrap_or(0);
+        let list: Vec<String> = truth_ari.iter().map(|a| format!("{a:.3}")).collect();
+        println!(
+            "qm4 seed {seed}: ARI by clustering seed [{}]; medoid seed {medoid}: ARI {:.3}",
+            list.join(", "),
+            truth_ari[medoid]
+        );
+    }
+    Ok(())
+}
+
 fn main() -> Result<()> {
     let base = std::path::PathBuf::from(std::env::args().nth(1).unwrap_or("/tmp/lab".into()));
     if std::env::args().nth(2).as_deref() == Some("eval") {
         return eval(&base);
+    }
+    if std::env::args().nth(2).as_deref() == Some("stability") {
+        return stability(&base);
     }
     std::fs::create_dir_all(&base)?;
     for seed in [1u64, 2, 3] {
