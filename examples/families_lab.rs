@@ -86,6 +86,24 @@ fn env_or<T: std::str::FromStr>(k: &str, d: T) -> T {
         .unwrap_or(d)
 }
 
+/// A scratch copy `db` of `dir`'s scanned catalogue (fingerprints kept),
+/// opened, with its map source.
+fn scratch_copy(dir: &Path, db: &Path) -> Result<(rusqlite::Connection, BundleMaps)> {
+    let _ = std::fs::remove_file(db);
+    std::fs::copy(dir.join("lab.db"), db)?;
+    let conn = catalogue::open(db)?;
+    let src = BundleMaps::from_catalogue(&conn)?;
+    Ok((conn, src))
+}
+
+/// The second scenario's score of the catalogue.
+fn score(
+    conn: &rusqlite::Connection,
+    dir: &Path,
+) -> Result<glitchbook::scenario::score::ScenarioScore> {
+    glitchbook::scenario::score::score_catalogue(conn, dir, None, None, &Default::default())
+}
+
 fn eval(base: &Path) -> Result<()> {
     use glitchbook::families::{self, gmm::Criterion, ClusterParams};
     let p = ClusterParams {
@@ -103,20 +121,11 @@ fn eval(base: &Path) -> Result<()> {
     for seed in [1u64, 2, 3] {
         let dir = base.join(format!("qm4_s{seed}"));
         let db = base.join(format!("eval_s{seed}.db"));
-        let _ = std::fs::remove_file(&db);
-        std::fs::copy(dir.join("lab.db"), &db)?;
-        let mut conn = catalogue::open(&db)?;
-        let src = BundleMaps::from_catalogue(&conn)?;
+        let (mut conn, src) = scratch_copy(&dir, &db)?;
         let t = std::time::Instant::now();
         let rep = families::cluster_catalogue(&mut conn, &p, &src)?;
         let secs = t.elapsed().as_secs_f64();
-        let sc = glitchbook::scenario::score::score_catalogue(
-            &conn,
-            &dir,
-            None,
-            None,
-            &Default::default(),
-        )?;
+        let sc = score(&conn, &dir)?;
         let f = sc.families.clone().expect("families");
         println!(
             "qm4 seed {seed}: {} families (k tried {:?}); all: ARI {:.3} hom {:.3} compl {:.3}; in family: ARI {:.3} compl {:.3}; answered {:.3}; quiet placed {} / quiet {} ({secs:.1} s)",
@@ -139,10 +148,7 @@ fn eval(base: &Path) -> Result<()> {
     }
     let dir = base.join("demo_s1");
     let db = base.join("eval_demo.db");
-    let _ = std::fs::remove_file(&db);
-    std::fs::copy(dir.join("lab.db"), &db)?;
-    let mut conn = catalogue::open(&db)?;
-    let src = BundleMaps::from_catalogue(&conn)?;
+    let (mut conn, src) = scratch_copy(&dir, &db)?;
     let rep = families::cluster_catalogue(&mut conn, &p, &src)?;
     let truth = glitchbook::demo::read_truth(&dir.join("truth.csv"))?;
     let s = glitchbook::pipeline::score_families(&conn, &truth)?;
@@ -168,23 +174,13 @@ fn stability(base: &Path) -> Result<()> {
         let mut truth_ari = Vec::new();
         for cs in 0..starts {
             let db = base.join(format!("stab_s{seed}.db"));
-            let _ = std::fs::remove_file(&db);
-            std::fs::copy(dir.join("lab.db"), &db)?;
-            let mut conn = catalogue::open(&db)?;
-            let src = BundleMaps::from_catalogue(&conn)?;
+            let (mut conn, src) = scratch_copy(&dir, &db)?;
             let p = ClusterParams {
                 seed: cs,
                 ..Default::default()
             };
             families::cluster_catalogue(&mut conn, &p, &src)?;
-            let sc = glitchbook::scenario::score::score_catalogue(
-                &conn,
-                &dir,
-                None,
-                None,
-                &Default::default(),
-            )?;
-            truth_ari.push(sc.families.expect("families").ari_all);
+            truth_ari.push(score(&conn, &dir)?.families.expect("families").ari_all);
             let mut st = conn.prepare(
                 "SELECT t.id, COALESCE(m.family_id, -1) FROM triggers t \
                  LEFT JOIN family_members m ON m.trigger_id = t.id ORDER BY t.id",
