@@ -125,7 +125,9 @@ impl ScanData {
                 ChannelSource::open(spec)?
             }
         };
-        let (valid, checksum) = src.survey()?;
+        // Serial: this runs inside a `OnceLock` initialiser (see
+        // `SampleSource::survey_with`).
+        let (valid, checksum) = src.survey_with(false)?;
         if checksum != self.input_checksum {
             bail!(
                 "{}: the samples changed since {what} (checksum {checksum}, recorded {}); \

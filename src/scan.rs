@@ -174,6 +174,15 @@ pub trait SampleSource: Sync {
     /// compressed frame file then decodes on two cores; memory: two
     /// chunks), and checked and hashed in order.
     fn survey(&self) -> Result<(SegmentList, String)> {
+        self.survey_with(true)
+    }
+
+    /// [`SampleSource::survey`], reading the two chunks one after the other
+    /// when `parallel` is false: for callers inside a once-only
+    /// initialiser, where a worker waiting in `rayon::join` could steal a
+    /// task that waits for the very initialiser it is running (a deadlock
+    /// on pools of more than two threads).
+    fn survey_with(&self, parallel: bool) -> Result<(SegmentList, String)> {
         let (fs, t0, len) = (self.rate_hz(), self.start_gps(), self.len());
         let mut hasher = xxhash_rust::xxh3::Xxh3::new();
         let mut bytes: Vec<u8> = Vec::new();
@@ -186,13 +195,15 @@ pub trait SampleSource: Sync {
             let nb = chunk.min(len - first - na);
             buf_b.resize(nb, 0.0);
             let (a, b) = (&mut buf_a[..na], &mut buf_b[..nb]);
-            let (ra, rb) = rayon::join(
-                || self.read(first, a),
-                || match b.len() {
-                    0 => Ok(()),
-                    _ => self.read(first + na, b),
-                },
-            );
+            let read_b = |b: &mut [f64]| match b.len() {
+                0 => Ok(()),
+                _ => self.read(first + na, b),
+            };
+            let (ra, rb) = if parallel {
+                rayon::join(|| self.read(first, a), || read_b(b))
+            } else {
+                (self.read(first, a), read_b(b))
+            };
             ra?;
             rb?;
             for (at, c) in [(first, &*a), (first + na, &*b)] {

@@ -235,3 +235,33 @@ fn demo_family_ids_stay_stable_across_halves() {
     );
     assert!(stable >= 0.95, "stable ids {stable:.3} < 0.95");
 }
+
+/// Fingerprints read the bundle through one data check per scan; a pool of
+/// many threads once deadlocked there (the check read two chunks with
+/// `rayon::join`, and a worker waiting for its half stole another
+/// fingerprint that waited for the check it was itself running). Cluster
+/// the demo on an 8-thread pool and require it to finish.
+#[test]
+fn fingerprints_finish_on_a_wide_thread_pool() {
+    let sc = scenario();
+    let db = sc.dir.join("wide_pool.db");
+    let _ = std::fs::remove_file(&db);
+    let mut conn = catalogue::open(&db).unwrap();
+    scan_into(&mut conn, &sc.dir, &sc.segments);
+    let (tx, rx) = std::sync::mpsc::channel();
+    std::thread::spawn(move || {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(8)
+            .build()
+            .unwrap();
+        pool.install(|| cluster(&mut conn));
+        let n: i64 = conn
+            .query_row("SELECT COUNT(*) FROM features", [], |r| r.get(0))
+            .unwrap();
+        tx.send(n).unwrap();
+    });
+    let n = rx
+        .recv_timeout(std::time::Duration::from_secs(300))
+        .expect("clustering on 8 threads did not finish in 300 s (deadlock?)");
+    assert!(n > 100, "{n} fingerprints");
+}
