@@ -14,7 +14,9 @@
 //! triggers (fingerprints stored, so `assign` reads them). Peak RSS is read
 //! from /proc/self/status (VmHWM) after each step.
 //!
-//! Run: `cargo bench --bench families_scale` (about 2–4 min at 200,000).
+//! Run: `cargo bench --bench families_scale` (about 2–4 min at 200,000);
+//! `GLITCHBOOK_BENCH_STARTS=N` sets the seeded starts (default: the
+//! product default, `ClusterParams::starts`).
 
 use glitchbook::catalogue::{open, to_ns};
 use glitchbook::families::features::{f32_to_blob, fingerprint, FEATURE_VERSION};
@@ -186,11 +188,20 @@ fn main() {
     };
     let rss0 = peak_rss_mib();
     let t = Instant::now();
-    let rep = cluster_catalogue(&mut conn, &ClusterParams::default(), &src).unwrap();
+    let d = ClusterParams::default();
+    let p = ClusterParams {
+        starts: std::env::var("GLITCHBOOK_BENCH_STARTS")
+            .ok()
+            .and_then(|s| s.parse().ok())
+            .unwrap_or(d.starts),
+        ..d
+    };
+    let rep = cluster_catalogue(&mut conn, &p, &src).unwrap();
     let dt = t.elapsed().as_secs_f64();
     println!(
-        "cluster: {} triggers into {} families in {dt:.1} s = {:.0} triggers/s; peak RSS {:.0} MiB \
+        "cluster ({} seeded starts): {} triggers into {} families in {dt:.1} s = {:.0} triggers/s; peak RSS {:.0} MiB \
          (before {:.0} MiB); extrapolated to 1,000,000 (linear): {:.0} s (target ≤ 600 s, < 4 GiB)",
+        p.starts,
         rep.n_clustered,
         rep.families.len(),
         rep.n_clustered as f64 / dt,

@@ -3,11 +3,13 @@
 //! truth to CSV for study. `cargo run --release --example families_lab -- DIR`.
 //! `... -- DIR eval` instead clusters copies of those catalogues (scan and
 //! fingerprints reused) and prints the family scores; settings from the
-//! environment: `CRIT` (`bic`/`icl`, default icl), `MORPH` (0: peak
-//! frequency and Q only), `OVERLAP` (component grouping, default 0.5),
-//! `SEED` (default 0), `NINIT` (seeded initialisations per fit, default 2).
+//! environment, product defaults unless set: `CRIT` (`bic`/`icl`), `MORPH`
+//! (0: peak frequency and Q only), `OVERLAP` (component grouping), `SEED`,
+//! `NINIT` (seeded initialisations per fit), `STARTS` (seeded starts whose
+//! medoid partition is kept).
 //! `... -- DIR stability` clusters each scenario seed with clustering
-//! seeds 0..`STARTS` (product defaults) and reports the medoid partition.
+//! seeds 0..`SEEDS` (default 6; other settings as for `eval`) and prints
+//! the ARI against the truth of each.
 use anyhow::Result;
 use glitchbook::catalogue::{self, TriggerQuery};
 use glitchbook::families::features::{fingerprint, SCALAR_NAMES};
@@ -104,20 +106,28 @@ fn score(
     glitchbook::scenario::score::score_catalogue(conn, dir, None, None, &Default::default())
 }
 
-fn eval(base: &Path) -> Result<()> {
-    use glitchbook::families::{self, gmm::Criterion, ClusterParams};
-    let p = ClusterParams {
-        seed: env_or("SEED", 0),
-        criterion: if std::env::var("CRIT").as_deref() == Ok("bic") {
-            Criterion::Bic
-        } else {
-            Criterion::Icl
+/// Product clustering settings, overridden from the environment.
+fn lab_params() -> glitchbook::families::ClusterParams {
+    use glitchbook::families::{gmm::Criterion, ClusterParams};
+    let d = ClusterParams::default();
+    ClusterParams {
+        seed: env_or("SEED", d.seed),
+        criterion: match std::env::var("CRIT").as_deref() {
+            Ok("icl") => Criterion::Icl,
+            Ok("bic") => Criterion::Bic,
+            _ => d.criterion,
         },
         morphology: env_or("MORPH", 1) == 1,
-        merge_overlap: env_or("OVERLAP", 0.5),
-        n_init: env_or("NINIT", 2),
-        ..Default::default()
-    };
+        merge_overlap: env_or("OVERLAP", d.merge_overlap),
+        n_init: env_or("NINIT", d.n_init),
+        starts: env_or("STARTS", d.starts),
+        ..d
+    }
+}
+
+fn eval(base: &Path) -> Result<()> {
+    use glitchbook::families;
+    let p = lab_params();
     for seed in [1u64, 2, 3] {
         let dir = base.join(format!("qm4_s{seed}"));
         let db = base.join(format!("eval_s{seed}.db"));
@@ -166,46 +176,31 @@ fn eval(base: &Path) -> Result<()> {
 /// ARI between partitions, a medoid): is the most central partition a good
 /// one when single seeds are not?
 fn stability(base: &Path) -> Result<()> {
-    use glitchbook::families::{self, metrics::adjusted_rand_index, ClusterParams};
-    let starts: u64 = env_or("STARTS", 6);
+    use glitchbook::families::{self, ClusterParams};
+    let seeds: u64 = env_or("SEEDS", 6);
+    let p = lab_params();
     for seed in [1u64, 2, 3] {
         let dir = base.join(format!("qm4_s{seed}"));
-        let mut parts: Vec<Vec<i64>> = Vec::new();
         let mut truth_ari = Vec::new();
-        for cs in 0..starts {
+        let t = std::time::Instant::now();
+        for cs in 0..seeds {
             let db = base.join(format!("stab_s{seed}.db"));
             let (mut conn, src) = scratch_copy(&dir, &db)?;
-            let p = ClusterParams {
-                seed: cs,
-                ..Default::default()
-            };
-            families::cluster_catalogue(&mut conn, &p, &src)?;
-            truth_ari.push(score(&conn, &dir)?.families.expect("families").ari_all);
-            let mut st = conn.prepare(
-                "SELECT t.id, COALESCE(m.family_id, -1) FROM triggers t \
-                 LEFT JOIN family_members m ON m.trigger_id = t.id ORDER BY t.id",
-            )?;
-            let v: Vec<i64> = st
-                .query_map([], |r| r.get::<_, i64>(1))?
-                .collect::<std::result::Result<_, _>>()?;
-            parts.push(v);
+            let rep =
+                families::cluster_catalogue(&mut conn, &ClusterParams { seed: cs, ..p }, &src)?;
+            let kept = rep
+                .starts
+                .iter()
+                .find(|s| s.chosen)
+                .map_or(1.0, |s| s.agreement);
+            let ari = score(&conn, &dir)?.families.expect("families").ari_all;
+            truth_ari.push(format!("{ari:.3} (agreement {kept:.2})"));
         }
-        let sums: Vec<f64> = (0..parts.len())
-            .map(|i| {
-                (0..parts.len())
-                    .filter(|&j| j != i)
-                    .map(|j| adjusted_rand_index(&parts[i], &parts[j]))
-                    .sum()
-            })
-            .collect();
-        let medoid = (0..sums.len())
-            .max_by(|&a, &b| sums[a].total_cmp(&sums[b]))
-            .unwrap_or(0);
-        let list: Vec<String> = truth_ari.iter().map(|a| format!("{a:.3}")).collect();
         println!(
-            "qm4 seed {seed}: ARI by clustering seed [{}]; medoid seed {medoid}: ARI {:.3}",
-            list.join(", "),
-            truth_ari[medoid]
+            "qm4 seed {seed}, {} starts: ARI by clustering seed [{}] ({:.1} s per run)",
+            p.starts,
+            truth_ari.join(", "),
+            t.elapsed().as_secs_f64() / seeds as f64
         );
     }
     Ok(())

@@ -201,3 +201,39 @@ fn gmm_matches_sklearn_on_blobs() {
         .collect();
     assert!(adjusted_rand_index(&truth, &lab) > 0.9);
 }
+
+/// A component on fewer than d + 1 points has no estimable full covariance
+/// (the sample covariance of m ≤ d points is singular; only `reg_covar`
+/// holds it up): such a component is dropped, a real one is not.
+#[test]
+fn degenerate_components_are_dropped() {
+    use rand_distr::{Distribution, StandardNormal};
+    let mut rng = rand_xoshiro::Xoshiro256Plus::seed_from_u64(11);
+    let mut rows: Vec<f64> = Vec::new();
+    for i in 0..400 {
+        let c = if i % 2 == 0 { 0.0 } else { 8.0 };
+        for _ in 0..2 {
+            let z: f64 = StandardNormal.sample(&mut rng);
+            rows.push(c + z);
+        }
+    }
+    let blobs = Array2::from_shape_vec((400, 2), rows.clone()).unwrap();
+    // Two identical far-off points: k-means puts a centre on them.
+    rows.extend([40.0, -40.0, 40.0, -40.0]);
+    let x = Array2::from_shape_vec((402, 2), rows).unwrap();
+    let mut g = Gmm::fit(x.view(), &GmmParams::new(3, 0)).unwrap();
+    let on_pair = g
+        .means
+        .iter()
+        .filter(|m| (m[0] - 40.0).abs() < 1e-6 && (m[1] + 40.0).abs() < 1e-6)
+        .count();
+    assert_eq!(on_pair, 1, "a component sits on the pair: {:?}", g.means);
+    assert_eq!(g.drop_degenerate(x.view()), 1);
+    assert_eq!(g.k(), 2);
+    assert!((g.weights.iter().sum::<f64>() - 1.0).abs() < 1e-12);
+    // The two blobs keep their components.
+    let mut good = Gmm::fit(blobs.view(), &GmmParams::new(2, 0)).unwrap();
+    let before = good.clone();
+    assert_eq!(good.drop_degenerate(blobs.view()), 0);
+    assert_eq!(good, before);
+}

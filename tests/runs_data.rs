@@ -148,7 +148,13 @@ fn two_days_of_one_channel() {
     }
     d.ok(&["assign"]);
     d.ok(&["report", "--out", "rep"]);
-    assert!(d.path().join("rep/index.html").exists());
+    let page = std::fs::read_to_string(d.path().join("rep/index.html")).unwrap();
+    // The families came from 5 seeded starts and the page says how far
+    // they agreed.
+    assert!(
+        page.contains(" of 5 seeded starts, the one agreeing best"),
+        "{page}"
+    );
     // Every glitch of both days is found in its own day's data by the maps.
     let conn = glitchbook::catalogue::open(&d.db()).unwrap();
     let maps = glitchbook::maps::BundleMaps::from_catalogue(&conn).unwrap();

@@ -461,6 +461,31 @@ fn families_hold_one_mechanism_each(seed: u64) {
         "seed {seed}: cross-validated accuracy {:.3}",
         cv.accuracy
     );
+    // The families must not hang on the clustering seed: re-cluster with
+    // seeds 1–5 (each a medoid of 5 seeded starts). With single fits,
+    // scenario seed 1 fell to ARI 0.46 at clustering seed 2 and scenario
+    // seed 3 to 0.60 at clustering seed 1 (README, "families").
+    let src = glitchbook::maps::BundleMaps::from_catalogue(&conn).unwrap();
+    for cs in 1..=5 {
+        let p = glitchbook::families::ClusterParams {
+            seed: cs,
+            ..Default::default()
+        };
+        glitchbook::families::cluster_catalogue(&mut conn, &p, &src).unwrap();
+        let sc = glitchbook::scenario::score::score_catalogue(
+            &conn,
+            &dir,
+            None,
+            None,
+            &Default::default(),
+        )
+        .unwrap();
+        let ari = sc.families.expect("families scored").ari_all;
+        assert!(
+            ari >= 0.85,
+            "seed {seed}, clustering seed {cs}: ARI {ari:.3}"
+        );
+    }
     drop(conn);
     let _ = std::fs::remove_dir_all(&dir);
 }

@@ -42,6 +42,10 @@ pub struct ClusterArgs {
     /// (steadier for small catalogues; the final mixture is full).
     #[arg(long)]
     pub select_diagonal: bool,
+    /// Seeded starts of the selection; the family partition that agrees
+    /// best with the other starts' is kept (1: a single fit).
+    #[arg(long, default_value_t = 5, value_name = "N")]
+    pub starts: usize,
     /// Only place new triggers into the existing families (same as `assign`).
     #[arg(long)]
     pub assign_only: bool,
@@ -183,6 +187,7 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         k_max: a.k_max,
         n_map_components: a.map_components,
         select_diagonal: a.select_diagonal,
+        starts: a.starts,
         ..Default::default()
     };
     params.check()?;
@@ -204,6 +209,7 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         rep.n_features_computed,
         rep.run_id
     ));
+    say_starts(g, &rep.starts);
     for e in &rep.events {
         if e.kind != families::EventKind::Kept {
             let other = e
@@ -217,6 +223,38 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
         }
     }
     print_families(&conn, Format::Table)
+}
+
+/// Say which seeded start was kept and how far the starts agreed; warn
+/// when the families depend on the seed.
+fn say_starts(g: &Global, starts: &[families::StartSummary]) {
+    let Some(kept) = starts.iter().find(|s| s.chosen) else {
+        return;
+    };
+    if starts.len() < 2 {
+        return;
+    }
+    let least = starts
+        .iter()
+        .map(|s| s.agreement)
+        .fold(f64::INFINITY, f64::min);
+    g.info(&format!(
+        "kept seed {} of {} seeded starts ({} families): mean agreement (adjusted Rand index) \
+         with the other starts {:.2}; least agreeing start {:.2}",
+        kept.seed,
+        starts.len(),
+        kept.families,
+        kept.agreement,
+        least
+    ));
+    if kept.agreement < families::model::SEED_AGREEMENT_WARN {
+        super::warn(&format!(
+            "the families depend on the clustering seed (the kept start agrees with the others \
+             only to {:.2}): check them before labelling, e.g. with split-family or a run with \
+             more --starts",
+            kept.agreement
+        ));
+    }
 }
 
 /// Say which target channels' triggers were left out for want of raw data.

@@ -265,6 +265,7 @@ pub fn cluster_catalogue(
         n_quiet: placed.n_quiet,
         n_features_computed: n_computed + n_quiet_computed,
         bic: fit.bic,
+        starts: model.starts,
         events,
         families,
         without_data,

@@ -115,6 +115,49 @@ pub fn cholesky(a: &[f64], d: usize) -> Result<Vec<f64>> {
 const LN_2PI: f64 = 1.837_877_066_409_345_3;
 
 impl Gmm {
+    /// Drop the components whose effective size on `x` (the sum of their
+    /// membership probabilities) is below `dim + 1`, renormalising the
+    /// weights; the last component is always kept. A full covariance in d
+    /// dimensions is not estimable from fewer than d + 1 points: such a
+    /// component sits on one or a few triggers (held up only by
+    /// `reg_covar`) and would make a family of them. Returns how many were
+    /// dropped; their triggers fall to the other components (or novel).
+    pub fn drop_degenerate(&mut self, x: ArrayView2<f64>) -> usize {
+        let k = self.k();
+        if k < 2 {
+            return 0;
+        }
+        let (resp, _) = self.predict_proba(x);
+        let mut size = vec![0.0; k];
+        for r in resp.chunks(k) {
+            for (s, &t) in size.iter_mut().zip(r) {
+                *s += t;
+            }
+        }
+        let min = (self.dim + 1) as f64;
+        let mut keep: Vec<usize> = (0..k).filter(|&j| size[j] >= min).collect();
+        if keep.is_empty() {
+            keep.push(
+                (0..k)
+                    .max_by(|&a, &b| size[a].total_cmp(&size[b]))
+                    .unwrap_or(0),
+            );
+        }
+        if keep.len() == k {
+            return 0;
+        }
+        let pick = |v: &[Vec<f64>]| keep.iter().map(|&j| v[j].clone()).collect::<Vec<_>>();
+        self.means = pick(&self.means);
+        self.covariances = pick(&self.covariances);
+        self.chol = pick(&self.chol);
+        let w: Vec<f64> = keep.iter().map(|&j| self.weights[j]).collect();
+        let total: f64 = w.iter().sum();
+        self.weights = w.iter().map(|v| v / total).collect();
+        let ll = self.score_samples(x);
+        self.mean_loglik = ll.iter().sum::<f64>() / ll.len().max(1) as f64;
+        k - keep.len()
+    }
+
     /// Number of components.
     pub fn k(&self) -> usize {
         self.weights.len()
@@ -483,6 +526,24 @@ pub fn fit_auto_k_by(
         Some(s) => s.view(),
         None => x.view(),
     };
+    let mut auto = select_k(xs, k_max, base, select_diagonal, criterion)?;
+    if n > select_rows || auto.best.diagonal != base.diagonal {
+        auto.best = refit_all(x, &auto.best, base)?;
+    }
+    Ok(auto)
+}
+
+/// Fit `k = 1..=k_max` on all of `xs` and keep the lowest `criterion`
+/// (diagonal covariances with `select_diagonal`); no refit. The selection
+/// step of [`fit_auto_k_by`], for callers that compare several seeded
+/// selections on the same rows before refitting one.
+pub fn select_k(
+    xs: ArrayView2<f64>,
+    k_max: usize,
+    base: &GmmParams,
+    select_diagonal: bool,
+    criterion: Criterion,
+) -> Result<AutoK> {
     let mut bic = Vec::new();
     let mut icl = Vec::new();
     let mut best: Option<(f64, Gmm)> = None;
@@ -510,11 +571,20 @@ pub fn fit_auto_k_by(
             best = Some((score, g));
         }
     }
-    let (_, mut g) = best.expect("k = 1 always fits");
-    if n > select_rows || g.diagonal != base.diagonal {
-        g = Gmm::fit(x, &GmmParams { k: g.k(), ..*base })?;
-    }
-    Ok(AutoK { best: g, bic, icl })
+    let (_, best) = best.expect("k = 1 always fits");
+    Ok(AutoK { best, bic, icl })
+}
+
+/// Refit a selected mixture's number of components on all rows `x` with
+/// `base`'s covariance type and seed.
+pub fn refit_all(x: ArrayView2<f64>, selected: &Gmm, base: &GmmParams) -> Result<Gmm> {
+    Gmm::fit(
+        x,
+        &GmmParams {
+            k: selected.k(),
+            ..*base
+        },
+    )
 }
 
 /// `m` distinct row indices of `0..n`, sorted, from a seeded shuffle.

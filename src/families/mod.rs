@@ -39,7 +39,10 @@
 //! k is chosen by the BIC of full-covariance mixtures (on ≤ 20,000 rows;
 //! ICL on request, [`gmm::Criterion`]), then mixture components whose
 //! memberships overlap by ≥ 0.1 are grouped into one family
-//! ([`model::component_groups`]). Every target trigger gets an answer:
+//! ([`model::component_groups`]), components on fewer than d + 1 triggers
+//! dropped first ([`gmm::Gmm::drop_degenerate`]); this selection runs from
+//! 5 seeds and the partition agreeing best with the others is kept
+//! ([`ClusterParams::starts`]). Every target trigger gets an answer:
 //! a family with its probability, or unclassified with a reason — `novel`
 //! (log-likelihood below the 0.5 % quantile of the fit data's) or `quiet`
 //! (below `min_snr` and not placed with probability ≥
@@ -72,7 +75,7 @@ pub use images::{
     ImageStyle, Thumbnail,
 };
 pub use lineage::{EventKind, FamilyStatus};
-pub use model::{fit_model, ClusterParams, FamilyModel, Fingerprints};
+pub use model::{fit_model, ClusterParams, FamilyModel, Fingerprints, StartSummary};
 pub use thumbnail::{render_thumbnail, ColourScale};
 
 use serde::Serialize;
@@ -139,8 +142,11 @@ pub struct ClusterReport {
     pub n_quiet: usize,
     /// Fingerprints computed in this run (others were stored already).
     pub n_features_computed: usize,
-    /// `(k, BIC)` for every number of families tried.
+    /// `(k, BIC)` for every number of families tried (the kept start's).
     pub bic: Vec<(usize, f64)>,
+    /// Every seeded start of the selection, its agreement with the others
+    /// and which was kept (see [`ClusterParams::starts`]).
+    pub starts: Vec<model::StartSummary>,
     /// Identity changes.
     pub events: Vec<FamilyEvent>,
     /// The active families after the run.

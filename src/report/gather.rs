@@ -6,7 +6,7 @@ use crate::rates::live::{live_time, table_exists};
 use crate::rates::{rates, RateParams, RateReport};
 use crate::segments::SegmentList;
 use anyhow::{Context, Result};
-use rusqlite::{params, Connection};
+use rusqlite::{params, Connection, OptionalExtension};
 use serde::Serialize;
 use std::collections::BTreeMap;
 
@@ -271,6 +271,9 @@ pub struct ReportData {
     pub has_coupling: bool,
     /// Cross-validation of the latest classifier by label, if any.
     pub classifier: Option<crate::families::classifier::CrossValidation>,
+    /// The seeded starts of the latest clustering run (empty before
+    /// clustering or for runs made with one start).
+    pub cluster_starts: Vec<crate::families::StartSummary>,
     /// Stretches of the span the target channel was not analysed (shaded
     /// on time plots) \[GPS s\].
     pub gaps_gps: Vec<(f64, f64)>,
@@ -473,8 +476,14 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
     } else {
         None
     };
+    let cluster_starts = if table_exists(conn, "cluster_runs")? {
+        latest_starts(conn)?
+    } else {
+        Vec::new()
+    };
     Ok(ReportData {
         classifier,
+        cluster_starts,
         params: p.clone(),
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         generated_utc: now_utc(),
@@ -492,6 +501,23 @@ pub fn gather(conn: &Connection, p: &ReportParams) -> Result<ReportData> {
         has_coupling,
         gaps_gps,
     })
+}
+
+/// The seeded starts recorded with the latest clustering run's model
+/// (empty when it has none or the model is not one this version reads:
+/// the report only shows them; `assign` is where a model must be read).
+fn latest_starts(conn: &Connection) -> Result<Vec<crate::families::StartSummary>> {
+    let js: Option<String> = conn
+        .query_row(
+            "SELECT model_json FROM cluster_runs ORDER BY id DESC LIMIT 1",
+            [],
+            |r| r.get(0),
+        )
+        .optional()?;
+    Ok(js
+        .and_then(|j| serde_json::from_str::<serde_json::Value>(&j).ok())
+        .and_then(|v| serde_json::from_value(v.get("starts")?.clone()).ok())
+        .unwrap_or_default())
 }
 
 /// Witness rows of `run`, best first within each target set in the order

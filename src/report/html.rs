@@ -557,6 +557,38 @@ fn colour_legend(o: &mut String, d: &ReportData) {
     o.push_str("<span class=\"key\" style=\"background:#b0b0b0\"></span>no family</p>\n");
 }
 
+/// How far the seeded starts of the latest clustering agreed (nothing for
+/// a run with one start); a caution when the families hang on the seed.
+fn starts_line(o: &mut String, starts: &[crate::families::StartSummary]) {
+    let Some(kept) = starts.iter().find(|s| s.chosen) else {
+        return;
+    };
+    if starts.len() < 2 {
+        return;
+    }
+    let least = starts
+        .iter()
+        .map(|s| s.agreement)
+        .fold(f64::INFINITY, f64::min);
+    let _ = writeln!(
+        o,
+        "<p>Families from the start with seed {} of {} seeded starts, the one agreeing best \
+         with the others: mean adjusted Rand index {:.2} with the other starts (least agreeing \
+         start {:.2}).</p>",
+        kept.seed,
+        starts.len(),
+        kept.agreement,
+        least
+    );
+    if kept.agreement < crate::families::model::SEED_AGREEMENT_WARN {
+        let _ = writeln!(
+            o,
+            "<p class=\"caution\">These families depend on the clustering seed: check each \
+             family's images for two shapes before labelling, and split or merge as needed.</p>"
+        );
+    }
+}
+
 /// The parameters and provenance, as a table at the end of the page.
 fn parameters_section(o: &mut String, d: &ReportData) -> Result<()> {
     o.push_str("<section id=\"parameters\"><h2>Parameters and provenance</h2><table>\n");
@@ -673,6 +705,7 @@ pub fn write_report(d: &ReportData, out: &Path, thumbnails: &[Thumbnail]) -> Res
         o.push_str("<p>No families in this catalogue (not clustered yet).</p>\n");
     } else {
         triage_table(&mut o, d);
+        starts_line(&mut o, &d.cluster_starts);
     }
     o.push_str("<h3>Channels</h3>\n<table><tr><th>channel</th><th>role</th><th>triggers</th><th>live [h]</th></tr>\n");
     for (name, role, n, live) in &d.channels {
