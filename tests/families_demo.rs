@@ -236,11 +236,13 @@ fn demo_family_ids_stay_stable_across_halves() {
     assert!(stable >= 0.95, "stable ids {stable:.3} < 0.95");
 }
 
-/// Fingerprints read the bundle through one data check per scan; a pool of
-/// many threads once deadlocked there (the check read two chunks with
-/// `rayon::join`, and a worker waiting for its half stole another
-/// fingerprint that waited for the check it was itself running). Cluster
-/// the demo on an 8-thread pool and require it to finish.
+/// Fingerprints read the bundle through one data check per scan, run once
+/// inside a `OnceLock`. That check used to read two chunks with
+/// `rayon::join`: a worker waiting there for its other half may steal a
+/// task that waits on the same `OnceLock` (found by reading the code; not
+/// reproduced, since a test cannot force rayon's stealing order; the check
+/// now reads serially). A guard: cluster the demo on an 8-thread pool,
+/// where idle workers exist, and require it to finish.
 #[test]
 fn fingerprints_finish_on_a_wide_thread_pool() {
     let sc = scenario();
