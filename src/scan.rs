@@ -5,7 +5,7 @@ use crate::condition::{highpass_gain, tukey, whiten, Welch, WelchBuffers};
 use crate::io::{ChannelSpec, NpyReader};
 use crate::segments::{Segment, SegmentList};
 use crate::tf::{QPlan, Tile, Tiling, Workspace};
-use crate::trigger::{cluster_tiles, energy_from_snr, Trigger};
+use crate::trigger::{cluster_tiles, energy_from_snr, refine_peaks, Trigger};
 use crate::Error;
 use anyhow::{anyhow, bail, Context, Result};
 use rayon::prelude::*;
@@ -554,14 +554,13 @@ pub fn scan_source(
             let keep = (t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs);
             let mut tiles = Vec::new();
             conditioner.whiten_block_with(src, b.i0, cb)?;
-            plan.transform(
-                &cb.whitened,
-                t0 + b.i0 as f64 / fs,
-                keep,
-                z_thr,
-                ws,
-                &mut tiles,
-            );
+            let t0_block = t0 + b.i0 as f64 / fs;
+            plan.transform(&cb.whitened, t0_block, keep, z_thr, ws, &mut tiles);
+            // Locate the candidate peaks between tiles, rows and planes
+            // while this block's whitened data are at hand.
+            let tiles = refine_peaks(tiles, |tile, q_hat| {
+                plan.refine(&cb.whitened, t0_block, ws, tile, q_hat)
+            });
             progress(
                 done.fetch_add(1, Ordering::Relaxed) as f64 / total as f64 + 1.0 / total as f64,
             );
