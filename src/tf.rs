@@ -446,7 +446,11 @@ impl QPlan {
             ws.scratch = vec![Complex::new(0.0, 0.0); self.max_scratch];
         }
         let shape_fits = ws.rho.len() == self.planes.len()
-            && ws.rho.iter().zip(&self.planes).all(|(r, p)| r.len() == p.rows.len());
+            && ws
+                .rho
+                .iter()
+                .zip(&self.planes)
+                .all(|(r, p)| r.len() == p.rows.len());
         if !shape_fits {
             ws.rho = self.rho_shape();
         }
@@ -801,10 +805,12 @@ impl QPlan {
         q_start: f64,
     ) -> Refined {
         let (qmin, qmax) = self.q_bounds;
-        let plane = self
-            .planes
-            .iter()
-            .min_by(|a, b| (a.q / tile.q).ln().abs().total_cmp(&(b.q / tile.q).ln().abs()));
+        let plane = self.planes.iter().min_by(|a, b| {
+            (a.q / tile.q)
+                .ln()
+                .abs()
+                .total_cmp(&(b.q / tile.q).ln().abs())
+        });
         let row_step = plane
             .filter(|p| p.rows.len() > 1)
             .map_or(0.05, |p| (p.rows[1].f_hz / p.rows[0].f_hz).ln());
@@ -884,7 +890,11 @@ impl QPlan {
             simplex.sort_by(|a, b| b.1.total_cmp(&a.1));
             let size = simplex[1..]
                 .iter()
-                .map(|p| (0..3).map(|d| (p.0[d] - simplex[0].0[d]).abs()).fold(0.0, f64::max))
+                .map(|p| {
+                    (0..3)
+                        .map(|d| (p.0[d] - simplex[0].0[d]).abs())
+                        .fold(0.0, f64::max)
+                })
                 .fold(0.0, f64::max);
             if size < X_TOL {
                 break;
@@ -892,8 +902,8 @@ impl QPlan {
             let nv = simplex.len();
             let mut c = [0.0; 3];
             for p in &simplex[..nv - 1] {
-                for d in 0..3 {
-                    c[d] += p.0[d] / (nv - 1) as f64;
+                for (cd, pd) in c.iter_mut().zip(p.0) {
+                    *cd += pd / (nv - 1) as f64;
                 }
             }
             let worst = simplex[nv - 1];
@@ -907,7 +917,11 @@ impl QPlan {
             } else if zr > simplex[nv - 2].1 {
                 simplex[nv - 1] = (xr, zr);
             } else {
-                let xc = if zr > worst.1 { along(0.5) } else { along(-0.5) };
+                let xc = if zr > worst.1 {
+                    along(0.5)
+                } else {
+                    along(-0.5)
+                };
                 let zc = value(xc);
                 if zc > worst.1.max(zr) {
                     simplex[nv - 1] = (xc, zc);

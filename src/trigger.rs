@@ -311,6 +311,48 @@ mod tests {
         assert_eq!(one.estimate_q(11.314), 11.314);
     }
 
+    /// A refined peak (set by the scan, see `tf::QPlan::refine`) replaces
+    /// the loudest tile's time, frequency, Q and energy; the extent still
+    /// comes from the tiles.
+    #[test]
+    fn refined_peak_is_reported() {
+        let mut loud = tile(100.0, 200.0, 8.0, 50.0);
+        loud.refined = Some(Refined {
+            t_gps: 100.003,
+            f_hz: 203.0,
+            q: 9.1,
+            energy: 52.0,
+        });
+        let trig = cluster_tiles(vec![loud, tile(100.002, 200.0, 8.0, 40.0)]);
+        assert_eq!(trig.len(), 1);
+        let t = &trig[0];
+        assert_eq!(
+            (t.t_peak, t.f_peak, t.q, t.energy),
+            (100.003, 203.0, 9.1, 52.0)
+        );
+        assert!((t.snr - (2.0f64 * 51.0).sqrt()).abs() < 1e-12);
+        assert!(t.t_start < 100.0 && t.t_end > 100.003);
+        // refine_peaks refines the kept tile only.
+        let mut calls = 0;
+        let out = refine_peaks(
+            vec![
+                tile(100.0, 200.0, 8.0, 50.0),
+                tile(100.002, 200.0, 8.0, 40.0),
+            ],
+            |t, _| {
+                calls += 1;
+                Refined {
+                    t_gps: t.t_gps,
+                    f_hz: t.f_hz,
+                    q: t.q,
+                    energy: t.energy,
+                }
+            },
+        );
+        assert_eq!((calls, out.len()), (1, 2));
+        assert_eq!(out.iter().filter(|t| t.refined.is_some()).count(), 1);
+    }
+
     #[test]
     fn snr_energy_inverse() {
         for s in [0.0, 5.5, 8.0, 100.0] {

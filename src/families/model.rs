@@ -545,7 +545,9 @@ mod tests {
     #[test]
     fn frequencies_on_rows_are_told_from_continuous_ones() {
         let rows = crate::tf::row_freqs(11.3, 16.0, 1024.0, 0.2);
-        let on: Vec<f64> = (0..400).map(|i| rows[(i * 7) % rows.len()].log2()).collect();
+        let on: Vec<f64> = (0..400)
+            .map(|i| rows[(i * 7) % rows.len()].log2())
+            .collect();
         assert!(frequencies_on_rows(&on));
         let cont: Vec<f64> = (0..400)
             .map(|i| (16.0 * (64f64).powf((i as f64 * 0.618_034) % 1.0)).log2())
