@@ -10,25 +10,34 @@ use serde::{Deserialize, Serialize};
 /// One transient found in one channel.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Trigger {
-    /// Time of the loudest tile \[GPS s\].
+    /// Peak time \[GPS s\]: the time of the maximum tile energy, located
+    /// between the tiles (see [`crate::tf::QPlan::refine`]); the loudest
+    /// tile's time when not refined.
     pub t_peak: f64,
     /// Start of the trigger's extent \[GPS s\].
     pub t_start: f64,
     /// End of the trigger's extent \[GPS s\].
     pub t_end: f64,
-    /// Centre frequency of the loudest tile \[Hz\].
+    /// Peak frequency \[Hz\]: the centre frequency of the maximum tile
+    /// energy, located between the rows and planes (see
+    /// [`crate::tf::QPlan::refine`]); the loudest tile's when not refined.
     pub f_peak: f64,
     /// Lower edge of the trigger's frequency extent \[Hz\].
     pub f_low: f64,
     /// Upper edge of the trigger's frequency extent \[Hz\].
     pub f_high: f64,
-    /// Signal-to-noise ratio of the loudest tile, `sqrt(2 (Z - 1))`.
+    /// Signal-to-noise ratio at the peak, `sqrt(2 (Z - 1))` of the refined
+    /// maximum energy (which removes the tiling's mismatch loss).
     pub snr: f64,
-    /// Quality factor: estimated between the Q planes from the loudest
-    /// tile of each plane at the peak (see [`cluster_tiles`]); the loudest
-    /// tile's own Q when only its plane is significant.
+    /// Quality factor at the peak, located between the planes (see
+    /// [`crate::tf::QPlan::refine`], started from the between-plane
+    /// estimate of [`cluster_tiles`]). Scans keep it within the searched
+    /// `[qmin, qmax]`: a Q equal to qmin or qmax means at or beyond that
+    /// edge. Unrefined (tiles clustered without a scan): the between-plane
+    /// estimate, which may fall outside the range.
     pub q: f64,
-    /// Normalised energy Z of the loudest tile.
+    /// Normalised energy Z at the peak (refined maximum; the loudest
+    /// tile's when not refined).
     pub energy: f64,
 }
 
@@ -42,7 +51,7 @@ pub fn energy_from_snr(snr: f64) -> f64 {
     1.0 + 0.5 * snr * snr
 }
 
-use crate::tf::Tile;
+use crate::tf::{Refined, Tile};
 
 /// Largest gap \[s\] between the time extents of kept tiles that still
 /// makes them one trigger (common practice: a loud transient's tiles at
@@ -67,10 +76,37 @@ pub const CLUSTER_GAP_S: f64 = 0.1;
 ///    searched within one plane step of the observed planes.
 ///
 /// Returns triggers sorted by `t_peak`.
-pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
+pub fn cluster_tiles(tiles: Vec<Tile>) -> Vec<Trigger> {
     if tiles.is_empty() {
         return Vec::new();
     }
+    let mut kept = suppress(tiles);
+    kept.sort_by(|a, b| {
+        (a.0.t_gps - a.0.half_duration()).total_cmp(&(b.0.t_gps - b.0.half_duration()))
+    });
+    let mut out = Vec::new();
+    let mut group: Vec<(Tile, PlanePeaks)> = Vec::new();
+    let mut group_end = f64::NEG_INFINITY;
+    for (tile, peaks) in kept {
+        if !group.is_empty() && tile.t_gps - tile.half_duration() > group_end + CLUSTER_GAP_S {
+            out.push(trigger_of(&group));
+            group.clear();
+        }
+        group_end = if group.is_empty() {
+            tile.t_gps + tile.half_duration()
+        } else {
+            group_end.max(tile.t_gps + tile.half_duration())
+        };
+        group.push((tile, peaks));
+    }
+    out.push(trigger_of(&group));
+    out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
+    out
+}
+
+/// Step 1 of [`cluster_tiles`]: the tiles kept (loudest first, overlapping
+/// no louder kept tile), each with the loudest tile of every plane it removed.
+fn suppress(mut tiles: Vec<Tile>) -> Vec<(Tile, PlanePeaks)> {
     tiles.sort_by(|a, b| b.energy.total_cmp(&a.energy));
     let max_half = tiles.iter().map(Tile::half_duration).fold(0.0, f64::max);
     // Kept tiles indexed by centre time (ns) for range queries.
@@ -104,26 +140,35 @@ pub fn cluster_tiles(mut tiles: Vec<Tile>) -> Vec<Trigger> {
             }
         }
     }
-    kept.sort_by(|a, b| {
-        (a.0.t_gps - a.0.half_duration()).total_cmp(&(b.0.t_gps - b.0.half_duration()))
-    });
-    let mut out = Vec::new();
-    let mut group: Vec<(Tile, PlanePeaks)> = Vec::new();
-    let mut group_end = f64::NEG_INFINITY;
-    for (tile, peaks) in kept {
-        if !group.is_empty() && tile.t_gps - tile.half_duration() > group_end + CLUSTER_GAP_S {
-            out.push(trigger_of(&group));
-            group.clear();
-        }
-        group_end = if group.is_empty() {
-            tile.t_gps + tile.half_duration()
-        } else {
-            group_end.max(tile.t_gps + tile.half_duration())
-        };
-        group.push((tile, peaks));
+    kept
+}
+
+/// Set [`Tile::refined`] on the tiles that may become a trigger's peak —
+/// those kept by step 1 of [`cluster_tiles`] — with `refine(tile, q̂)`,
+/// `q̂` the between-plane Q estimate of [`cluster_tiles`] step 3. The scan
+/// calls this per block, where the whitened data are at hand; a trigger's
+/// peak tile is kept within its own block, so it is refined there.
+pub fn refine_peaks(tiles: Vec<Tile>, mut refine: impl FnMut(&Tile, f64) -> Refined) -> Vec<Tile> {
+    if tiles.is_empty() {
+        return tiles;
     }
-    out.push(trigger_of(&group));
-    out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
+    let n = tiles.len();
+    let mut out: Vec<Tile> = Vec::with_capacity(n);
+    let rest = tiles.clone();
+    for (tile, peaks) in suppress(tiles) {
+        let mut t = tile;
+        t.refined = Some(refine(&tile, peaks.estimate_q(tile.q)));
+        out.push(t);
+    }
+    // The tiles not kept, unchanged (kept ones are bit-identical entries).
+    let kept_keys: std::collections::HashSet<(u64, u64, u64)> = out
+        .iter()
+        .map(|t| (t.t_gps.to_bits(), t.f_hz.to_bits(), t.q.to_bits()))
+        .collect();
+    out.extend(
+        rest.into_iter()
+            .filter(|t| !kept_keys.contains(&(t.t_gps.to_bits(), t.f_hz.to_bits(), t.q.to_bits()))),
+    );
     out
 }
 
@@ -186,20 +231,28 @@ fn trigger_of(group: &[(Tile, PlanePeaks)]) -> Trigger {
     let fold = |f: fn(&Tile) -> f64, init: f64, pick: fn(f64, f64) -> f64| {
         group.iter().map(|g| f(&g.0)).fold(init, pick)
     };
+    // The peak refined between tiles, rows and planes when the scan did so;
+    // else the loudest tile with the between-plane Q estimate.
+    let r = peak.refined.unwrap_or(Refined {
+        t_gps: peak.t_gps,
+        f_hz: peak.f_hz,
+        q: peaks.estimate_q(peak.q),
+        energy: peak.energy,
+    });
     Trigger {
-        t_peak: peak.t_gps,
+        t_peak: r.t_gps,
         t_start: fold(|t| t.t_gps - t.half_duration(), f64::INFINITY, f64::min),
         t_end: fold(|t| t.t_gps + t.half_duration(), f64::NEG_INFINITY, f64::max),
-        f_peak: peak.f_hz,
+        f_peak: r.f_hz,
         f_low: fold(
             |t| (t.f_hz - t.half_bandwidth()).max(0.0),
             f64::INFINITY,
             f64::min,
         ),
         f_high: fold(|t| t.f_hz + t.half_bandwidth(), f64::NEG_INFINITY, f64::max),
-        snr: snr_from_energy(peak.energy),
-        q: peaks.estimate_q(peak.q),
-        energy: peak.energy,
+        snr: snr_from_energy(r.energy),
+        q: r.q,
+        energy: r.energy,
     }
 }
 
@@ -213,6 +266,7 @@ mod tests {
             f_hz: f,
             q,
             energy: e,
+            refined: None,
         }
     }
 
@@ -255,6 +309,48 @@ mod tests {
         let mut one = PlanePeaks::default();
         one.note(&tile(0.0, 100.0, 11.314, 30.0));
         assert_eq!(one.estimate_q(11.314), 11.314);
+    }
+
+    /// A refined peak (set by the scan, see `tf::QPlan::refine`) replaces
+    /// the loudest tile's time, frequency, Q and energy; the extent still
+    /// comes from the tiles.
+    #[test]
+    fn refined_peak_is_reported() {
+        let mut loud = tile(100.0, 200.0, 8.0, 50.0);
+        loud.refined = Some(Refined {
+            t_gps: 100.003,
+            f_hz: 203.0,
+            q: 9.1,
+            energy: 52.0,
+        });
+        let trig = cluster_tiles(vec![loud, tile(100.002, 200.0, 8.0, 40.0)]);
+        assert_eq!(trig.len(), 1);
+        let t = &trig[0];
+        assert_eq!(
+            (t.t_peak, t.f_peak, t.q, t.energy),
+            (100.003, 203.0, 9.1, 52.0)
+        );
+        assert!((t.snr - (2.0f64 * 51.0).sqrt()).abs() < 1e-12);
+        assert!(t.t_start < 100.0 && t.t_end > 100.003);
+        // refine_peaks refines the kept tile only.
+        let mut calls = 0;
+        let out = refine_peaks(
+            vec![
+                tile(100.0, 200.0, 8.0, 50.0),
+                tile(100.002, 200.0, 8.0, 40.0),
+            ],
+            |t, _| {
+                calls += 1;
+                Refined {
+                    t_gps: t.t_gps,
+                    f_hz: t.f_hz,
+                    q: t.q,
+                    energy: t.energy,
+                }
+            },
+        );
+        assert_eq!((calls, out.len()), (1, 2));
+        assert_eq!(out.iter().filter(|t| t.refined.is_some()).count(), 1);
     }
 
     #[test]

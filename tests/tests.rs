@@ -5,6 +5,7 @@
 /// Scale-out CLI end to end on the demo (plan, run-plan, merge vs one scan).
 mod plan_cli;
 mod plan_shards;
+mod scan_offgrid;
 mod scan_reference;
 
 // Coupling: tail probabilities against SciPy fixtures.

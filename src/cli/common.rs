@@ -50,6 +50,11 @@ pub struct ScanFlags {
     /// Block length [s] [default: derived from the padding, at least 32 s].
     #[arg(long, value_name = "S")]
     pub block_s: Option<f64>,
+    /// Refine each trigger's peak time, frequency, Q and SNR between tiles,
+    /// rows and planes (off by default: the families are tuned on peaks on
+    /// the tiling grid; see README).
+    #[arg(long)]
+    pub refine_peaks: bool,
 }
 
 impl ScanFlags {
@@ -64,6 +69,7 @@ impl ScanFlags {
             qmax: self.qmax,
             mismatch: self.mismatch,
             block_s: self.block_s,
+            refine_peaks: self.refine_peaks,
         };
         p.check()?;
         Ok(p)

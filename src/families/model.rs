@@ -171,6 +171,32 @@ pub struct FamilyModel {
     /// models made before [`ClusterParams::starts`]).
     #[serde(default)]
     pub starts: Vec<StartSummary>,
+    /// Peak frequencies of the fitted triggers sit on the tiling's rows
+    /// (catalogues scanned before peaks were refined between rows), so
+    /// log2 f is dequantised by [`log2_row_spacing`]; false when they are
+    /// continuous (see [`frequencies_on_rows`]). Models made before this
+    /// field: true.
+    #[serde(default = "yes")]
+    pub f_on_rows: bool,
+}
+
+fn yes() -> bool {
+    true
+}
+
+/// Whether peak frequencies (any monotone function of them, e.g. log2 f)
+/// sit on a grid: at least a quarter of the values repeat one another.
+/// Peaks on the tiling's rows repeat as soon as there are more triggers
+/// than rows; peaks refined between rows (see [`crate::tf::QPlan::refine`])
+/// are continuous and repeat only by rounding to f32. Few triggers on rows
+/// seldom repeat and need no dequantisation either: a Gaussian mixture
+/// only degenerates on values that repeat.
+pub fn frequencies_on_rows(values: &[f64]) -> bool {
+    let mut d: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+    let n = d.len();
+    d.sort_by(f64::total_cmp);
+    d.dedup();
+    n >= 2 && 4 * (n - d.len()) >= n
 }
 
 /// Below this mean agreement of the kept start with the others the
@@ -229,9 +255,11 @@ const SCALAR_LN_Q: usize = 4;
 /// Spacing \[log2 Hz\] of the frequency rows of the Q plane `exp(ln_q)` in
 /// the default tiling (maximum mismatch 0.2): rows are geometric with ratio
 /// `exp(2 s / sqrt(2 + Q²))`, `s` the mismatch step (Chatterji et al. 2004).
-/// Peak frequencies sit on these rows, so they are dequantised by it. Trigger
-/// Q is estimated between the planes (see [`crate::trigger::cluster_tiles`]),
-/// so this is the spacing at that Q, within a factor 2 of the peak plane's.
+/// Peak frequencies of catalogues scanned before peaks were refined sit on
+/// these rows, so they are dequantised by it (see [`FamilyModel::f_on_rows`]).
+/// Trigger Q is estimated between the planes (see
+/// [`crate::trigger::cluster_tiles`]), so this is the spacing at that Q,
+/// within a factor 2 of the peak plane's.
 pub fn log2_row_spacing(ln_q: f64) -> f64 {
     let q = ln_q.exp();
     2.0 * crate::tf::mismatch_step(0.2) / (2.0 + q * q).sqrt() / std::f64::consts::LN_2
@@ -346,7 +374,7 @@ impl FamilyModel {
             .iter()
             .enumerate()
             .map(|(j, &c)| {
-                let step = if c == SCALAR_LOG2_F && sc.len() > SCALAR_LN_Q {
+                let step = if c == SCALAR_LOG2_F && self.f_on_rows && sc.len() > SCALAR_LN_Q {
                     log2_row_spacing(sc[SCALAR_LN_Q] as f64)
                 } else {
                     self.dequant_step.get(j).copied().unwrap_or(0.0)
@@ -501,6 +529,11 @@ pub fn fit_model(
         dequant_step,
         map_peak_norm: true,
         starts: vec![],
+        f_on_rows: frequencies_on_rows(
+            &fps.iter()
+                .map(|f| f.1[SCALAR_LOG2_F] as f64)
+                .collect::<Vec<_>>(),
+        ),
     };
     let sc = Array2::from_shape_fn((n, model.scalar_cols.len()), |(i, j)| {
         model.raw_scalars(&fps[i].1)[j]
@@ -639,6 +672,25 @@ mod tests {
         let (g, n) = group_resp(&resp, 3, &[0, 0, 1]);
         assert_eq!(n, 2);
         assert_eq!(&g[2..4], &[1.0, 0.0]);
+    }
+
+    /// Peak frequencies on the rows of the default tiling (Chatterji et al.
+    /// 2004 row layout, via `tf::row_freqs`) repeat and are dequantised;
+    /// refined, continuous ones are not.
+    #[test]
+    fn frequencies_on_rows_are_told_from_continuous_ones() {
+        let rows = crate::tf::row_freqs(11.3, 16.0, 1024.0, 0.2);
+        let on: Vec<f64> = (0..400)
+            .map(|i| rows[(i * 7) % rows.len()].log2())
+            .collect();
+        assert!(frequencies_on_rows(&on));
+        let cont: Vec<f64> = (0..400)
+            .map(|i| (16.0 * (64f64).powf((i as f64 * 0.618_034) % 1.0)).log2())
+            .collect();
+        assert!(!frequencies_on_rows(&cont));
+        // f32 storage rounds continuous values but hardly makes them repeat.
+        let cont32: Vec<f64> = cont.iter().map(|&v| v as f32 as f64).collect();
+        assert!(!frequencies_on_rows(&cont32));
     }
 
     #[test]
