@@ -7,6 +7,8 @@
 //! (0: peak frequency and Q only), `OVERLAP` (component grouping), `SEED`,
 //! `NINIT` (seeded initialisations per fit), `STARTS` (seeded starts whose
 //! medoid partition is kept).
+//! `REFINE=1` (prep, eval, stability): scan with `refine_peaks` into
+//! `lab_refine.db` beside `lab.db`.
 //! `... -- DIR stability` clusters each scenario seed with clustering
 //! seeds 0..`SEEDS` (default 6; other settings as for `eval`) and prints
 //! the ARI against the truth of each.
@@ -21,6 +23,16 @@ use rayon::prelude::*;
 use std::io::Write;
 use std::path::Path;
 
+/// The scanned catalogue of a scenario directory: `lab.db`, or
+/// `lab_refine.db` with `REFINE=1` (peaks refined off the grid).
+fn lab_db() -> &'static str {
+    if env_or("REFINE", 0) == 1 {
+        "lab_refine.db"
+    } else {
+        "lab.db"
+    }
+}
+
 fn scan_target(dir: &Path, db: &Path, target: &str, segments: &Path) -> Result<()> {
     if db.exists() {
         return Ok(());
@@ -28,7 +40,11 @@ fn scan_target(dir: &Path, db: &Path, target: &str, segments: &Path) -> Result<(
     let (seg, _) = read_segments_file(segments)?;
     let bundle = Bundle::open(dir)?;
     let spec = bundle.channels.iter().find(|c| c.name == target).unwrap();
-    let scan = scan_channel(spec, &ScanParams::default(), Some(&seg), &|_| {})?;
+    let p = ScanParams {
+        refine_peaks: env_or("REFINE", 0) == 1,
+        ..ScanParams::default()
+    };
+    let scan = scan_channel(spec, &p, Some(&seg), &|_| {})?;
     let mut conn = catalogue::open(db)?;
     let tx = conn.transaction()?;
     catalogue::insert_channel_scan(&tx, &scan, &std::fs::canonicalize(dir)?)?;
@@ -92,7 +108,7 @@ fn env_or<T: std::str::FromStr>(k: &str, d: T) -> T {
 /// opened, with its map source.
 fn scratch_copy(dir: &Path, db: &Path) -> Result<(rusqlite::Connection, BundleMaps)> {
     let _ = std::fs::remove_file(db);
-    std::fs::copy(dir.join("lab.db"), db)?;
+    std::fs::copy(dir.join(lab_db()), db)?;
     let conn = catalogue::open(db)?;
     let src = BundleMaps::from_catalogue(&conn)?;
     Ok((conn, src))
@@ -154,7 +170,7 @@ fn eval(base: &Path) -> Result<()> {
             print!("{}", sc.render());
         }
         // Features stay for the next evaluation.
-        let _ = std::fs::copy(&db, dir.join("lab.db"));
+        let _ = std::fs::copy(&db, dir.join(lab_db()));
     }
     let dir = base.join("demo_s1");
     let db = base.join("eval_demo.db");
@@ -227,7 +243,7 @@ fn main() -> Result<()> {
             )?;
         }
         let target = glitchbook::scenario::model::TARGET_CHANNEL;
-        let db = dir.join("lab.db");
+        let db = dir.join(lab_db());
         scan_target(&dir, &db, target, &dir.join("segments.txt"))?;
         let truth = glitchbook::scenario::truth::read_truth(&dir.join("truth.csv"))?;
         let conn = catalogue::open(&db)?;
@@ -259,7 +275,7 @@ fn main() -> Result<()> {
         )?;
     }
     let target = glitchbook::demo::TARGET_CHANNEL;
-    let db = dir.join("lab.db");
+    let db = dir.join(lab_db());
     scan_target(&dir, &db, target, &dir.join("segments.txt"))?;
     let truth = glitchbook::demo::read_truth(&dir.join("truth.csv"))?;
     let conn = catalogue::open(&db)?;

@@ -152,7 +152,7 @@ fn two_days_of_one_channel() {
     // The families came from 5 seeded starts and the page says how far
     // they agreed.
     assert!(
-        page.contains(" of 5 seeded starts, the one agreeing best"),
+        page.contains("The clustering ran from 5 seeds and kept seed "),
         "{page}"
     );
     // Every glitch of both days is found in its own day's data by the maps.

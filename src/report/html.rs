@@ -572,11 +572,10 @@ fn starts_line(o: &mut String, starts: &[crate::families::StartSummary]) {
         .fold(f64::INFINITY, f64::min);
     let _ = writeln!(
         o,
-        "<p>Families from the start with seed {} of {} seeded starts, the one agreeing best \
-         with the others: mean adjusted Rand index {:.2} with the other starts (least agreeing \
-         start {:.2}).</p>",
-        kept.seed,
+        "<p>The clustering ran from {} seeds and kept seed {}, whose families agree best with \
+         the other runs': mean adjusted Rand index {:.2} (least agreeing run {:.2}).</p>",
         starts.len(),
+        kept.seed,
         kept.agreement,
         least
     );
