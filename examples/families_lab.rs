@@ -7,8 +7,9 @@
 //! (0: peak frequency and Q only), `OVERLAP` (component grouping), `SEED`,
 //! `NINIT` (seeded initialisations per fit), `STARTS` (seeded starts whose
 //! medoid partition is kept).
-//! `REFINE=1` (prep, eval, stability): scan with `refine_peaks` into
-//! `lab_refine.db` beside `lab.db`.
+//! `REFINE=0` (prep, eval, stability): peaks on the tiling grid, in
+//! `lab.db`; the default (`REFINE=1`, as the product) refines them, in
+//! `lab_refine.db`.
 //! `... -- DIR stability` clusters each scenario seed with clustering
 //! seeds 0..`SEEDS` (default 6; other settings as for `eval`) and prints
 //! the ARI against the truth of each.
@@ -23,10 +24,10 @@ use rayon::prelude::*;
 use std::io::Write;
 use std::path::Path;
 
-/// The scanned catalogue of a scenario directory: `lab.db`, or
-/// `lab_refine.db` with `REFINE=1` (peaks refined off the grid).
+/// The scanned catalogue of a scenario directory: `lab_refine.db` (peaks
+/// refined off the grid, the default), or `lab.db` with `REFINE=0`.
 fn lab_db() -> &'static str {
-    if env_or("REFINE", 0) == 1 {
+    if env_or("REFINE", 1) == 1 {
         "lab_refine.db"
     } else {
         "lab.db"
@@ -41,7 +42,7 @@ fn scan_target(dir: &Path, db: &Path, target: &str, segments: &Path) -> Result<(
     let bundle = Bundle::open(dir)?;
     let spec = bundle.channels.iter().find(|c| c.name == target).unwrap();
     let p = ScanParams {
-        refine_peaks: env_or("REFINE", 0) == 1,
+        refine_peaks: env_or("REFINE", 1) == 1,
         ..ScanParams::default()
     };
     let scan = scan_channel(spec, &p, Some(&seg), &|_| {})?;

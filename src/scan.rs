@@ -35,9 +35,8 @@ pub struct ScanParams {
     pub block_s: Option<f64>,
     /// Refine each trigger's peak time, frequency, Q and SNR between tiles,
     /// rows and planes ([`crate::tf::QPlan::refine`]; Q then stays within
-    /// `qmin..=qmax`). Default false: the families are tuned on peaks on
-    /// the tiling grid and lose ARI 0.85–0.97 → 0.67–0.70 on the second
-    /// scenario with refined peaks (README, "Trigger parameters").
+    /// `qmin..=qmax`). Default true; false reports the loudest tile's
+    /// values, on the tiling grid (README, "Trigger parameters").
     #[serde(default)]
     pub refine_peaks: bool,
 }
@@ -52,7 +51,7 @@ impl Default for ScanParams {
             qmax: 64.0,
             mismatch: 0.2,
             block_s: None,
-            refine_peaks: false,
+            refine_peaks: true,
         }
     }
 }

@@ -50,11 +50,11 @@ pub struct ScanFlags {
     /// Block length [s] [default: derived from the padding, at least 32 s].
     #[arg(long, value_name = "S")]
     pub block_s: Option<f64>,
-    /// Refine each trigger's peak time, frequency, Q and SNR between tiles,
-    /// rows and planes (off by default: the families are tuned on peaks on
-    /// the tiling grid; see README).
+    /// Report each trigger's loudest tile as it is, on the tiling grid,
+    /// instead of refining its peak time, frequency, Q and SNR between
+    /// tiles, rows and planes.
     #[arg(long)]
-    pub refine_peaks: bool,
+    pub grid_peaks: bool,
 }
 
 impl ScanFlags {
@@ -69,7 +69,7 @@ impl ScanFlags {
             qmax: self.qmax,
             mismatch: self.mismatch,
             block_s: self.block_s,
-            refine_peaks: self.refine_peaks,
+            refine_peaks: !self.grid_peaks,
         };
         p.check()?;
         Ok(p)
