@@ -524,6 +524,12 @@ impl EnergyMapSource for BundleMaps {
         self.scan_at(channel, t_gps).is_ok()
     }
 
+    fn analysed_at(&self, channel: &str, t_gps: f64) -> bool {
+        self.channels
+            .get(channel)
+            .is_some_and(|cd| cd.scans.iter().any(|s| s.analysed.contains(t_gps)))
+    }
+
     fn scan_band(&self, channel: &str, t_gps: f64) -> Option<ScanBand> {
         // The band of the scan whose data holds the time (the one its map is
         // made from), else the latest scan's (scans are kept latest first).

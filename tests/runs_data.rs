@@ -535,3 +535,27 @@ fn demo_as_frame_files() {
         "{toml}"
     );
 }
+
+/// A time in a dropout (NaN samples) inside a scan's span: the scan's maps
+/// claim it (`has_data_at`, so a refined peak just past a segment's edge
+/// keeps its map) but it is not analysed time (`analysed_at`), which is
+/// what an aux channel's witness image needs: `report` once failed with
+/// "GPS ... is not in valid data" when a family's first member fell in the
+/// witness's dropout.
+#[test]
+fn a_dropout_is_in_the_span_but_not_analysed() {
+    let d = Dir::new();
+    let n = (DAY_S * RATE) as usize;
+    let mut x = series(3, T0, n, &day_glitches(0, T0));
+    let (a, b) = ((40.0 * RATE) as usize, (50.0 * RATE) as usize);
+    x[a..b].iter_mut().for_each(|v| *v = f64::NAN);
+    npy_bundle(&d, "gap", "AV7:STRAIN", &x, T0);
+    scan(&d, "gap", &[]);
+    let conn = glitchbook::catalogue::open(&d.db()).unwrap();
+    let maps = glitchbook::maps::BundleMaps::from_catalogue(&conn).unwrap();
+    let in_gap = T0 + 45.0;
+    assert!(maps.has_data_at("AV7:STRAIN", in_gap));
+    assert!(!maps.analysed_at("AV7:STRAIN", in_gap));
+    assert!(maps.analysed_at("AV7:STRAIN", T0 + 20.0));
+    assert!(!maps.analysed_at("AV7:OTHER", T0 + 20.0));
+}

@@ -168,6 +168,15 @@ pub trait EnergyMapSource: Sync {
         self.has_data(channel)
     }
 
+    /// Whether GPS `t_gps` lies inside the analysed time of a scan of
+    /// `channel`: stricter than [`EnergyMapSource::has_data_at`], which
+    /// also accepts a time in a dropout within a scan's span (a trigger's
+    /// refined peak may sit just past its segment's edge). Used to choose
+    /// the time of an aux channel's image.
+    fn analysed_at(&self, channel: &str, t_gps: f64) -> bool {
+        self.has_data_at(channel, t_gps)
+    }
+
     /// What the scan of `channel` that holds GPS `t_gps` analysed (band and
     /// threshold), when known; images use it for their frequency range and
     /// colour scale. Scans of one channel may differ (a re-scan with

@@ -297,7 +297,9 @@ fn render_thumbnails_of(
         // channel's analysed time can start later than the target's: a
         // longer padding, another day's bundle not scanned for it).
         for (_, aux, window_s) in witnesses.iter().filter(|w| w.0 == f.id) {
-            if let Some(row) = rows.iter().find(|r| src.has_data_at(aux, r.trig.t_peak)) {
+            // A member at a time the aux channel was analysed (not in one
+            // of its dropouts).
+            if let Some(row) = rows.iter().find(|r| src.analysed_at(aux, r.trig.t_peak)) {
                 let p = dir.join(format!("family_{}_trigger_{}_aux.png", f.id, row.id));
                 out.push(witness_image(conn, src, (f.id, row), aux, *window_s, p)?);
             }
