@@ -80,7 +80,10 @@ pub fn cluster_tiles(tiles: Vec<Tile>) -> Vec<Trigger> {
     if tiles.is_empty() {
         return Vec::new();
     }
-    let mut kept = suppress(tiles);
+    let mut kept: Vec<(Tile, PlanePeaks)> = suppress(&tiles)
+        .into_iter()
+        .map(|(i, peaks)| (tiles[i], peaks))
+        .collect();
     kept.sort_by(|a, b| {
         (a.0.t_gps - a.0.half_duration()).total_cmp(&(b.0.t_gps - b.0.half_duration()))
     });
@@ -104,16 +107,19 @@ pub fn cluster_tiles(tiles: Vec<Tile>) -> Vec<Trigger> {
     out
 }
 
-/// Step 1 of [`cluster_tiles`]: the tiles kept (loudest first, overlapping
-/// no louder kept tile), each with the loudest tile of every plane it removed.
-fn suppress(mut tiles: Vec<Tile>) -> Vec<(Tile, PlanePeaks)> {
-    tiles.sort_by(|a, b| b.energy.total_cmp(&a.energy));
+/// Step 1 of [`cluster_tiles`]: the indices into `tiles` of the tiles kept
+/// (loudest first, overlapping no louder kept tile), each with the loudest
+/// tile of every plane it removed.
+fn suppress(tiles: &[Tile]) -> Vec<(usize, PlanePeaks)> {
+    let mut order: Vec<usize> = (0..tiles.len()).collect();
+    order.sort_by(|&a, &b| tiles[b].energy.total_cmp(&tiles[a].energy));
     let max_half = tiles.iter().map(Tile::half_duration).fold(0.0, f64::max);
     // Kept tiles indexed by centre time (ns) for range queries.
     let mut kept_by_time: std::collections::BTreeMap<i64, Vec<usize>> = Default::default();
-    let mut kept: Vec<(Tile, PlanePeaks)> = Vec::new();
+    let mut kept: Vec<(usize, PlanePeaks)> = Vec::new();
     let key = |t: f64| (t * 1e9).round() as i64;
-    for tile in tiles {
+    for i in order {
+        let tile = &tiles[i];
         let (hd, hb) = (tile.half_duration(), tile.half_bandwidth());
         let lo = key(tile.t_gps - hd - max_half);
         let hi = key(tile.t_gps + hd + max_half);
@@ -122,21 +128,21 @@ fn suppress(mut tiles: Vec<Tile>) -> Vec<(Tile, PlanePeaks)> {
             .flat_map(|(_, v)| v)
             .copied()
             .find(|&j| {
-                let k = &kept[j].0;
+                let k = &tiles[kept[j].0];
                 (k.t_gps - tile.t_gps).abs() < hd + k.half_duration()
                     && (k.f_hz - tile.f_hz).abs() < hb + k.half_bandwidth()
             });
         match over {
             // Tiles come loudest first: the first of a plane is its loudest.
-            Some(j) => kept[j].1.note(&tile),
+            Some(j) => kept[j].1.note(tile),
             None => {
                 kept_by_time
                     .entry(key(tile.t_gps))
                     .or_default()
                     .push(kept.len());
                 let mut peaks = PlanePeaks::default();
-                peaks.note(&tile);
-                kept.push((tile, peaks));
+                peaks.note(tile);
+                kept.push((i, peaks));
             }
         }
     }
@@ -148,28 +154,15 @@ fn suppress(mut tiles: Vec<Tile>) -> Vec<(Tile, PlanePeaks)> {
 /// `q̂` the between-plane Q estimate of [`cluster_tiles`] step 3. The scan
 /// calls this per block, where the whitened data are at hand; a trigger's
 /// peak tile is kept within its own block, so it is refined there.
-pub fn refine_peaks(tiles: Vec<Tile>, mut refine: impl FnMut(&Tile, f64) -> Refined) -> Vec<Tile> {
-    if tiles.is_empty() {
-        return tiles;
+pub fn refine_peaks(
+    mut tiles: Vec<Tile>,
+    mut refine: impl FnMut(&Tile, f64) -> Refined,
+) -> Vec<Tile> {
+    for (i, peaks) in suppress(&tiles) {
+        let r = refine(&tiles[i], peaks.estimate_q(tiles[i].q));
+        tiles[i].refined = Some(r);
     }
-    let n = tiles.len();
-    let mut out: Vec<Tile> = Vec::with_capacity(n);
-    let rest = tiles.clone();
-    for (tile, peaks) in suppress(tiles) {
-        let mut t = tile;
-        t.refined = Some(refine(&tile, peaks.estimate_q(tile.q)));
-        out.push(t);
-    }
-    // The tiles not kept, unchanged (kept ones are bit-identical entries).
-    let kept_keys: std::collections::HashSet<(u64, u64, u64)> = out
-        .iter()
-        .map(|t| (t.t_gps.to_bits(), t.f_hz.to_bits(), t.q.to_bits()))
-        .collect();
-    out.extend(
-        rest.into_iter()
-            .filter(|t| !kept_keys.contains(&(t.t_gps.to_bits(), t.f_hz.to_bits(), t.q.to_bits()))),
-    );
-    out
+    tiles
 }
 
 /// The loudest tile energy of each Q plane around a kept tile.
