@@ -228,16 +228,9 @@ pub fn run_cluster(g: &Global, a: ClusterArgs) -> Result<ExitCode> {
 /// Say which seeded start was kept and how far the starts agreed; warn
 /// when the families depend on the seed.
 fn say_starts(g: &Global, starts: &[families::StartSummary]) {
-    let Some(kept) = starts.iter().find(|s| s.chosen) else {
+    let Some((kept, least)) = families::model::kept_start(starts) else {
         return;
     };
-    if starts.len() < 2 {
-        return;
-    }
-    let least = starts
-        .iter()
-        .map(|s| s.agreement)
-        .fold(f64::INFINITY, f64::min);
     g.info(&format!(
         "kept seed {} of {} seeded starts ({} families): mean agreement (adjusted Rand index) \
          with the other starts {:.2}; least agreeing start {:.2}",

@@ -225,8 +225,7 @@ pub fn spread_censored(
     if !at(edges.0) && !at(edges.1) {
         return value;
     }
-    let h = xxhash_rust::xxh3::xxh3_64_with_seed(key, 1000 + column as u64);
-    let u = ((h >> 11) as f64 + 0.5) / (1u64 << 53) as f64;
+    let u = hash_uniform(key, 1000 + column as u64);
     if at(edges.0) {
         value - u * width
     } else {
@@ -258,6 +257,20 @@ pub fn frequencies_on_rows(values: &[f64]) -> bool {
 /// in Steinley 2004, Psychological Methods 9, 386, from memory: ≥ 0.80
 /// good agreement, 0.65–0.80 moderate, below poor).
 pub const SEED_AGREEMENT_WARN: f64 = 0.8;
+
+/// The kept start and the least agreement of any start with the others,
+/// when there were several starts (None for one start or none recorded).
+pub fn kept_start(starts: &[StartSummary]) -> Option<(&StartSummary, f64)> {
+    if starts.len() < 2 {
+        return None;
+    }
+    let kept = starts.iter().find(|s| s.chosen)?;
+    let least = starts
+        .iter()
+        .map(|s| s.agreement)
+        .fold(f64::INFINITY, f64::min);
+    Some((kept, least))
+}
 
 /// One seeded start of the mixture selection (see [`ClusterParams::starts`]).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -346,9 +359,14 @@ pub fn dequantise(value: f64, step: f64, key: &[u8], column: usize) -> f64 {
     if step <= 0.0 {
         return value;
     }
-    let h = xxhash_rust::xxh3::xxh3_64_with_seed(key, column as u64);
-    let u = ((h >> 11) as f64 + 0.5) / (1u64 << 53) as f64;
-    value + (u - 0.5) * step
+    value + (hash_uniform(key, column as u64) - 0.5) * step
+}
+
+/// A number in (0, 1) from a hash of `key` and `seed`: the same trigger
+/// gets the same offset in every run.
+fn hash_uniform(key: &[u8], seed: u64) -> f64 {
+    let h = xxhash_rust::xxh3::xxh3_64_with_seed(key, seed);
+    ((h >> 11) as f64 + 0.5) / (1u64 << 53) as f64
 }
 
 /// Stored fingerprints as (maps, scalars) per trigger.

@@ -560,16 +560,9 @@ fn colour_legend(o: &mut String, d: &ReportData) {
 /// How far the seeded starts of the latest clustering agreed (nothing for
 /// a run with one start); a caution when the families hang on the seed.
 fn starts_line(o: &mut String, starts: &[crate::families::StartSummary]) {
-    let Some(kept) = starts.iter().find(|s| s.chosen) else {
+    let Some((kept, least)) = crate::families::model::kept_start(starts) else {
         return;
     };
-    if starts.len() < 2 {
-        return;
-    }
-    let least = starts
-        .iter()
-        .map(|s| s.agreement)
-        .fold(f64::INFINITY, f64::min);
     let _ = writeln!(
         o,
         "<p>The clustering ran from {} seeds and kept seed {}, whose families agree best with \
