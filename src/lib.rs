@@ -22,6 +22,7 @@ pub mod report;
 pub mod scan;
 pub mod scenario;
 pub mod segments;
+pub mod tails;
 pub mod tf;
 pub mod trigger;
 pub mod waveforms;

@@ -7,6 +7,8 @@ mod plan_cli;
 mod plan_shards;
 mod scan_offgrid;
 mod scan_reference;
+/// Noise tails per plane and row band (long; `.ci/run` runs it).
+mod scan_tails;
 
 // Coupling: tail probabilities against SciPy fixtures.
 mod coupling_stats;
