@@ -602,7 +602,14 @@ pub fn scan_source(
         .iter()
         .map(|b| Segment::new(t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs))
         .collect();
-    Ok((rp, analysed, cluster_tiles(tiles), checksum))
+    // Refined peaks already keep Q within the searched range; the
+    // between-plane estimate of grid peaks can leave it, so it is held at
+    // the edge it passed (a Q equal to qmin or qmax reads "at or beyond").
+    let mut triggers = cluster_tiles(tiles);
+    for t in &mut triggers {
+        t.q = t.q.clamp(rp.qmin, rp.qmax);
+    }
+    Ok((rp, analysed, triggers, checksum))
 }
 
 /// Conditioning of blocks of one length: Welch estimator, taper, high-pass
