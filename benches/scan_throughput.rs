@@ -7,7 +7,8 @@
 //!
 //! Run: `cargo bench --bench scan_throughput` (set GLITCHBOOK_BENCH_SECONDS
 //! to change the span, default 3600, and GLITCHBOOK_BENCH_BLOCK_S to set
-//! the block length instead of the default).
+//! the block length instead of the default, and GLITCHBOOK_BENCH_QMAX the
+//! highest Q instead of 64).
 
 mod common;
 
@@ -21,17 +22,18 @@ fn main() {
     let n = (fs * secs) as usize;
     let src = common::white_noise(secs, fs, 1e-21, 1_400_000_000.0, 1);
     let block_s = common::env_f64("GLITCHBOOK_BENCH_BLOCK_S");
+    let qmax = common::env_f64("GLITCHBOOK_BENCH_QMAX").unwrap_or(64.0);
     let params = ScanParams {
         fmin: Some(16.0),
         fmax: Some(1024.0),
         qmin: 4.0,
-        qmax: 64.0,
+        qmax,
         block_s,
         ..ScanParams::default()
     };
     let rp = resolve_params(&params, fs, None, None).unwrap();
     println!(
-        "scan throughput: {secs} s of {fs} Hz, fmin 16, fmax 1024, Q 4-64, block {} s, pad {} s",
+        "scan throughput: {secs} s of {fs} Hz, fmin 16, fmax 1024, Q 4-{qmax}, block {} s, pad {} s",
         rp.block_s, rp.pad_s
     );
 
@@ -41,7 +43,10 @@ fn main() {
     let block_n = (rp.block_s * fs) as usize;
     let step = block_n - 2 * (rp.pad_s * fs) as usize;
     let n_blocks = (n - block_n).div_ceil(step) + 1;
-    let tiling = common::TILING;
+    let tiling = glitchbook::tf::Tiling {
+        qmax,
+        ..common::TILING
+    };
     let plan = QPlan::new(
         fs,
         block_n,
