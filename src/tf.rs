@@ -230,13 +230,7 @@ impl Row {
         ifft: &mut dyn FnMut(usize) -> Arc<dyn Fft<f32>>,
     ) -> Option<Row> {
         let t_block = n as f64 / fs_hz;
-        let nbins = n / 2 + 1;
-        let half_width_hz = BISQUARE_HALF_WIDTH * f_hz / q;
-        let lo = ((f_hz - half_width_hz) * t_block).ceil().max(1.0) as usize;
-        let hi = (((f_hz + half_width_hz) * t_block).floor() as usize).min(nbins - 1);
-        if hi < lo {
-            return None;
-        }
+        let (lo, hi, half_width_hz) = window_bins(f_hz, q, t_block, n / 2 + 1)?;
         let (mut norm, mut norm4) = (0.0f64, 0.0f64);
         for k in lo..=hi {
             let nu = (k as f64 / t_block - f_hz) / half_width_hz;
@@ -268,6 +262,17 @@ impl Row {
             ifft: ifft(n_t),
         })
     }
+}
+
+/// The block bins `lo..=hi` under the bisquare window of a tile at `f_hz`
+/// of quality `q` (half-width `Δ = sqrt(11) f / Q`, returned third), for
+/// blocks of `t_block` seconds with `nbins` bins (bin 0 never included);
+/// None when no bin lies under it.
+fn window_bins(f_hz: f64, q: f64, t_block: f64, nbins: usize) -> Option<(usize, usize, f64)> {
+    let half = BISQUARE_HALF_WIDTH * f_hz / q;
+    let lo = ((f_hz - half) * t_block).ceil().max(1.0) as usize;
+    let hi = (((f_hz + half) * t_block).floor().max(0.0) as usize).min(nbins - 1);
+    (hi >= lo).then_some((lo, hi, half))
 }
 
 /// Independent values of `|y|²` among `kept` consecutive tiles of `row`.
@@ -831,13 +836,7 @@ impl QPlan {
         q: f64,
     ) -> Option<f64> {
         let t_block = self.n as f64 / self.fs_hz;
-        let nbins = whitened.len();
-        let half = BISQUARE_HALF_WIDTH * f_hz / q;
-        let lo = ((f_hz - half) * t_block).ceil().max(1.0) as usize;
-        let hi = (((f_hz + half) * t_block).floor().max(0.0) as usize).min(nbins - 1);
-        if hi < lo {
-            return None;
-        }
+        let (lo, hi, half) = window_bins(f_hz, q, t_block, whitened.len())?;
         let dphi = 2.0 * std::f64::consts::PI * (t_gps - t0_gps) / t_block;
         let rot = Complex::new(dphi.cos(), dphi.sin());
         let phase0 = (lo as f64 * dphi).rem_euclid(2.0 * std::f64::consts::PI);
