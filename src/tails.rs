@@ -10,6 +10,21 @@ use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
 
+/// The standard plan the tails are measured (and the significance
+/// calibrated) on: the scan's defaults for a 4096 Hz channel — fmin 16,
+/// fmax 1024, Q 4–64, mismatch 0.2.
+pub const STANDARD_TILING: Tiling = Tiling {
+    fmin: 16.0,
+    fmax: 1024.0,
+    qmin: 4.0,
+    qmax: 64.0,
+    mismatch: 0.2,
+};
+
+/// The scan's high-pass for [`STANDARD_TILING`]: raised cosine from fmin/2
+/// to 0.9 fmin \[Hz\].
+pub const STANDARD_HIGHPASS: (f64, f64) = (8.0, 14.4);
+
 /// Levels z at which tails are counted.
 pub const ZS: [f64; 4] = [8.0, 12.0, 14.0, 16.0];
 

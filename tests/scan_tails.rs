@@ -5,20 +5,20 @@
 //! noise in independent 32-s blocks: ignored in `cargo test` (about two
 //! minutes on two cores), run by `.ci/run`.
 
-use glitchbook::tails::{white_noise_tails, BANDS_HZ, ZS};
-use glitchbook::tf::Tiling;
+use glitchbook::tails::{white_noise_tails, BANDS_HZ, STANDARD_HIGHPASS, STANDARD_TILING, ZS};
 
 #[test]
 #[ignore = "long noise run (about two minutes on two cores); .ci/run runs it"]
 fn every_plane_and_row_band_has_an_exponential_tail_at_the_threshold() {
-    let tiling = Tiling {
-        fmin: 16.0,
-        fmax: 1024.0,
-        qmin: 4.0,
-        qmax: 64.0,
-        mismatch: 0.2,
-    };
-    let (qs, tally) = white_noise_tails(tiling, (8.0, 14.4), 4096.0, 32.0, 360_000.0, false, 7);
+    let (qs, tally) = white_noise_tails(
+        STANDARD_TILING,
+        STANDARD_HIGHPASS,
+        4096.0,
+        32.0,
+        360_000.0,
+        false,
+        7,
+    );
     let mut bad = Vec::new();
     for (p, q) in qs.iter().enumerate() {
         for (b, band) in BANDS_HZ.iter().enumerate() {

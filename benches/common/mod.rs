@@ -28,14 +28,9 @@ pub fn env_f64(name: &str) -> Option<f64> {
     std::env::var(name).ok().and_then(|s| s.parse().ok())
 }
 
-/// The benchmark plan: fmin 16, fmax 1024, Q 4–64, mismatch 0.2.
-pub const TILING: Tiling = Tiling {
-    fmin: 16.0,
-    fmax: 1024.0,
-    qmin: 4.0,
-    qmax: 64.0,
-    mismatch: 0.2,
-};
+/// The benchmark plan: fmin 16, fmax 1024, Q 4–64, mismatch 0.2
+/// (the plan the noise tails are calibrated on).
+pub const TILING: Tiling = glitchbook::tails::STANDARD_TILING;
 
 /// The scan's high-pass for that plan: raised cosine from fmin/2 to 0.9 fmin \[Hz\].
-pub const HIGHPASS: (f64, f64) = (8.0, 14.4);
+pub const HIGHPASS: (f64, f64) = glitchbook::tails::STANDARD_HIGHPASS;
