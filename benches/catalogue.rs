@@ -32,6 +32,7 @@ fn triggers(n: usize, t0: f64) -> Vec<Trigger> {
                 f_low: 0.8 * f,
                 f_high: 1.25 * f,
                 snr,
+                snr_eq: snr,
                 q: 4.0 + (i % 60) as f64,
                 energy: energy_from_snr(snr),
             }

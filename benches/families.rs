@@ -163,6 +163,7 @@ fn main() {
                 f_low: 0.8 * f,
                 f_high: 1.2 * f,
                 snr: 12.0,
+                snr_eq: 12.0,
                 q,
                 energy: 73.0,
             }

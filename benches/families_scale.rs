@@ -91,6 +91,7 @@ fn trigger_of(e: &SineGaussian) -> Trigger {
         f_low: e.f0_hz * (1.0 - 1.0 / e.q),
         f_high: e.f0_hz * (1.0 + 1.0 / e.q),
         snr: e.snr,
+        snr_eq: e.snr,
         q: e.q,
         energy: 1.0 + 0.5 * e.snr * e.snr,
     }

@@ -29,6 +29,8 @@ fn main() {
         qmin: 4.0,
         qmax,
         block_s,
+        // GLITCHBOOK_BENCH_CLUSTERS=0: single tiles only (`--no-clusters`).
+        clusters: common::env_f64("GLITCHBOOK_BENCH_CLUSTERS").is_none_or(|c| c != 0.0),
         ..ScanParams::default()
     };
     let rp = resolve_params(&params, fs, None, None).unwrap();

@@ -6,6 +6,7 @@
 #![deny(missing_docs)]
 
 pub mod catalogue;
+pub mod clusters;
 pub mod condition;
 pub mod coupling;
 pub mod demo;

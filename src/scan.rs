@@ -1,11 +1,12 @@
 //! Scanning one channel: split into valid stretches (analysis segments minus
 //! NaN dropouts), condition and tile each stretch in overlapping blocks, and
 //! cluster significant tiles into triggers.
+use crate::clusters::{TileCluster, CLUSTER_SIGNIFICANCE, PIXEL_SIGNIFICANCE};
 use crate::condition::{highpass_gain, tukey, whiten, Welch, WelchBuffers};
 use crate::io::{ChannelSpec, NpyReader};
 use crate::segments::{Segment, SegmentList};
-use crate::tf::{QPlan, Tile, Tiling, Workspace};
-use crate::trigger::{cluster_tiles, energy_from_snr, refine_peaks, Trigger};
+use crate::tf::{ClusterSpec, QPlan, Tile, Tiling, Workspace};
+use crate::trigger::{attach_clusters, cluster_tiles, energy_from_snr, refine_peaks, Trigger};
 use crate::Error;
 use anyhow::{anyhow, bail, Context, Result};
 use rayon::prelude::*;
@@ -39,6 +40,11 @@ pub struct ScanParams {
     /// values, on the tiling grid (README, "Trigger parameters").
     #[serde(default)]
     pub refine_peaks: bool,
+    /// Cluster connected tiles of each plane and report their equivalent
+    /// SNR; a cluster significant enough makes a trigger of its own (see
+    /// [`crate::clusters`]). Default true; false for scans made before.
+    #[serde(default)]
+    pub clusters: bool,
 }
 
 impl Default for ScanParams {
@@ -52,6 +58,7 @@ impl Default for ScanParams {
             mismatch: 0.2,
             block_s: None,
             refine_peaks: true,
+            clusters: true,
         }
     }
 }
@@ -142,6 +149,10 @@ pub struct ResolvedParams {
     /// [`ScanParams::refine_peaks`]; false for scans made before).
     #[serde(default)]
     pub refine_peaks: bool,
+    /// Tiles clustered (see [`ScanParams::clusters`]; false for scans
+    /// made before).
+    #[serde(default)]
+    pub clusters: bool,
 }
 
 /// The result of scanning one channel.
@@ -401,6 +412,7 @@ pub fn resolve_params(
         pad_s,
         welch_s,
         refine_peaks: p.refine_peaks,
+        clusters: p.clusters,
     })
 }
 
@@ -567,7 +579,7 @@ pub fn scan_source(
     let z_thr = energy_from_snr(rp.snr_threshold);
     let done = AtomicUsize::new(0);
     let total = blocks.len();
-    let results: Vec<Result<Vec<Tile>>> = blocks
+    let results: Vec<Result<(Vec<Tile>, Vec<TileCluster>)>> = blocks
         .par_iter()
         .map_init(HashMap::<usize, (Workspace, CondBuffers)>::new, |wss, b| {
             let (plan, conditioner) = &plans[&b.n];
@@ -575,10 +587,32 @@ pub fn scan_source(
                 .entry(b.n)
                 .or_insert_with(|| (plan.workspace(), conditioner.buffers()));
             let keep = (t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs);
-            let mut tiles = Vec::new();
+            let (mut tiles, mut clusters) = (Vec::new(), Vec::new());
             conditioner.whiten_block_with(src, b.i0, cb)?;
             let t0_block = t0 + b.i0 as f64 / fs;
-            plan.transform(&cb.whitened, t0_block, keep, z_thr, ws, &mut tiles);
+            if rp.clusters {
+                // Clusters may grow into the untapered half of the padding.
+                let spec = ClusterSpec {
+                    pixel_s: PIXEL_SIGNIFICANCE,
+                    min_significance: CLUSTER_SIGNIFICANCE,
+                    grow: (
+                        t0 + (b.i0 + pad / 2) as f64 / fs,
+                        t0 + (b.i0 + b.n - pad / 2) as f64 / fs,
+                    ),
+                };
+                plan.transform_clustered(
+                    &cb.whitened,
+                    t0_block,
+                    keep,
+                    z_thr,
+                    spec,
+                    ws,
+                    &mut tiles,
+                    &mut clusters,
+                );
+            } else {
+                plan.transform(&cb.whitened, t0_block, keep, z_thr, ws, &mut tiles);
+            }
             // Locate the candidate peaks between tiles, rows and planes
             // while this block's whitened data are at hand.
             let tiles = if rp.refine_peaks {
@@ -591,12 +625,14 @@ pub fn scan_source(
             progress(
                 done.fetch_add(1, Ordering::Relaxed) as f64 / total as f64 + 1.0 / total as f64,
             );
-            Ok(tiles)
+            Ok((tiles, clusters))
         })
         .collect();
-    let mut tiles = Vec::new();
+    let (mut tiles, mut clusters) = (Vec::new(), Vec::new());
     for r in results {
-        tiles.extend(r?);
+        let (t, c) = r?;
+        tiles.extend(t);
+        clusters.extend(c);
     }
     let analysed: SegmentList = blocks
         .iter()
@@ -609,6 +645,7 @@ pub fn scan_source(
     for t in &mut triggers {
         t.q = t.q.clamp(rp.qmin, rp.qmax);
     }
+    attach_clusters(&mut triggers, clusters, CLUSTER_SIGNIFICANCE);
     Ok((rp, analysed, triggers, checksum))
 }
 

@@ -29,6 +29,7 @@
 //! - Row arithmetic is single precision; everything that feeds it is already
 //!   of order one.
 
+use crate::clusters::{grow_clusters, GridRow, TileCluster, SEED_SIGNIFICANCE};
 use crate::condition::highpass_gain;
 use anyhow::{bail, Result};
 use rustfft::num_complex::Complex;
@@ -316,6 +317,25 @@ pub struct Workspace {
     /// Measured scale over expected mean, `μ̂ / Σ W² g²`, of every row of
     /// the last [`QPlan::transform`] (NaN for a row with no kept tile).
     rho: Vec<Vec<f64>>,
+    /// The plane being clustered: kept tiles' energies of every row, the
+    /// rows, the seed tiles and a bitmap of the tiles reached.
+    grid: Vec<f32>,
+    grid_len: usize,
+    grid_rows: Vec<GridRow>,
+    seeds: Vec<(u32, u32)>,
+    visited: Vec<u64>,
+}
+
+/// How [`QPlan::transform_clustered`] clusters tiles.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ClusterSpec {
+    /// Significance of a tile to join a cluster.
+    pub pixel_s: f64,
+    /// Clusters whose significance cannot reach this are not reported.
+    pub min_significance: f64,
+    /// Time range \[GPS s\] over which clusters may grow (at least the
+    /// kept range; beyond it, into the block's untapered padding).
+    pub grow: (f64, f64),
 }
 
 /// A significant tile.
@@ -485,6 +505,11 @@ impl QPlan {
             med: Vec::with_capacity(self.max_n_t),
             hot: Vec::with_capacity(self.max_n_t / CHUNK + 1),
             rho: self.rho_shape(),
+            grid: Vec::new(),
+            grid_len: 0,
+            grid_rows: Vec::new(),
+            seeds: Vec::new(),
+            visited: Vec::new(),
         }
     }
 
@@ -577,38 +602,147 @@ impl QPlan {
         ws: &mut Workspace,
         out: &mut Vec<Tile>,
     ) {
+        self.transform_with(whitened, t0_gps, keep, z_threshold, ws, out, None);
+    }
+
+    /// [`QPlan::transform`], and the clusters of connected tiles of each
+    /// plane (see [`crate::clusters`] and [`ClusterSpec`]), at least two
+    /// tiles each, appended to `clusters`: grown over `spec.grow` from
+    /// seeds in `keep`, reported when their loudest tile lies in `keep`
+    /// (so a cluster across the edge of two blocks' kept times is found
+    /// whole, once).
+    #[allow(clippy::too_many_arguments)]
+    pub fn transform_clustered(
+        &self,
+        whitened: &[Complex<f32>],
+        t0_gps: f64,
+        keep: (f64, f64),
+        z_threshold: f64,
+        spec: ClusterSpec,
+        ws: &mut Workspace,
+        out: &mut Vec<Tile>,
+        clusters: &mut Vec<TileCluster>,
+    ) {
+        self.transform_with(
+            whitened,
+            t0_gps,
+            keep,
+            z_threshold,
+            ws,
+            out,
+            Some((spec, clusters)),
+        );
+    }
+
+    #[allow(clippy::too_many_arguments)]
+    fn transform_with(
+        &self,
+        whitened: &[Complex<f32>],
+        t0_gps: f64,
+        keep: (f64, f64),
+        z_threshold: f64,
+        ws: &mut Workspace,
+        out: &mut Vec<Tile>,
+        mut clusters: Option<(ClusterSpec, &mut Vec<TileCluster>)>,
+    ) {
         assert_eq!(whitened.len(), self.n / 2 + 1, "whitened spectrum length");
         // Chunks are flagged while the scale is measured if they hold a tile
-        // above SCREEN × the threshold in units of the row's expected mean.
+        // above SCREEN × the threshold in units of the row's expected mean;
+        // when clustering, also above SEED_SCREEN × the seed level.
         const SCREEN: f64 = 0.5;
+        const SEED_SCREEN: f64 = 0.7;
+        let pixel_s = clusters.as_ref().map(|c| c.0.pixel_s);
+        let grow = clusters.as_ref().map_or(keep, |c| c.0.grow);
         for (p, plane) in self.planes.iter().enumerate() {
+            ws.grid_len = 0;
+            ws.grid_rows.clear();
+            ws.seeds.clear();
             for (r, row) in plane.rows.iter().enumerate() {
                 let (i_lo, i_hi, dt) = self.kept_range(row, t0_gps, keep);
-                let z_row = energy_threshold(z_threshold, row_independent(row, i_hi - i_lo));
-                let screen = SCREEN * z_row * row.norm;
-                let scale = self.row_scale(p, r, whitened, (i_lo, i_hi), screen, ws);
+                let n_indep = row_independent(row, i_hi - i_lo);
+                let z_row = energy_threshold(z_threshold, n_indep);
+                let z_seed = pixel_s.map(|_| energy_threshold(SEED_SIGNIFICANCE, n_indep));
+                let mut screen = SCREEN * z_row * row.norm;
+                if let Some(zs) = z_seed {
+                    screen = screen.min(SEED_SCREEN * zs * row.norm);
+                }
+                // The row's grid: the kept tiles and those around them
+                // within `grow`, stored in tile order from `off`.
+                let (g_lo, g_hi, _) = self.kept_range(row, t0_gps, grow);
+                let (g_lo, g_hi) = (g_lo.min(i_lo), g_hi.max(i_hi));
+                let off = ws.grid_len;
+                if pixel_s.is_some() {
+                    if ws.grid.len() < off + g_hi - g_lo {
+                        ws.grid.resize(off + g_hi - g_lo, 0.0);
+                    }
+                    ws.grid_len = off + i_lo - g_lo;
+                }
+                let scale =
+                    self.row_scale(p, r, whitened, (i_lo, i_hi), screen, pixel_s.is_some(), ws);
+                if pixel_s.is_some() {
+                    // The margins (the kept part was stored by row_scale).
+                    for (o, y) in ws.grid[off..].iter_mut().zip(&ws.buf[g_lo..i_lo]) {
+                        *o = y.norm_sqr();
+                    }
+                    let at = off + i_lo - g_lo + (i_hi - i_lo);
+                    for (o, y) in ws.grid[at..].iter_mut().zip(&ws.buf[i_hi..g_hi]) {
+                        *o = y.norm_sqr();
+                    }
+                    ws.grid_len = off + g_hi - g_lo;
+                }
                 ws.rho[p][r] = scale.map_or(f64::NAN, |s| 1.0 / (s * row.norm));
+                if let Some(pixel_s) = pixel_s {
+                    let nb = |k: usize| plane.rows.get(k).map(|x| x.f_hz);
+                    let df = match (r.checked_sub(1).and_then(nb), nb(r + 1)) {
+                        (Some(a), Some(b)) => 0.5 * (b - a),
+                        (Some(a), None) => row.f_hz - a,
+                        (None, Some(b)) => b - row.f_hz,
+                        (None, None) => 2.0 * row.f_hz / plane.q,
+                    };
+                    let s = scale.unwrap_or(0.0);
+                    ws.grid_rows.push(GridRow {
+                        f_hz: row.f_hz,
+                        t0_gps,
+                        dt,
+                        df,
+                        off,
+                        lo: g_lo as u32,
+                        hi: if scale.is_some() {
+                            g_hi as u32
+                        } else {
+                            g_lo as u32
+                        },
+                        scale: s as f32,
+                        raw_pixel: (energy_threshold(pixel_s, n_indep) / s) as f32,
+                    });
+                }
                 let Some(scale) = scale else {
                     continue;
                 };
-                // Compare |y|² against the threshold in raw units: no division in the loop.
+                // Compare |y|² against the thresholds in raw units: no division in the loop.
                 let raw_thr = z_row / scale;
+                let raw_seed = z_seed.map_or(f64::INFINITY, |z| z / scale);
+                let raw_low = raw_thr.min(raw_seed);
                 let n_chunks = (i_hi - i_lo).div_ceil(CHUNK);
-                // When the threshold lies above the screen, only flagged
-                // chunks can hold a significant tile (the usual case: the
-                // scale is within a factor 2 of the expected mean).
+                // When the thresholds lie above the screen, only flagged
+                // chunks can hold a significant tile or a seed (the usual
+                // case: the scale is within a factor 2 of the expected mean).
                 let all: Vec<u32>;
-                let chunks: &[u32] = if raw_thr >= screen {
+                let chunks: &[u32] = if raw_low >= screen {
                     &ws.hot
                 } else {
                     all = (0..n_chunks as u32).collect();
                     &all
                 };
-                let raw_thr = raw_thr as f32;
+                let (raw_thr, raw_seed, raw_low) =
+                    (raw_thr as f32, raw_seed as f32, raw_low as f32);
                 for &c in chunks {
                     let first = i_lo + c as usize * CHUNK;
                     for (i, y) in ws.buf[first..(first + CHUNK).min(i_hi)].iter().enumerate() {
                         let e = y.norm_sqr();
+                        if e < raw_low {
+                            continue;
+                        }
                         if e >= raw_thr {
                             out.push(Tile {
                                 t_gps: t0_gps + (first + i) as f64 * dt,
@@ -618,8 +752,33 @@ impl QPlan {
                                 refined: None,
                             });
                         }
+                        if e >= raw_seed {
+                            ws.seeds.push((r as u32, (first + i) as u32));
+                        }
                     }
                 }
+            }
+            if let Some((spec, found)) = clusters.as_mut() {
+                let first = found.len();
+                grow_clusters(
+                    plane.q,
+                    &ws.grid_rows,
+                    &ws.grid[..ws.grid_len],
+                    &ws.seeds,
+                    2,
+                    spec.min_significance,
+                    &mut ws.visited,
+                    found,
+                );
+                let mut k = first;
+                for i in first..found.len() {
+                    let t = found[i].peak.0;
+                    if t >= keep.0 && t < keep.1 {
+                        found[k] = found[i];
+                        k += 1;
+                    }
+                }
+                found.truncate(k);
             }
         }
     }
@@ -666,7 +825,9 @@ impl QPlan {
     /// the tiles is used instead.
     ///
     /// The same pass records in `ws.hot` the chunks of [`CHUNK`] kept tiles
-    /// holding a tile with `|y|² ≥ screen`.
+    /// holding a tile with `|y|² ≥ screen`, and with `store` appends the
+    /// kept tiles' `|y|²` to `ws.grid`.
+    #[allow(clippy::too_many_arguments)]
     fn row_scale(
         &self,
         p: usize,
@@ -674,6 +835,7 @@ impl QPlan {
         whitened: &[Complex<f32>],
         kept: (usize, usize),
         screen: f64,
+        store: bool,
         ws: &mut Workspace,
     ) -> Option<f64> {
         let row = &self.planes[p].rows[r];
@@ -686,17 +848,35 @@ impl QPlan {
         let g = (SCALE_LEVEL * row.norm) as f32;
         let screen = screen as f32;
         let mut below = 0usize;
+        if store && ws.grid.len() < ws.grid_len + hi - lo {
+            // Grown once to the largest plane; never cleared (every tile
+            // read is written first).
+            ws.grid.resize(ws.grid_len + hi - lo, 0.0);
+        }
         for (c, chunk) in ws.buf[lo..hi].chunks(CHUNK).enumerate() {
             let (mut n, mut hot) = (0u32, false);
-            for y in chunk {
-                let e = y.norm_sqr();
-                n += u32::from(e < g);
-                hot |= e >= screen;
+            if store {
+                let at = ws.grid_len + c * CHUNK;
+                for (y, o) in chunk.iter().zip(&mut ws.grid[at..at + chunk.len()]) {
+                    let e = y.norm_sqr();
+                    *o = e;
+                    n += u32::from(e < g);
+                    hot |= e >= screen;
+                }
+            } else {
+                for y in chunk {
+                    let e = y.norm_sqr();
+                    n += u32::from(e < g);
+                    hot |= e >= screen;
+                }
             }
             below += n as usize;
             if hot {
                 ws.hot.push(c as u32);
             }
+        }
+        if store {
+            ws.grid_len += hi - lo;
         }
         let f = below as f64 / (hi - lo) as f64;
         let mu = if (0.05..=0.95).contains(&f) {
@@ -743,7 +923,7 @@ impl QPlan {
         let r = &self.planes[plane].rows[row];
         let (lo, hi, dt) = self.kept_range(r, t0_gps, keep);
         let scale = self
-            .row_scale(plane, row, whitened, (lo, hi), f64::INFINITY, ws)
+            .row_scale(plane, row, whitened, (lo, hi), f64::INFINITY, false, ws)
             .unwrap_or(0.0) as f32;
         (scaled_energies(ws, r, scale), dt)
     }

@@ -39,6 +39,11 @@ pub struct Trigger {
     /// Normalised energy Z at the peak (refined maximum; the loudest
     /// tile's when not refined).
     pub energy: f64,
+    /// Equivalent SNR of the trigger's clustered tiles,
+    /// `sqrt(2 Σ w (Z − 1))` over the connected tiles of its best plane
+    /// (see [`crate::clusters`]); at least `snr`, and equal to it when no
+    /// cluster was measured.
+    pub snr_eq: f64,
 }
 
 /// SNR from normalised energy: `sqrt(2 (Z - 1))`, zero below Z = 1.
@@ -51,6 +56,7 @@ pub fn energy_from_snr(snr: f64) -> f64 {
     1.0 + 0.5 * snr * snr
 }
 
+use crate::clusters::TileCluster;
 use crate::tf::{Refined, Tile};
 
 /// Largest gap \[s\] between the time extents of kept tiles that still
@@ -105,6 +111,86 @@ pub fn cluster_tiles(tiles: Vec<Tile>) -> Vec<Trigger> {
     out.push(trigger_of(&group));
     out.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
     out
+}
+
+/// Join the clusters of connected tiles (see [`crate::clusters`]) to the
+/// triggers: each cluster, most significant first, goes to the trigger it
+/// overlaps in time (within [`CLUSTER_GAP_S`]) and frequency, whose
+/// equivalent SNR becomes the larger of its own and the cluster's (the
+/// best plane's cluster: energy is never summed across planes or
+/// clusters) and whose extent grows to cover the cluster. A cluster that
+/// overlaps no trigger and whose significance is at least `min_significance`
+/// makes a trigger of its own, at its loudest tile (on the tiling grid,
+/// its single-tile SNR below the tile threshold). Triggers stay sorted by
+/// `t_peak`.
+pub fn attach_clusters(
+    triggers: &mut Vec<Trigger>,
+    mut clusters: Vec<TileCluster>,
+    min_significance: f64,
+) {
+    clusters.sort_by(|a, b| b.significance.total_cmp(&a.significance));
+    // Triggers by start time (ns), for range queries; extents only grow.
+    let key = |t: f64| (t * 1e9).round() as i64;
+    let mut by_start: std::collections::BTreeMap<i64, Vec<usize>> = Default::default();
+    let mut longest = 0.0f64;
+    for (i, t) in triggers.iter().enumerate() {
+        by_start.entry(key(t.t_start)).or_default().push(i);
+        longest = longest.max(t.t_end - t.t_start);
+    }
+    let mut added = false;
+    for c in clusters {
+        let lo = key(c.t_start - CLUSTER_GAP_S - longest - c.duration());
+        // A trigger stays keyed by the start it had when added; a cluster
+        // may since have moved its start back by at most `longest`.
+        let hi = key(c.t_end + CLUSTER_GAP_S + longest);
+        let hit = by_start
+            .range(lo..=hi)
+            .flat_map(|(_, v)| v)
+            .copied()
+            .find(|&i| {
+                let t = &triggers[i];
+                t.t_start - CLUSTER_GAP_S <= c.t_end
+                    && c.t_start <= t.t_end + CLUSTER_GAP_S
+                    && t.f_low <= c.f_high
+                    && c.f_low <= t.f_high
+            });
+        match hit.map(|i| &mut triggers[i]) {
+            Some(t) => {
+                longest = longest.max(c.t_end.max(t.t_end) - c.t_start.min(t.t_start));
+                t.snr_eq = t.snr_eq.max(c.snr());
+                t.t_start = t.t_start.min(c.t_start);
+                t.t_end = t.t_end.max(c.t_end);
+                t.f_low = t.f_low.min(c.f_low);
+                t.f_high = t.f_high.max(c.f_high);
+            }
+            None if c.significance >= min_significance => {
+                let (t, f, z) = c.peak;
+                let snr = snr_from_energy(z);
+                triggers.push(Trigger {
+                    t_peak: t,
+                    t_start: c.t_start,
+                    t_end: c.t_end,
+                    f_peak: f,
+                    f_low: c.f_low,
+                    f_high: c.f_high,
+                    snr,
+                    q: c.q,
+                    energy: z,
+                    snr_eq: c.snr().max(snr),
+                });
+                by_start
+                    .entry(key(c.t_start))
+                    .or_default()
+                    .push(triggers.len() - 1);
+                longest = longest.max(c.duration());
+                added = true;
+            }
+            None => {}
+        }
+    }
+    if added {
+        triggers.sort_by(|a, b| a.t_peak.total_cmp(&b.t_peak));
+    }
 }
 
 /// Step 1 of [`cluster_tiles`]: the indices into `tiles` of the tiles kept
@@ -246,6 +332,7 @@ fn trigger_of(group: &[(Tile, PlanePeaks)]) -> Trigger {
         snr: snr_from_energy(r.energy),
         q: r.q,
         energy: r.energy,
+        snr_eq: snr_from_energy(r.energy),
     }
 }
 

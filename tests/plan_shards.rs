@@ -177,6 +177,7 @@ fn read_triggers(db: &Path) -> HashMap<String, Vec<Trigger>> {
                     snr: r.get(7)?,
                     q: r.get(8)?,
                     energy: r.get(9)?,
+                    snr_eq: r.get(7)?,
                 },
             ))
         })
@@ -602,6 +603,7 @@ fn plan_merge_folds_edge_twins_into_the_louder() {
         snr,
         q,
         energy: glitchbook::trigger::energy_from_snr(snr),
+        snr_eq: snr,
     };
     let scan = |k: usize, triggers: Vec<Trigger>| ChannelScan {
         channel: spec(&chans[0]),

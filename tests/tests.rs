@@ -5,6 +5,8 @@
 /// Scale-out CLI end to end on the demo (plan, run-plan, merge vs one scan).
 mod plan_cli;
 mod plan_shards;
+/// Extended glitches (arches, sweeps, long tones) at their loudness.
+mod scan_extended;
 mod scan_offgrid;
 mod scan_reference;
 /// Noise tails per plane and row band (long; `.ci/run` runs it).

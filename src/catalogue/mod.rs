@@ -66,6 +66,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0009_scan_files_supersede",
         include_str!("../../migrations/0009_scan_files_supersede.sql"),
     ),
+    (
+        "0010_cluster_snr",
+        include_str!("../../migrations/0010_cluster_snr.sql"),
+    ),
 ];
 
 /// Schema version this build writes.

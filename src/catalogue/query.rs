@@ -52,6 +52,9 @@ pub struct TriggerRow {
     pub q: Option<f64>,
     /// Normalised energy Z.
     pub energy: f64,
+    /// Equivalent SNR of the trigger's clustered tiles (the single-tile
+    /// SNR for triggers stored before it was measured).
+    pub snr_eq: f64,
 }
 
 impl TriggerRow {
@@ -67,11 +70,13 @@ impl TriggerRow {
             snr: self.snr,
             q: self.q.unwrap_or(f64::NAN),
             energy: self.energy,
+            snr_eq: self.snr_eq,
         }
     }
 
     /// Row mapping for `SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns,
-    /// t.t_end_ns, t.f_peak_hz, t.f_low_hz, t.f_high_hz, t.snr, t.q, t.energy`.
+    /// t.t_end_ns, t.f_peak_hz, t.f_low_hz, t.f_high_hz, t.snr, t.q, t.energy,
+    /// COALESCE(t.snr_eq, t.snr)`.
     pub(crate) fn from_row(r: &Row) -> rusqlite::Result<TriggerRow> {
         Ok(TriggerRow {
             id: r.get(0)?,
@@ -85,6 +90,7 @@ impl TriggerRow {
             snr: r.get(8)?,
             q: r.get(9)?,
             energy: r.get(10)?,
+            snr_eq: r.get(11)?,
         })
     }
 }
@@ -148,7 +154,8 @@ impl TriggerQuery {
 pub(crate) fn trigger_sql(conn: &Connection, q: &TriggerQuery) -> Result<(String, Vec<Value>)> {
     let mut sql = String::from(
         "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
-         t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id \
+         t.f_high_hz, t.snr, t.q, t.energy, COALESCE(t.snr_eq, t.snr) FROM triggers t \
+         JOIN channels c ON c.id = t.channel_id \
          WHERE 1",
     );
     let mut vals: Vec<Value> = Vec::new();

@@ -16,6 +16,7 @@ fn trig(t: f64, snr: f64) -> Trigger {
         snr,
         q: 8.0,
         energy: energy_from_snr(snr),
+        snr_eq: snr,
     }
 }
 

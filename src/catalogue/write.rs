@@ -281,9 +281,9 @@ pub fn supersede_earlier(
     {
         let mut copy = tx.prepare_cached(
             "INSERT INTO superseded_triggers (id, scan_id, channel_id, t_peak_ns, t_start_ns,
-                 t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, superseded_by)
+                 t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, snr_eq, superseded_by)
              SELECT id, scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, f_peak_hz,
-                 f_low_hz, f_high_hz, snr, q, energy, ?1 FROM triggers
+                 f_low_hz, f_high_hz, snr, q, energy, snr_eq, ?1 FROM triggers
              WHERE channel_id = ?2 AND scan_id != ?1 AND t_peak_ns >= ?3 AND t_peak_ns < ?4",
         )?;
         let mut del = tx.prepare_cached(
@@ -315,9 +315,9 @@ pub fn supersede_earlier(
         moved += tx
             .prepare_cached(&format!(
                 "INSERT INTO superseded_triggers (id, scan_id, channel_id, t_peak_ns, t_start_ns,
-                     t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, superseded_by)
+                     t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, snr_eq, superseded_by)
                  SELECT o.id, o.scan_id, o.channel_id, o.t_peak_ns, o.t_start_ns, o.t_end_ns,
-                     o.f_peak_hz, o.f_low_hz, o.f_high_hz, o.snr, o.q, o.energy, ?1 {same_event}"
+                     o.f_peak_hz, o.f_low_hz, o.f_high_hz, o.snr, o.q, o.energy, o.snr_eq, ?1 {same_event}"
             ))?
             .execute(params![scan_id, channel_id, a, b, w])?;
         tx.prepare_cached(&format!(
@@ -385,8 +385,8 @@ fn insert_triggers(
 ) -> Result<()> {
     let mut st = tx.prepare_cached(
         "INSERT INTO triggers (scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns,
-                               f_peak_hz, f_low_hz, f_high_hz, snr, q, energy)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
+                               f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, snr_eq)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
     )?;
     for (i, t) in triggers.iter().enumerate() {
         let fields = [
@@ -397,6 +397,7 @@ fn insert_triggers(
             ("f_low", t.f_low),
             ("f_high", t.f_high),
             ("snr", t.snr),
+            ("snr_eq", t.snr_eq),
             ("energy", t.energy),
         ];
         if let Some((name, v)) = fields.iter().find(|(_, v)| !v.is_finite()) {
@@ -419,6 +420,7 @@ fn insert_triggers(
             t.snr,
             q,
             t.energy,
+            t.snr_eq,
         ])?;
     }
     Ok(())

@@ -55,6 +55,10 @@ pub struct ScanFlags {
     /// tiles, rows and planes.
     #[arg(long)]
     pub grid_peaks: bool,
+    /// Report single tiles only: no clusters of connected tiles, no
+    /// equivalent SNR, no triggers made by a cluster alone.
+    #[arg(long)]
+    pub no_clusters: bool,
 }
 
 impl ScanFlags {
@@ -70,6 +74,7 @@ impl ScanFlags {
             mismatch: self.mismatch,
             block_s: self.block_s,
             refine_peaks: !self.grid_peaks,
+            clusters: !self.no_clusters,
         };
         p.check()?;
         Ok(p)

@@ -944,6 +944,7 @@ mod tests {
             f_low: f0 * (1.0 - 1.0 / q),
             f_high: f0 * (1.0 + 1.0 / q),
             snr: 20.0,
+            snr_eq: 20.0,
             q,
             energy: 201.0,
         };

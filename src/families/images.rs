@@ -429,6 +429,7 @@ mod tests {
             f_low: f_lo,
             f_high: f_hi,
             snr: 10.0,
+            snr_eq: 10.0,
             q,
             energy: 51.0,
         }

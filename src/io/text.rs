@@ -652,6 +652,7 @@ fn parse_trigger_rows(bytes: &[u8], name: &str) -> Result<Vec<(Option<String>, T
                 f_low,
                 f_high,
                 snr,
+                snr_eq: snr,
                 q,
                 energy,
             },

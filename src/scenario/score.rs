@@ -1004,6 +1004,7 @@ mod tests {
             snr,
             q: None,
             energy: 0.0,
+            snr_eq: snr,
         }
     }
 
