@@ -256,9 +256,10 @@ pub fn grow_clusters(
             }
             for (k, &(r2, a, b)) in near.iter().enumerate() {
                 let step = if k == 0 { (b - a).max(1) } else { 1 };
+                // The pair's index in `up_row` is the lower of the two rows.
                 let c = match k {
                     0 => in_row[r],
-                    1 => up_row[r2.min(up_row.len().saturating_sub(1))],
+                    1 => up_row.get(r2).copied().unwrap_or(0.0),
                     _ => up_row.get(r).copied().unwrap_or(0.0),
                 };
                 let mut j = a;
