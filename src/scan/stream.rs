@@ -406,10 +406,33 @@ mod tests {
     use super::*;
     use crate::scan::InMemory;
 
+    /// A source that counts the samples read from it.
+    struct Counted(InMemory, AtomicUsize);
+
+    impl SampleSource for Counted {
+        fn rate_hz(&self) -> f64 {
+            self.0.rate_hz
+        }
+        fn start_gps(&self) -> f64 {
+            self.0.start_gps
+        }
+        fn len(&self) -> usize {
+            self.0.data.len()
+        }
+        fn read(&self, start: usize, out: &mut [f64]) -> Result<()> {
+            self.1.fetch_add(out.len(), Ordering::Relaxed);
+            self.0.read(start, out)
+        }
+        fn describe(&self) -> String {
+            "counted".into()
+        }
+    }
+
     /// Every block gets the samples a read of the source gives, the blocks
     /// are those the whole series' runs lay (dropouts at and near chunk
     /// edges, analysis segments, stretches shorter than a block), and the
-    /// checksum is the survey's; with one thread and with several.
+    /// checksum is the survey's; with one thread and with several. Every
+    /// sample is read once.
     #[test]
     fn streamed_blocks_match_the_whole_series_layout() {
         let n = 5 * STREAM_CHUNK_SAMPLES + 12_345;
@@ -423,19 +446,22 @@ mod tests {
             *x = f64::INFINITY;
         }
         data[4 * c + 50_000..4 * c + 53_000].fill(1.0);
-        let src = InMemory {
-            data,
-            rate_hz: 256.0,
-            start_gps: 1_400_000_000.0,
-        };
+        let src = Counted(
+            InMemory {
+                data,
+                rate_hz: 256.0,
+                start_gps: 1_400_000_000.0,
+            },
+            AtomicUsize::new(0),
+        );
         let grid = Grid {
-            t0: src.start_gps,
-            fs: src.rate_hz,
+            t0: src.start_gps(),
+            fs: src.rate_hz(),
             block_n: 16_384,
             pad: 1024,
             min_len: 4096,
         };
-        let t = |i: usize| src.start_gps + i as f64 / src.rate_hz;
+        let t = |i: usize| src.start_gps() + i as f64 / src.rate_hz();
         let segs = SegmentList::from_segments(vec![
             Segment::new(t(1000), t(c + 5000)),
             Segment::new(t(c + 9000), t(c + 9000 + 20_000)),
@@ -444,7 +470,7 @@ mod tests {
         let (_, checksum) = src.survey().unwrap();
         for segments in [None, Some(&segs)] {
             let mut runs = FiniteRuns::default();
-            runs.feed(0, &src.data);
+            runs.feed(0, &src.0.data);
             let (want, _) = layout(&runs.finish(n), n, &grid, segments);
             assert!(want.len() > 20, "{} blocks", want.len());
             for threads in [1, 3] {
@@ -452,8 +478,10 @@ mod tests {
                     .num_threads(threads)
                     .build()
                     .unwrap();
-                let work =
-                    |b: &Block, x: &[f64]| -> Result<bool> { Ok(x == &src.data[b.i0..b.i0 + b.n]) };
+                let work = |b: &Block, x: &[f64]| -> Result<bool> {
+                    Ok(x == &src.0.data[b.i0..b.i0 + b.n])
+                };
+                src.1.store(0, Ordering::Relaxed);
                 let got = pool
                     .install(|| stream_blocks(&src, &grid, segments, &work, &|_| {}))
                     .unwrap();
@@ -462,6 +490,7 @@ mod tests {
                 assert!(got.blocks.iter().all(|b| b.1), "samples of every block");
                 assert_eq!(got.checksum, checksum);
                 assert!(got.any_finite);
+                assert_eq!(src.1.load(Ordering::Relaxed), n, "samples read");
             }
         }
     }
