@@ -10,7 +10,8 @@
 //!
 //! Throughput counts decompressed bytes of the stored type (4 per float32
 //! sample, 2 per int16) per second of wall time reading the whole channel in
-//! 2^20-sample reads (as the scan's survey does), checksums included, the
+//! 2^20-sample reads (as [`SampleSource::survey`] does; the scan reads
+//! 2^18 at a time, once), checksums included, the
 //! file opened afresh for each pass; the best of three passes (the machine is shared: the minimum time is the one
 //! least disturbed). Run: `cargo bench --bench io_frames`.
 

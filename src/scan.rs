@@ -9,13 +9,14 @@ use crate::tf::{ClusterSpec, QPlan, Tile, Tiling, Workspace};
 use crate::trigger::{attach_clusters, cluster_tiles, energy_from_snr, refine_peaks, Trigger};
 use crate::Error;
 use anyhow::{anyhow, bail, Context, Result};
-use rayon::prelude::*;
 use realfft::num_complex::Complex;
 use rustfft::FftPlanner;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
-use std::sync::atomic::{AtomicUsize, Ordering};
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
+
+mod stream;
+pub use stream::STREAM_CHUNK_SAMPLES;
 
 /// Parameters of a scan as given by the user (None = derive per channel).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -229,11 +230,7 @@ pub trait SampleSource: Sync {
             ra?;
             rb?;
             for (at, c) in [(first, &*a), (first + na, &*b)] {
-                bytes.resize(8 * c.len(), 0);
-                for (o, x) in bytes.chunks_exact_mut(8).zip(c) {
-                    o.copy_from_slice(&x.to_le_bytes());
-                }
-                hasher.update(&bytes);
+                hash_samples(&mut hasher, &mut bytes, c);
                 runs.feed(at, c);
             }
             first += na + nb;
@@ -248,6 +245,16 @@ pub trait SampleSource: Sync {
             format!("{:032x}", hasher.digest128()),
         ))
     }
+}
+
+/// Add samples to an input checksum, as little-endian f64 (`bytes` is
+/// scratch space).
+fn hash_samples(hasher: &mut xxhash_rust::xxh3::Xxh3, bytes: &mut Vec<u8>, samples: &[f64]) {
+    bytes.resize(8 * samples.len(), 0);
+    for (o, x) in bytes.chunks_exact_mut(8).zip(samples) {
+        o.copy_from_slice(&x.to_le_bytes());
+    }
+    hasher.update(bytes);
 }
 
 /// Samples held in memory (tests, examples, generated data).
@@ -458,7 +465,7 @@ pub fn tiles_per_block_estimate(
 
 /// A block to process: samples `[i0, i0 + n)`, keeping tiles whose centres
 /// lie in `[keep_lo, keep_hi)` (sample indices).
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 struct Block {
     i0: usize,
     n: usize,
@@ -509,7 +516,12 @@ fn lay_blocks(a: usize, b: usize, n: usize, pad: usize) -> Vec<Block> {
 /// Scan one channel.
 ///
 /// `segments` restricts the search to analysis segments (None = all valid
-/// data). `progress` is called with the fraction of blocks done.
+/// data). The samples are read once, in order: the reader finds the
+/// dropouts and the checksum as [`SampleSource::survey`] does and hands
+/// each block to the thread pool as soon as its place is certain, so a
+/// compressed file is decoded once and memory stays bounded by the block
+/// length (see the `stream` module). `progress` is called with the
+/// fraction of the series up to the furthest block done, and 1 at the end.
 ///
 /// # Errors
 /// Unreadable data, bad parameters, or no stretch of valid data long enough
@@ -524,38 +536,16 @@ pub fn scan_source(
     let fs = src.rate_hz();
     let t0 = src.start_gps();
     let rp = resolve_params(params, fs, chan_limits.0, chan_limits.1)?;
-    let (valid, checksum) = src.survey()?;
-    if valid.is_empty() {
-        bail!("{}: no finite samples (all NaN or Inf)", src.describe());
-    }
-    let usable = match segments {
-        Some(s) => valid.intersection(s),
-        None => valid,
-    };
     let pad = (rp.pad_s * fs).round() as usize;
     let block_n = (rp.block_s * fs).round() as usize;
     let welch_n = (rp.welch_s * fs).round() as usize;
-    let min_len = (4 * pad).max(2 * welch_n);
-    let mut blocks = Vec::new();
-    let mut longest = 0.0f64;
-    for seg in usable.segments() {
-        let a = ((seg.start - t0) * fs - 1e-6).ceil().max(0.0) as usize;
-        let b = (((seg.end - t0) * fs + 1e-6).floor() as usize).min(src.len());
-        longest = longest.max(seg.duration());
-        if b > a && b - a >= min_len {
-            blocks.extend(lay_blocks(a, b, block_n, pad));
-        }
-    }
-    if blocks.is_empty() {
-        bail!(
-            "{}: no stretch of valid, in-segment data is long enough to analyse \
-             (need {:.1} s for the padding and PSD at fmin = {} Hz; longest is {:.1} s)",
-            src.describe(),
-            min_len as f64 / fs,
-            rp.fmin,
-            longest
-        );
-    }
+    let grid = stream::Grid {
+        t0,
+        fs,
+        block_n,
+        pad,
+        min_len: (4 * pad).max(2 * welch_n),
+    };
     let tiling = Tiling {
         fmin: rp.fmin,
         fmax: rp.fmax,
@@ -564,73 +554,96 @@ pub fn scan_source(
         mismatch: rp.mismatch,
     };
     let highpass = (0.5 * rp.fmin, 0.9 * rp.fmin);
-    let mut planner = FftPlanner::new();
-    let mut plans: HashMap<usize, (QPlan, Conditioner)> = HashMap::new();
-    for b in &blocks {
-        if let std::collections::hash_map::Entry::Vacant(e) = plans.entry(b.n) {
-            let plan = QPlan::new(fs, b.n, &tiling, highpass, &mut planner)?;
-            let top = plan.top_hz();
-            e.insert((
-                plan,
-                Conditioner::new(b.n, fs, pad, welch_n, highpass)?.with_top(top),
-            ));
+    // Plans by block length, made when a block of that length first comes;
+    // buffers for one worker each, reused block after block.
+    type Planned = Arc<(QPlan, Conditioner)>;
+    let plans: Mutex<(FftPlanner<f32>, HashMap<usize, Planned>)> =
+        Mutex::new((FftPlanner::new(), HashMap::new()));
+    let plan_for = |n: usize| -> Result<Planned> {
+        let mut guard = plans.lock().expect("plan lock");
+        let (planner, made) = &mut *guard;
+        if let Some(p) = made.get(&n) {
+            return Ok(p.clone());
         }
-    }
+        let plan = QPlan::new(fs, n, &tiling, highpass, planner)?;
+        let top = plan.top_hz();
+        let conditioner = Conditioner::new(n, fs, pad, welch_n, highpass)?.with_top(top);
+        let p = Arc::new((plan, conditioner));
+        made.insert(n, p.clone());
+        Ok(p)
+    };
+    type Buffers = HashMap<usize, (Workspace, CondBuffers)>;
+    let spare_buffers: Mutex<Vec<Buffers>> = Mutex::default();
     let z_thr = energy_from_snr(rp.snr_threshold);
-    let done = AtomicUsize::new(0);
-    let total = blocks.len();
-    let results: Vec<Result<(Vec<Tile>, Vec<TileCluster>)>> = blocks
-        .par_iter()
-        .map_init(HashMap::<usize, (Workspace, CondBuffers)>::new, |wss, b| {
-            let (plan, conditioner) = &plans[&b.n];
-            let (ws, cb) = wss
-                .entry(b.n)
-                .or_insert_with(|| (plan.workspace(), conditioner.buffers()));
-            let keep = (t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs);
-            let (mut tiles, mut clusters) = (Vec::new(), Vec::new());
-            conditioner.whiten_block_with(src, b.i0, cb)?;
-            let t0_block = t0 + b.i0 as f64 / fs;
-            if rp.clusters {
-                // Clusters may grow into the untapered half of the padding.
-                let spec = ClusterSpec {
-                    pixel_s: PIXEL_SIGNIFICANCE,
-                    min_significance: CLUSTER_SIGNIFICANCE,
-                    grow: (
-                        t0 + (b.i0 + pad / 2) as f64 / fs,
-                        t0 + (b.i0 + b.n - pad / 2) as f64 / fs,
-                    ),
-                };
-                plan.transform_clustered(
-                    &cb.whitened,
-                    t0_block,
-                    keep,
-                    z_thr,
-                    spec,
-                    ws,
-                    &mut tiles,
-                    &mut clusters,
-                );
-            } else {
-                plan.transform(&cb.whitened, t0_block, keep, z_thr, ws, &mut tiles);
-            }
-            // Locate the candidate peaks between tiles, rows and planes
-            // while this block's whitened data are at hand.
-            let tiles = if rp.refine_peaks {
-                refine_peaks(tiles, |tile, q_hat| {
-                    plan.refine(&cb.whitened, t0_block, ws, tile, q_hat)
-                })
-            } else {
-                tiles
+    let work = |b: &Block, x: &[f64]| -> Result<(Vec<Tile>, Vec<TileCluster>)> {
+        let planned = plan_for(b.n)?;
+        let (plan, conditioner) = &*planned;
+        let mut buffers = spare_buffers
+            .lock()
+            .expect("buffer lock")
+            .pop()
+            .unwrap_or_default();
+        let (ws, cb) = buffers
+            .entry(b.n)
+            .or_insert_with(|| (plan.workspace(), conditioner.buffers()));
+        let keep = (t0 + b.keep_lo as f64 / fs, t0 + b.keep_hi as f64 / fs);
+        let (mut tiles, mut clusters) = (Vec::new(), Vec::new());
+        conditioner.whiten_samples(x, fs, cb)?;
+        let t0_block = t0 + b.i0 as f64 / fs;
+        if rp.clusters {
+            // Clusters may grow into the untapered half of the padding.
+            let spec = ClusterSpec {
+                pixel_s: PIXEL_SIGNIFICANCE,
+                min_significance: CLUSTER_SIGNIFICANCE,
+                grow: (
+                    t0 + (b.i0 + pad / 2) as f64 / fs,
+                    t0 + (b.i0 + b.n - pad / 2) as f64 / fs,
+                ),
             };
-            progress(
-                done.fetch_add(1, Ordering::Relaxed) as f64 / total as f64 + 1.0 / total as f64,
+            plan.transform_clustered(
+                &cb.whitened,
+                t0_block,
+                keep,
+                z_thr,
+                spec,
+                ws,
+                &mut tiles,
+                &mut clusters,
             );
-            Ok((tiles, clusters))
-        })
-        .collect();
+        } else {
+            plan.transform(&cb.whitened, t0_block, keep, z_thr, ws, &mut tiles);
+        }
+        // Locate the candidate peaks between tiles, rows and planes
+        // while this block's whitened data are at hand.
+        let tiles = if rp.refine_peaks {
+            refine_peaks(tiles, |tile, q_hat| {
+                plan.refine(&cb.whitened, t0_block, ws, tile, q_hat)
+            })
+        } else {
+            tiles
+        };
+        spare_buffers.lock().expect("buffer lock").push(buffers);
+        Ok((tiles, clusters))
+    };
+    let streamed = stream::stream_blocks(src, &grid, segments, &work, progress)?;
+    if !streamed.any_finite {
+        bail!("{}: no finite samples (all NaN or Inf)", src.describe());
+    }
+    if streamed.blocks.is_empty() {
+        bail!(
+            "{}: no stretch of valid, in-segment data is long enough to analyse \
+             (need {:.1} s for the padding and PSD at fmin = {} Hz; longest is {:.1} s)",
+            src.describe(),
+            grid.min_len as f64 / fs,
+            rp.fmin,
+            streamed.longest
+        );
+    }
+    let checksum = streamed.checksum;
     let (mut tiles, mut clusters) = (Vec::new(), Vec::new());
-    for r in results {
-        let (t, c) = r?;
+    let mut blocks = Vec::with_capacity(streamed.blocks.len());
+    for (b, (t, c)) in streamed.blocks {
+        blocks.push(b);
         tiles.extend(t);
         clusters.extend(c);
     }
@@ -773,6 +786,23 @@ impl Conditioner {
         self.whiten_block_from(src, i0, Some(i0), b)
     }
 
+    /// As [`Conditioner::whiten_block_with`], from the block's `n`
+    /// samples, taken at `fs_hz`, instead of a source.
+    ///
+    /// # Errors
+    /// A number of samples other than the block length.
+    pub fn whiten_samples(&self, samples: &[f64], fs_hz: f64, b: &mut CondBuffers) -> Result<()> {
+        if samples.len() != self.n {
+            bail!(
+                "{} samples given to whiten a block of {}",
+                samples.len(),
+                self.n
+            );
+        }
+        b.x.copy_from_slice(samples);
+        self.whiten_x(fs_hz, None, b)
+    }
+
     fn whiten_block_from(
         &self,
         src: &dyn SampleSource,
@@ -780,8 +810,13 @@ impl Conditioner {
         origin: Option<usize>,
         b: &mut CondBuffers,
     ) -> Result<()> {
-        let (n, fs) = (self.n, src.rate_hz());
         src.read(i0, &mut b.x)?;
+        self.whiten_x(src.rate_hz(), origin, b)
+    }
+
+    /// Whiten the block in `b.x` (see [`Conditioner::whiten_block`]).
+    fn whiten_x(&self, fs: f64, origin: Option<usize>, b: &mut CondBuffers) -> Result<()> {
+        let n = self.n;
         let df_psd = self
             .welch
             .estimate_band_at(&b.x, origin, fs, self.f_top_hz, &mut b.welch)?;

@@ -597,6 +597,17 @@ impl FiniteRuns {
         }
     }
 
+    /// The runs ended so far (a non-finite sample followed them), as index
+    /// ranges `[start, end)`.
+    pub fn closed(&self) -> &[(usize, usize)] {
+        &self.runs
+    }
+
+    /// Start of the run still open (the last sample fed was finite).
+    pub fn open_start(&self) -> Option<usize> {
+        self.run_start
+    }
+
     /// The runs as index ranges `[start, end)`, for a series of `len`
     /// samples (all fed).
     pub fn finish(mut self, len: usize) -> Vec<(usize, usize)> {

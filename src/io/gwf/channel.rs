@@ -12,8 +12,8 @@
 //! zero-suppressed ones, are decoded as a stream: the channel keeps a small pool of decoders, each with a window of the
 //! last samples it produced (at most [`WINDOW_SAMPLES`] f64): a read that
 //! starts inside a window or after it continues that decoder, so reading in
-//! order — the scan's survey, and its overlapping blocks, which step back by
-//! the block padding — decodes each vector about once. The pool holds at
+//! order — the scan's single pass, or a survey — decodes each vector about
+//! once. The pool holds at
 //! most [`POOL_BYTES`] of windows and whole vectors (least recently used
 //! dropped first; a few spare buffers are kept for reuse), so memory is
 //! bounded by these constants and the caller's buffers, not by the file or
