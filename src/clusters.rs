@@ -44,6 +44,10 @@ pub const PIXEL_SIGNIFICANCE: f64 = 3.0;
 /// Significance of a tile to seed a cluster.
 pub const SEED_SIGNIFICANCE: f64 = 8.0;
 
+/// Normalised energy of a cluster's core tiles (its extent; see
+/// [`TileCluster::t_start`]): the seed level in a wide row.
+const SEED_LEVEL: f64 = SEED_SIGNIFICANCE;
+
 /// Cluster significance a cluster needs to make a trigger of its own.
 pub const CLUSTER_SIGNIFICANCE: f64 = 30.0;
 
@@ -87,13 +91,15 @@ pub struct GridRow {
 pub struct TileCluster {
     /// The plane's Q.
     pub q: f64,
-    /// Extent: the union of the pixels' cells \[GPS s\].
+    /// Extent of the cluster's core, its tiles at the seed level or above
+    /// (normalised energy ≥ [`SEED_SIGNIFICANCE`]), as tile extents
+    /// `t ± Q/(2πf)`, `f ± 2f/Q` \[GPS s\].
     pub t_start: f64,
     /// End of the extent \[GPS s\].
     pub t_end: f64,
-    /// Lowest frequency of the pixels' cells \[Hz\].
+    /// Lowest frequency of the core \[Hz\].
     pub f_low: f64,
-    /// Highest frequency of the pixels' cells \[Hz\].
+    /// Highest frequency of the core \[Hz\].
     pub f_high: f64,
     /// Pixels in the cluster.
     pub n_pixels: usize,
@@ -317,13 +323,27 @@ fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));
     let (mut t_start, mut t_end) = (f64::INFINITY, f64::NEG_INFINITY);
     let (mut f_low, mut f_high) = (f64::INFINITY, f64::NEG_INFINITY);
-    for p in members {
+    // The extent of the cluster's core: its tiles at the seed level or
+    // above, as tile extents (t ± Q/(2πf), f ± 2f/Q, as a trigger's
+    // tiles); the tiles just above the pixel level scatter into the noise
+    // around a glitch and would make its extent a noisy measure.
+    let f_min = members
+        .iter()
+        .map(|p| rows[p.row as usize].f_hz)
+        .fold(f64::INFINITY, f64::min);
+    let z_core = members
+        .iter()
+        .map(|p| p.z)
+        .fold(f32::NEG_INFINITY, f32::max)
+        .min(SEED_LEVEL as f32);
+    for p in members.iter().filter(|p| p.z >= z_core) {
         let c = &rows[p.row as usize];
         let t = c.t0_gps + f64::from(p.idx) * c.dt;
-        t_start = t_start.min(t - 0.5 * c.dt);
-        t_end = t_end.max(t + 0.5 * c.dt);
-        f_low = f_low.min(c.f_hz - 0.5 * c.df);
-        f_high = f_high.max(c.f_hz + 0.5 * c.df);
+        let (hd, hb) = (q / (2.0 * std::f64::consts::PI * c.f_hz), 2.0 * c.f_hz / q);
+        t_start = t_start.min(t - hd);
+        t_end = t_end.max(t + hd);
+        f_low = f_low.min(c.f_hz - hb);
+        f_high = f_high.max(c.f_hz + hb);
     }
     let (mut sw, mut swz, mut excess) = (0.0, 0.0, 0.0);
     let mut peak = (0.0, 0.0, f64::NEG_INFINITY);
@@ -337,7 +357,7 @@ fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
     }
     // Σ_ij w_i w_j c_ij over pairs within 5 σ_t (c < 0.2% beyond) of the
     // cluster's lowest frequency (the longest tiles).
-    let reach = 5.0 * q / (4.0 * std::f64::consts::PI * f_low.max(1e-3));
+    let reach = 5.0 * q / (4.0 * std::f64::consts::PI * f_min.max(1e-3));
     let mut var = 0.0;
     for (i, &(ti, fi, wi, _)) in pts.iter().enumerate() {
         var += wi * wi;

@@ -81,7 +81,7 @@ fn target_triggers_in(
 ) -> Result<Vec<Row>> {
     let sql = format!(
         "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
-         t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id \
+         t.f_high_hz, t.snr, t.q, t.energy, COALESCE(t.snr_eq, t.snr) FROM triggers t JOIN channels c ON c.id = t.channel_id \
          WHERE c.role = 'target' AND t.snr >= ?1 AND t.snr < ?2 {} ORDER BY t.id",
         if only_unassigned {
             "AND NOT EXISTS (SELECT 1 FROM family_members m WHERE m.trigger_id = t.id)"
@@ -784,7 +784,7 @@ pub fn family_member_ids(conn: &Connection, family: i64, limit: usize) -> Result
 pub(crate) fn trigger_row(conn: &Connection, trigger_id: i64) -> Result<Option<Row>> {
     let mut st = conn.prepare(
         "SELECT t.id, c.name, t.t_peak_ns, t.t_start_ns, t.t_end_ns, t.f_peak_hz, t.f_low_hz, \
-         t.f_high_hz, t.snr, t.q, t.energy FROM triggers t JOIN channels c ON c.id = t.channel_id \
+         t.f_high_hz, t.snr, t.q, t.energy, COALESCE(t.snr_eq, t.snr) FROM triggers t JOIN channels c ON c.id = t.channel_id \
          WHERE t.id = ?1",
     )?;
     st.query_row([trigger_id], Row::from_sql)

@@ -304,11 +304,12 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                     params![scan_id, a, b],
                 )?;
             }
-            type Row = (i64, i64, i64, f64, f64, f64, f64, Option<f64>, f64);
+            type Row = (i64, i64, i64, f64, f64, f64, f64, Option<f64>, f64, f64);
             let trigs: Vec<Row> = shard
                 .prepare(
                     "SELECT t_peak_ns, t_start_ns, t_end_ns, f_peak_hz, f_low_hz, f_high_hz, snr, \
-                     q, energy FROM triggers WHERE scan_id = ?1 ORDER BY t_peak_ns",
+                     q, energy, COALESCE(snr_eq, snr) FROM triggers WHERE scan_id = ?1 \
+                     ORDER BY t_peak_ns",
                 )?
                 .query_map([s.id], |r| {
                     Ok((
@@ -321,6 +322,7 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                         r.get(6)?,
                         r.get(7)?,
                         r.get(8)?,
+                        r.get(9)?,
                     ))
                 })?
                 .collect::<rusqlite::Result<_>>()?;
@@ -347,8 +349,8 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
             )?;
             let mut ins = tx.prepare_cached(
                 "INSERT INTO triggers(scan_id, channel_id, t_peak_ns, t_start_ns, t_end_ns, \
-                 f_peak_hz, f_low_hz, f_high_hz, snr, q, energy) \
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
+                 f_peak_hz, f_low_hz, f_high_hz, snr, q, energy, snr_eq) \
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
             )?;
             let mut del = tx.prepare_cached("DELETE FROM triggers WHERE id = ?1")?;
             for t in &trigs {
@@ -401,7 +403,7 @@ pub fn merge(dir: &Path, into: &Path, force: bool) -> Result<MergeReport> {
                     }
                 }
                 ins.execute(params![
-                    scan_id, ch_id, t.0, t.1, t.2, t.3, t.4, t.5, t.6, t.7, t.8
+                    scan_id, ch_id, t.0, t.1, t.2, t.3, t.4, t.5, t.6, t.7, t.8, t.9
                 ])?;
             }
         }
