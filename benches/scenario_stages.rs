@@ -95,7 +95,7 @@ fn main() -> anyhow::Result<()> {
             .join("  ")
     };
     let opt = |v: Option<f64>| v.map_or("-".into(), |x| format!("{x:.2}"));
-    println!("recall at true SNR 8-12 | >= 10 | median measured/true SNR (>= 8):");
+    println!("recall at true SNR 8-12 | >= 10 | median equivalent/true SNR (>= 8):");
     for (i, m) in runs[0].1.score.triggers.mechanisms.iter().enumerate() {
         println!(
             "  {:<10} {}",

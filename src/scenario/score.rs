@@ -132,7 +132,8 @@ pub struct RecallBin {
     pub n: usize,
     /// Of which found.
     pub n_found: usize,
-    /// Median measured / true SNR of the found ones.
+    /// Median measured / true SNR of the found ones (measured: the
+    /// trigger's equivalent SNR, `snr_eq`).
     pub median_snr_ratio: Option<f64>,
 }
 
@@ -202,10 +203,12 @@ pub fn trigger_score(
         let rows: Vec<usize> = (0..truth.len())
             .filter(|&k| truth[k].mechanism == mech.name() && analysed.contains(truth[k].t_ref_gps))
             .collect();
+        // The trigger's equivalent SNR: its cluster's when one was
+        // measured (issue 18), else its peak tile's.
         let measured = |k: usize| {
             m.per_truth[k]
                 .iter()
-                .map(|&i| triggers[i].snr)
+                .map(|&i| triggers[i].snr_eq)
                 .fold(f64::NEG_INFINITY, f64::max)
         };
         let found = |k: &usize| !m.per_truth[*k].is_empty();
@@ -809,7 +812,7 @@ impl ScenarioScore {
         let mut s = String::new();
         let _ = writeln!(
             s,
-            "triggers: recall by true SNR (found/injected in analysed time), median measured/true SNR"
+            "triggers: recall by true SNR (found/injected in analysed time), median measured (equivalent) / true SNR"
         );
         let _ = writeln!(
             s,
