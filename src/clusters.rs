@@ -309,6 +309,26 @@ pub fn grow_clusters(
     }
 }
 
+/// Variance of `S = Σ w Z` in Gaussian noise over tiles of quality `q`
+/// given as `(t, f, w, _)` sorted by time: `Σ_ij w_i w_j c_ij` (see
+/// [`energy_correlation`]), over pairs within 5 σ_t of the lowest
+/// frequency's tiles (c < 0.2% beyond). Its mean is `Σ w`.
+pub fn null_variance(q: f64, pts: &[(f64, f64, f64, f64)]) -> f64 {
+    let f_min = pts.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
+    let reach = 5.0 * q / (4.0 * std::f64::consts::PI * f_min.max(1e-3));
+    let mut var = 0.0;
+    for (i, &(ti, fi, wi, _)) in pts.iter().enumerate() {
+        var += wi * wi;
+        for &(tj, fj, wj, _) in &pts[i + 1..] {
+            if tj - ti > reach {
+                break;
+            }
+            var += 2.0 * wi * wj * energy_correlation(q, tj - ti, fj - fi, fi, fj);
+        }
+    }
+    var
+}
+
 /// The statistics of one cluster (see the module notes).
 fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
     // Pixels by time, for the neighbour sums of the variance.
@@ -327,10 +347,6 @@ fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
     // above, as tile extents (t ± Q/(2πf), f ± 2f/Q, as a trigger's
     // tiles); the tiles just above the pixel level scatter into the noise
     // around a glitch and would make its extent a noisy measure.
-    let f_min = members
-        .iter()
-        .map(|p| rows[p.row as usize].f_hz)
-        .fold(f64::INFINITY, f64::min);
     let z_core = members
         .iter()
         .map(|p| p.z)
@@ -355,19 +371,7 @@ fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
             peak = (t, f, z);
         }
     }
-    // Σ_ij w_i w_j c_ij over pairs within 5 σ_t (c < 0.2% beyond) of the
-    // cluster's lowest frequency (the longest tiles).
-    let reach = 5.0 * q / (4.0 * std::f64::consts::PI * f_min.max(1e-3));
-    let mut var = 0.0;
-    for (i, &(ti, fi, wi, _)) in pts.iter().enumerate() {
-        var += wi * wi;
-        for &(tj, fj, wj, _) in &pts[i + 1..] {
-            if tj - ti > reach {
-                break;
-            }
-            var += 2.0 * wi * wj * energy_correlation(q, tj - ti, fj - fi, fi, fj);
-        }
-    }
+    let var = null_variance(q, &pts);
     let k = sw * sw / var;
     let theta = var / sw;
     TileCluster {

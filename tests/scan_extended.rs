@@ -170,3 +170,90 @@ fn extended_noise_rate_stays_within_half_again_the_single_tile_rate() {
     assert!(tiles > 0.0);
     assert!(with <= 1.5 * tiles, "{with:.2}/h against {tiles:.2}/h");
 }
+
+/// The clustered statistic's null moments (`clusters::null_variance`):
+/// `S = Σ w Z` over fixed regions of a plane (3 rows × 0.5 s, not chosen
+/// by their energies) in white Gaussian noise has mean `Σ w` and variance
+/// `Σ_ij w_i w_j c_ij` with the Gaussian-window overlap `c_ij` — checked by
+/// simulation (the overlap of neighbouring tiles is what makes the sum's
+/// degrees of freedom fewer than its tiles), in the lowest and highest Q
+/// planes of the standard plan, within 20%.
+#[test]
+fn cluster_sums_in_noise_have_the_modelled_mean_and_variance() {
+    use glitchbook::clusters::null_variance;
+    use glitchbook::scan::Conditioner;
+    use glitchbook::tails::{STANDARD_HIGHPASS, STANDARD_TILING};
+    use glitchbook::tf::QPlan;
+    let (block_s, pad_s) = (32.0, 2.0);
+    let n = (block_s * FS) as usize;
+    let plan = QPlan::new(
+        FS,
+        n,
+        &STANDARD_TILING,
+        STANDARD_HIGHPASS,
+        &mut rustfft::FftPlanner::new(),
+    )
+    .unwrap();
+    let cond = Conditioner::new(n, FS, (pad_s * FS) as usize, FS as usize, STANDARD_HIGHPASS)
+        .unwrap()
+        .with_top(plan.top_hz());
+    let (mut cb, mut ws) = (cond.buffers(), plan.workspace());
+    let keep = (pad_s, block_s - pad_s);
+    let planes = [0, plan.planes.len() - 1];
+    // Per plane: sums S of every region, and the model's mean and variance.
+    let mut sums: Vec<Vec<f64>> = vec![Vec::new(); 2];
+    let mut model = [(0.0, 0.0); 2];
+    let mut rng = Xoshiro256Plus::seed_from_u64(1818);
+    for _ in 0..60 {
+        let src = InMemory {
+            data: (0..n).map(|_| StandardNormal.sample(&mut rng)).collect(),
+            rate_hz: FS,
+            start_gps: 0.0,
+        };
+        cond.whiten_block_with(&src, 0, &mut cb).unwrap();
+        for (k, &p) in planes.iter().enumerate() {
+            let plane = &plan.planes[p];
+            let r0 = plane.rows.iter().position(|r| r.f_hz >= 100.0).unwrap();
+            let rows: Vec<(Vec<f32>, f64, f64, f64)> = (r0..r0 + 3)
+                .map(|r| {
+                    let (e, dt) = plan.row_energies(p, r, &cb.whitened, 0.0, keep, &mut ws);
+                    let f = plane.rows[r].f_hz;
+                    let df = 0.5 * (plane.rows[r + 1].f_hz - plane.rows[r - 1].f_hz);
+                    (e, dt, f, df)
+                })
+                .collect();
+            for a in (4..27).step_by(2) {
+                let (t_a, t_b) = (a as f64, a as f64 + 0.5);
+                let mut pts = Vec::new();
+                for (e, dt, f, df) in &rows {
+                    for (i, z) in e.iter().enumerate() {
+                        let t = i as f64 * dt;
+                        if t >= t_a && t < t_b {
+                            pts.push((t, *f, dt * df, f64::from(*z)));
+                        }
+                    }
+                }
+                pts.sort_by(|x, y| x.0.total_cmp(&y.0));
+                sums[k].push(pts.iter().map(|p| p.2 * p.3).sum());
+                model[k] = (pts.iter().map(|p| p.2).sum(), null_variance(plane.q, &pts));
+            }
+        }
+    }
+    for (k, s) in sums.iter().enumerate() {
+        let m = s.iter().sum::<f64>() / s.len() as f64;
+        let v = s.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (s.len() - 1) as f64;
+        let (mm, vm) = model[k];
+        println!(
+            "plane {k}: mean {m:.3} (model {mm:.3}), variance {v:.4} (model {vm:.4}), dof {:.1}",
+            mm * mm / vm
+        );
+        assert!(
+            (m / mm - 1.0).abs() < 0.05,
+            "plane {k}: mean {m} against {mm}"
+        );
+        assert!(
+            (v / vm - 1.0).abs() < 0.2,
+            "plane {k}: variance {v} against {vm}"
+        );
+    }
+}
