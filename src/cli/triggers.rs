@@ -62,6 +62,8 @@ struct Listed {
     f_low: f64,
     f_high: f64,
     snr: f64,
+    /// Equivalent SNR of the clustered tiles (see `clusters`).
+    snr_eq: f64,
     q: Option<f64>,
     energy: f64,
     family_id: Option<i64>,
@@ -91,6 +93,7 @@ pub fn run(g: &Global, args: TriggersArgs) -> Result<ExitCode> {
                 f_low: r.f_low,
                 f_high: r.f_high,
                 snr: r.snr,
+                snr_eq: r.snr_eq,
                 q: r.q,
                 energy: r.energy,
                 family_id: f.family_id,
