@@ -311,7 +311,7 @@ pub fn grow_clusters(
 
 /// Variance of `S = Σ w Z` in Gaussian noise over tiles of quality `q`
 /// given as `(t, f, w, _)` sorted by time: `Σ_ij w_i w_j c_ij` (see
-/// [`energy_correlation`]), over pairs within 5 σ_t of the lowest
+/// `energy_correlation`), over pairs within 5 σ_t of the lowest
 /// frequency's tiles (c < 0.2% beyond). Its mean is `Σ w`.
 pub fn null_variance(q: f64, pts: &[(f64, f64, f64, f64)]) -> f64 {
     let f_min = pts.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
