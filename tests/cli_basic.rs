@@ -48,6 +48,7 @@ fn json_fields_and_values_match_the_csv() {
         "f_low",
         "f_high",
         "snr",
+        "snr_eq",
         "q",
         "energy",
         "family_id",
@@ -68,6 +69,8 @@ fn json_fields_and_values_match_the_csv() {
     // energy = 1 + snr^2 / 2 (Chatterji et al. 2004, SNR = sqrt(2(Z-1))).
     assert_eq!(rows[0]["energy"].as_f64(), Some(1.0 + 8.5 * 8.5 / 2.0));
     assert_eq!(rows[0]["channel"], "Z1:TEST");
+    // Imported triggers have no clusters: the equivalent SNR is the SNR.
+    assert_eq!(rows[0]["snr_eq"], rows[0]["snr"]);
 }
 
 #[test]
