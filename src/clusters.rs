@@ -35,6 +35,7 @@
 //!   more significant than this law says: the scan's cluster threshold is
 //!   set by simulation of Gaussian noise (see [`CLUSTER_SIGNIFICANCE`]).
 
+use crate::tf::sigma_t;
 use statrs::function::gamma::{gamma_ur, ln_gamma};
 
 /// Significance of a tile to be a pixel of a cluster (tiles of a row at or
@@ -43,10 +44,6 @@ pub const PIXEL_SIGNIFICANCE: f64 = 3.0;
 
 /// Significance of a tile to seed a cluster.
 pub const SEED_SIGNIFICANCE: f64 = 8.0;
-
-/// Normalised energy of a cluster's core tiles (its extent; see
-/// [`TileCluster::t_start`]): the seed level in a wide row.
-const SEED_LEVEL: f64 = SEED_SIGNIFICANCE;
 
 /// Cluster significance a cluster needs to make a trigger of its own.
 pub const CLUSTER_SIGNIFICANCE: f64 = 30.0;
@@ -156,8 +153,7 @@ enum Take {
 /// `exp(−dt²/(4σ_t²) − df²/(4σ_f²))` (0 beyond e^−12).
 fn energy_correlation(q: f64, dt: f64, df: f64, fi: f64, fj: f64) -> f64 {
     let fm = (fi * fj).sqrt();
-    let st = q / (4.0 * std::f64::consts::PI * fm);
-    let sf = fm / q;
+    let (st, sf) = (sigma_t(q, fm), fm / q);
     let arg = dt * dt / (4.0 * st * st) + df * df / (4.0 * sf * sf);
     if arg < 12.0 {
         (-arg).exp()
@@ -315,7 +311,7 @@ pub fn grow_clusters(
 /// frequency's tiles (c < 0.2% beyond). Its mean is `Σ w`.
 pub fn null_variance(q: f64, pts: &[(f64, f64, f64, f64)]) -> f64 {
     let f_min = pts.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
-    let reach = 5.0 * q / (4.0 * std::f64::consts::PI * f_min.max(1e-3));
+    let reach = 5.0 * sigma_t(q, f_min.max(1e-3));
     let mut var = 0.0;
     for (i, &(ti, fi, wi, _)) in pts.iter().enumerate() {
         var += wi * wi;
@@ -351,11 +347,11 @@ fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
         .iter()
         .map(|p| p.z)
         .fold(f32::NEG_INFINITY, f32::max)
-        .min(SEED_LEVEL as f32);
+        .min(SEED_SIGNIFICANCE as f32);
     for p in members.iter().filter(|p| p.z >= z_core) {
         let c = &rows[p.row as usize];
         let t = c.t0_gps + f64::from(p.idx) * c.dt;
-        let (hd, hb) = (q / (2.0 * std::f64::consts::PI * c.f_hz), 2.0 * c.f_hz / q);
+        let (hd, hb) = (2.0 * sigma_t(q, c.f_hz), 2.0 * c.f_hz / q);
         t_start = t_start.min(t - hd);
         t_end = t_end.max(t + hd);
         f_low = f_low.min(c.f_hz - hb);

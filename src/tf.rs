@@ -671,14 +671,13 @@ impl QPlan {
                 let (g_lo, g_hi, _) = self.kept_range(row, t0_gps, grow);
                 let (g_lo, g_hi) = (g_lo.min(i_lo), g_hi.max(i_hi));
                 let off = ws.grid_len;
-                if pixel_s.is_some() {
-                    if ws.grid.len() < off + g_hi - g_lo {
-                        ws.grid.resize(off + g_hi - g_lo, 0.0);
-                    }
-                    ws.grid_len = off + i_lo - g_lo;
+                if pixel_s.is_some() && ws.grid.len() < off + g_hi - g_lo {
+                    // Grown to the largest plane once; never cleared (every
+                    // tile read is written first).
+                    ws.grid.resize(off + g_hi - g_lo, 0.0);
                 }
-                let scale =
-                    self.row_scale(p, r, whitened, (i_lo, i_hi), screen, pixel_s.is_some(), ws);
+                let store = pixel_s.map(|_| off + i_lo - g_lo);
+                let scale = self.row_scale(p, r, whitened, (i_lo, i_hi), screen, store, ws);
                 if pixel_s.is_some() {
                     // The margins (the kept part was stored by row_scale).
                     for (o, y) in ws.grid[off..].iter_mut().zip(&ws.buf[g_lo..i_lo]) {
@@ -825,8 +824,9 @@ impl QPlan {
     /// the tiles is used instead.
     ///
     /// The same pass records in `ws.hot` the chunks of [`CHUNK`] kept tiles
-    /// holding a tile with `|y|² ≥ screen`, and with `store` appends the
-    /// kept tiles' `|y|²` to `ws.grid`.
+    /// holding a tile with `|y|² ≥ screen`, and with `store = Some(at)`
+    /// writes the kept tiles' `|y|²` to `ws.grid[at..]` (sized by the
+    /// caller).
     #[allow(clippy::too_many_arguments)]
     fn row_scale(
         &self,
@@ -835,7 +835,7 @@ impl QPlan {
         whitened: &[Complex<f32>],
         kept: (usize, usize),
         screen: f64,
-        store: bool,
+        store: Option<usize>,
         ws: &mut Workspace,
     ) -> Option<f64> {
         let row = &self.planes[p].rows[r];
@@ -848,15 +848,10 @@ impl QPlan {
         let g = (SCALE_LEVEL * row.norm) as f32;
         let screen = screen as f32;
         let mut below = 0usize;
-        if store && ws.grid.len() < ws.grid_len + hi - lo {
-            // Grown once to the largest plane; never cleared (every tile
-            // read is written first).
-            ws.grid.resize(ws.grid_len + hi - lo, 0.0);
-        }
         for (c, chunk) in ws.buf[lo..hi].chunks(CHUNK).enumerate() {
             let (mut n, mut hot) = (0u32, false);
-            if store {
-                let at = ws.grid_len + c * CHUNK;
+            if let Some(first) = store {
+                let at = first + c * CHUNK;
                 for (y, o) in chunk.iter().zip(&mut ws.grid[at..at + chunk.len()]) {
                     let e = y.norm_sqr();
                     *o = e;
@@ -874,9 +869,6 @@ impl QPlan {
             if hot {
                 ws.hot.push(c as u32);
             }
-        }
-        if store {
-            ws.grid_len += hi - lo;
         }
         let f = below as f64 / (hi - lo) as f64;
         let mu = if (0.05..=0.95).contains(&f) {
@@ -923,7 +915,7 @@ impl QPlan {
         let r = &self.planes[plane].rows[row];
         let (lo, hi, dt) = self.kept_range(r, t0_gps, keep);
         let scale = self
-            .row_scale(plane, row, whitened, (lo, hi), f64::INFINITY, false, ws)
+            .row_scale(plane, row, whitened, (lo, hi), f64::INFINITY, None, ws)
             .unwrap_or(0.0) as f32;
         (scaled_energies(ws, r, scale), dt)
     }
