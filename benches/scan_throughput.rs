@@ -9,6 +9,12 @@
 //! to change the span, default 3600, and GLITCHBOOK_BENCH_BLOCK_S to set
 //! the block length instead of the default, and GLITCHBOOK_BENCH_QMAX the
 //! highest Q instead of 64).
+//!
+//! The clustered tiles' cost (`--no-clusters` against the default) is
+//! measured as alternating pairs in one process, 1 thread: the ratio of
+//! two runs moments apart is steadier on a shared machine than figures
+//! taken minutes apart. GLITCHBOOK_BENCH_PAIRS sets the number of pairs
+//! (default 7, 0 to skip).
 
 mod common;
 
@@ -135,12 +141,50 @@ fn main() {
         secs / t1,
         t1 / fft_s
     );
+    cluster_cost(&src, &params);
     let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
     let (tn, _) = run(cores);
     println!(
         "  scan, {cores} threads: {tn:.2} s = {:.0}x real time; speed-up {:.2}x",
         secs / tn,
         t1 / tn
+    );
+}
+
+/// Alternating 1-thread scans without and with clustered tiles: each
+/// one's fastest run, the ratio of those, and the median and range of the
+/// pairs' ratios.
+fn cluster_cost(src: &glitchbook::scan::InMemory, params: &ScanParams) {
+    let pairs = common::env_f64("GLITCHBOOK_BENCH_PAIRS").map_or(7, |p| p as usize);
+    if pairs == 0 {
+        return;
+    }
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .unwrap();
+    let time = |clusters: bool| -> f64 {
+        let p = ScanParams {
+            clusters,
+            ..params.clone()
+        };
+        pool.install(|| {
+            let t = Instant::now();
+            scan_source(src, &p, (None, None), None, &|_| {}).unwrap();
+            t.elapsed().as_secs_f64()
+        })
+    };
+    let runs: Vec<(f64, f64)> = (0..pairs).map(|_| (time(false), time(true))).collect();
+    let best = |f: fn(&(f64, f64)) -> f64| runs.iter().map(f).fold(f64::INFINITY, f64::min);
+    let (off, on) = (best(|r| r.0), best(|r| r.1));
+    let mut ratios: Vec<f64> = runs.iter().map(|r| r.1 / r.0).collect();
+    ratios.sort_by(f64::total_cmp);
+    println!(
+        "  clustered tiles, 1 thread, {pairs} alternating pairs: {off:.3} s without, {on:.3} s with (fastest each: {:.3}x); pair ratios median {:.3}x, {:.3}-{:.3}x",
+        on / off,
+        ratios[pairs / 2],
+        ratios[0],
+        ratios[pairs - 1]
     );
 }
 
