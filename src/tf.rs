@@ -29,7 +29,7 @@
 //! - Row arithmetic is single precision; everything that feeds it is already
 //!   of order one.
 
-use crate::clusters::{grow_clusters, GridRow, TileCluster, SEED_SIGNIFICANCE};
+use crate::clusters::{grow_clusters, pack_energy, GridRow, TileCluster, SEED_SIGNIFICANCE};
 use crate::condition::highpass_gain;
 use anyhow::{bail, Result};
 use rustfft::num_complex::Complex;
@@ -160,7 +160,7 @@ fn scaled_energies(ws: &Workspace, row: &Row, scale: f32) -> Vec<f32> {
 }
 
 /// Kept tiles are screened for significant ones in chunks of this many.
-const CHUNK: usize = 64;
+const CHUNK: usize = 16;
 
 /// The bisquare window `(1 − ν²)²` for `|ν| < 1`, else 0.
 fn bisquare(nu: f64) -> f64 {
@@ -319,7 +319,7 @@ pub struct Workspace {
     rho: Vec<Vec<f64>>,
     /// The plane being clustered: kept tiles' energies of every row, the
     /// rows, the seed tiles and a bitmap of the tiles reached.
-    grid: Vec<f32>,
+    grid: Vec<u16>,
     grid_len: usize,
     grid_rows: Vec<GridRow>,
     seeds: Vec<(u32, u32)>,
@@ -674,18 +674,18 @@ impl QPlan {
                 if pixel_s.is_some() && ws.grid.len() < off + g_hi - g_lo {
                     // Grown to the largest plane once; never cleared (every
                     // tile read is written first).
-                    ws.grid.resize(off + g_hi - g_lo, 0.0);
+                    ws.grid.resize(off + g_hi - g_lo, 0);
                 }
                 let store = pixel_s.map(|_| off + i_lo - g_lo);
                 let scale = self.row_scale(p, r, whitened, (i_lo, i_hi), screen, store, ws);
                 if pixel_s.is_some() {
                     // The margins (the kept part was stored by row_scale).
                     for (o, y) in ws.grid[off..].iter_mut().zip(&ws.buf[g_lo..i_lo]) {
-                        *o = y.norm_sqr();
+                        *o = pack_energy(y.norm_sqr());
                     }
                     let at = off + i_lo - g_lo + (i_hi - i_lo);
                     for (o, y) in ws.grid[at..].iter_mut().zip(&ws.buf[i_hi..g_hi]) {
-                        *o = y.norm_sqr();
+                        *o = pack_energy(y.norm_sqr());
                     }
                     ws.grid_len = off + g_hi - g_lo;
                 }
@@ -825,8 +825,9 @@ impl QPlan {
     ///
     /// The same pass records in `ws.hot` the chunks of [`CHUNK`] kept tiles
     /// holding a tile with `|y|² ≥ screen`, and with `store = Some(at)`
-    /// writes the kept tiles' `|y|²` to `ws.grid[at..]` (sized by the
-    /// caller).
+    /// writes the kept tiles' `|y|²` (see [`pack_energy`]) to
+    /// `ws.grid[at..]` (sized by the caller): in the same pass, as a
+    /// loop of its own costs three times as much.
     #[allow(clippy::too_many_arguments)]
     fn row_scale(
         &self,
@@ -854,7 +855,7 @@ impl QPlan {
                 let at = first + c * CHUNK;
                 for (y, o) in chunk.iter().zip(&mut ws.grid[at..at + chunk.len()]) {
                     let e = y.norm_sqr();
-                    *o = e;
+                    *o = pack_energy(e);
                     n += u32::from(e < g);
                     hot |= e >= screen;
                 }
