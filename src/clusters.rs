@@ -42,8 +42,8 @@ use statrs::function::gamma::{gamma_ur, ln_gamma};
 /// above this level). Measured on simulated arches, sweeps and tones.
 pub const PIXEL_SIGNIFICANCE: f64 = 3.0;
 
-/// Significance of a tile to seed a cluster. A cluster that can pass
-/// [`CLUSTER_SIGNIFICANCE`] holds such a tile: in the scan's checks
+/// Significance of a tile to seed a cluster: clusters are grown only from
+/// such tiles. In the scan's checks
 /// (arches, sweeps, tones at SNR 8–20, `tests/scan_extended.rs`) seeds
 /// at 8, 9 and 10 find the same glitches and 12 loses some, while each
 /// step of 1 divides the walks from noise seeds by about e (most of the
