@@ -91,6 +91,14 @@ pub struct GridRow {
     pub raw_pixel: f32,
 }
 
+impl GridRow {
+    /// The cell a tile of this row stands for, `w = dτ Δf` (its time step
+    /// times the row spacing, s × Hz): its weight in a cluster's sums.
+    pub fn cell(&self) -> f64 {
+        self.dt * self.df
+    }
+}
+
 /// A connected set of pixels in one plane.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct TileCluster {
@@ -265,7 +273,7 @@ pub fn grow_clusters(
             members.push(p);
             let (r, i) = (p.row as usize, i64::from(p.idx));
             let row = rows[r];
-            let w = row.dt * row.df;
+            let w = row.cell();
             let t = row.t0_gps + i as f64 * row.dt;
             let mut near: [(usize, i64, i64); 3] =
                 [(r, i - 1, i + 1), (usize::MAX, 0, -1), (usize::MAX, 0, -1)];
@@ -297,10 +305,10 @@ pub fn grow_clusters(
                                 z,
                             });
                             if k > 0 {
-                                pairs += w * rows[r2].dt * rows[r2].df * c;
+                                pairs += w * rows[r2].cell() * c;
                             }
                         }
-                        Take::Seen if k > 0 => pairs += w * rows[r2].dt * rows[r2].df * c,
+                        Take::Seen if k > 0 => pairs += w * rows[r2].cell() * c,
                         _ => {}
                     }
                     j += step;
@@ -321,7 +329,7 @@ pub fn grow_clusters(
         let (mut sw, mut swz, mut var) = (0.0, 0.0, pairs);
         for p in &members {
             let c = &rows[p.row as usize];
-            let w = c.dt * c.df;
+            let w = c.cell();
             sw += w;
             swz += w * f64::from(p.z);
             var += w * w;
@@ -329,7 +337,7 @@ pub fn grow_clusters(
         members.sort_unstable_by_key(|p| (p.row, p.idx));
         for run in members.chunk_by(|a, b| a.row == b.row) {
             let r = run[0].row as usize;
-            let ww = rows[r].dt * rows[r].df;
+            let ww = rows[r].cell();
             let ln_rho = in_row[r].max(f64::MIN_POSITIVE).ln();
             for (a, p) in run.iter().enumerate() {
                 for q in &run[a + 1..] {
@@ -390,7 +398,7 @@ fn summarise(q: f64, rows: &[GridRow], members: &[Pixel]) -> TileCluster {
         .map(|p| {
             let c = &rows[p.row as usize];
             let t = c.t0_gps + f64::from(p.idx) * c.dt;
-            (t, c.f_hz, c.dt * c.df, f64::from(p.z))
+            (t, c.f_hz, c.cell(), f64::from(p.z))
         })
         .collect();
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));

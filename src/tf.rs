@@ -159,7 +159,9 @@ fn scaled_energies(ws: &Workspace, row: &Row, scale: f32) -> Vec<f32> {
         .collect()
 }
 
-/// Kept tiles are screened for significant ones in chunks of this many.
+/// Kept tiles are screened for significant ones in chunks of this many
+/// (16: the second look at a flagged chunk reads few tiles, and a chunk
+/// is flagged less often than one of 64 at the clusters' lower screen).
 const CHUNK: usize = 16;
 
 /// The bisquare window `(1 − ν²)²` for `|ν| < 1`, else 0.
